@@ -1,0 +1,66 @@
+package models
+
+import (
+	"math"
+
+	"gonum.org/v1/gonum/stat/distuv"
+)
+
+// truncNormalQuantile returns the p-quantile of N(mean, sd²) truncated to [lo, hi]:
+//
+//	q = Φ⁻¹(Φ(a) + p·(Φ(b) − Φ(a)))·sd + mean,  a = (lo−mean)/sd, b = (hi−mean)/sd
+func truncNormalQuantile(p, mean, sd, lo, hi float64) float64 {
+	n := distuv.UnitNormal
+	a, b := n.CDF((lo-mean)/sd), n.CDF((hi-mean)/sd)
+	if b-a < 1e-300 {
+		return math.Max(lo, math.Min(hi, mean))
+	}
+	q := n.Quantile(a+p*(b-a))*sd + mean
+	return math.Max(lo, math.Min(hi, q))
+}
+
+// Quantile returns the u-quantile of the generating distribution of a free
+// parameter (u in (0,1)); fixed parameters return their value. Drawing u
+// uniformly gives a draw from the distribution.
+func (p Param) Quantile(u float64) float64 {
+	if !p.Free() {
+		return *p.Value
+	}
+	lo, hi := *p.Min, *p.Max
+	dist := "uniform"
+	if p.Generate != nil && p.Generate.Dist != "" {
+		dist = p.Generate.Dist
+	}
+	switch dist {
+	case "loguniform":
+		return math.Exp(math.Log(lo) + u*(math.Log(hi)-math.Log(lo)))
+	case "normal":
+		return truncNormalQuantile(u, p.Generate.Mean, p.Generate.SD, lo, hi)
+	default:
+		return lo + u*(hi-lo)
+	}
+}
+
+// Quantile returns the u-quantile of a measurement prior (u in (0,1)).
+func (p Prior) Quantile(u float64) float64 {
+	switch p.Dist {
+	case "fixed":
+		return p.Value
+	case "uniform":
+		return *p.Min + u*(*p.Max-*p.Min)
+	case "lognormal":
+		return math.Exp(p.Mu + p.Sigma*distuv.UnitNormal.Quantile(u))
+	default: // normal
+		lo, hi := math.Inf(-1), math.Inf(1)
+		if p.Min != nil {
+			lo = *p.Min
+		}
+		if p.Max != nil {
+			hi = *p.Max
+		}
+		return truncNormalQuantile(u, p.Mean, p.SD, lo, hi)
+	}
+}
+
+// Median returns the prior's median.
+func (p Prior) Median() float64 { return p.Quantile(0.5) }

@@ -1,0 +1,134 @@
+package models
+
+import (
+	"fmt"
+	"sort"
+)
+
+// HypothesisPrediction is one hypothesis's predictions in the shape that
+// `discrimen predict --format json` prints and the report embeds.
+type HypothesisPrediction struct {
+	Name     string             `json:"name"`
+	Family   string             `json:"family"`
+	Params   map[string]float64 `json:"params"`
+	CTIms    []int              `json:"cti_ms"`
+	Valid    ClassOut           `json:"valid"`
+	Invalid  ClassOut           `json:"invalid"`
+	Neural   NeuralOut          `json:"neural"`
+	Censored CensoredOut        `json:"censored"`
+}
+
+// ClassOut is one trial class's RT and accuracy by CTI.
+type ClassOut struct {
+	RTms        []float64 `json:"rt_ms"`
+	Accuracy    []float64 `json:"accuracy"`
+	Misdirected []float64 `json:"misdirected,omitempty"`
+}
+
+// NeuralOut is the baseline-corrected neural signal by CTI, in bins.
+type NeuralOut struct {
+	BinMs int         `json:"bin_ms"`
+	ByCTI [][]float64 `json:"by_cti"`
+}
+
+// CensoredOut flags, per CTI, predictions censored at the window's end.
+type CensoredOut struct {
+	Valid   []bool `json:"valid"`
+	Invalid []bool `json:"invalid"`
+}
+
+// ReferenceValues returns the free parameter values (ordered as
+// h.FreeParams()) at the medians of their generating distributions.
+func (h Hypothesis) ReferenceValues() []float64 {
+	names := h.FreeParams()
+	v := make([]float64, len(names))
+	for i, n := range names {
+		v[i] = h.Params[n].Median()
+	}
+	return v
+}
+
+// PredictAt computes h's predictions for design d at the given free values,
+// with the set map overriding any parameter (free or fixed) by name.
+func PredictAt(l *Listener, d *Design, h Hypothesis, free []float64, set map[string]float64) (HypothesisPrediction, error) {
+	hh := h
+	if len(set) > 0 {
+		hh.Params = make(map[string]Param, len(h.Params)+len(set))
+		for k, v := range h.Params {
+			hh.Params[k] = v
+		}
+		names := h.FreeParams()
+		keep := free[:0:0]
+		for i, n := range names {
+			if _, ok := set[n]; !ok {
+				keep = append(keep, free[i])
+			}
+		}
+		allowed := AllowedParams(h.Family)
+		for k, v := range set {
+			if !contains(allowed, k) {
+				return HypothesisPrediction{}, fmt.Errorf("models: hypothesis %q (%s) has no parameter %q; allowed: %v", h.Name, h.Family, k, allowed)
+			}
+			hh.Params[k] = Param{Value: &v}
+		}
+		free = keep
+	}
+	vals, err := hh.Resolve(d, free)
+	if err != nil {
+		return HypothesisPrediction{}, err
+	}
+	prec, err := NewPrecision(hh, d, free)
+	if err != nil {
+		return HypothesisPrediction{}, err
+	}
+	p := l.NewPrediction()
+	l.Predict(prec, p, nil)
+	return HypothesisPrediction{
+		Name: h.Name, Family: h.Family, Params: vals, CTIms: p.CTIms,
+		Valid:    ClassOut{RTms: p.Valid.RTms, Accuracy: p.Valid.Accuracy},
+		Invalid:  ClassOut{RTms: p.Invalid.RTms, Accuracy: p.Invalid.Accuracy, Misdirected: p.Invalid.Misdirected},
+		Neural:   NeuralOut{BinMs: p.BinMs, ByCTI: p.Neural},
+		Censored: CensoredOut{Valid: p.Valid.Censored, Invalid: p.Invalid.Censored},
+	}, nil
+}
+
+// PredictDesign predicts every hypothesis of the study for design d at its
+// reference values, with overrides set[hypothesis][param].
+func PredictDesign(s *Study, d *Design, set map[string]map[string]float64) ([]HypothesisPrediction, error) {
+	l, err := NewListener(d)
+	if err != nil {
+		return nil, err
+	}
+	for name := range set {
+		found := false
+		for _, h := range s.Hypotheses {
+			found = found || h.Name == name
+		}
+		if !found {
+			names := make([]string, len(s.Hypotheses))
+			for i, h := range s.Hypotheses {
+				names[i] = h.Name
+			}
+			sort.Strings(names)
+			return nil, fmt.Errorf("models: --set names hypothesis %q; the study has %v", name, names)
+		}
+	}
+	out := make([]HypothesisPrediction, 0, len(s.Hypotheses))
+	for _, h := range s.Hypotheses {
+		hp, err := PredictAt(l, d, h, h.ReferenceValues(), set[h.Name])
+		if err != nil {
+			return nil, err
+		}
+		out = append(out, hp)
+	}
+	return out, nil
+}
+
+func contains(xs []string, x string) bool {
+	for _, v := range xs {
+		if v == x {
+			return true
+		}
+	}
+	return false
+}

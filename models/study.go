@@ -1,0 +1,345 @@
+package models
+
+import (
+	"bytes"
+	"encoding/json"
+	"fmt"
+	"math"
+	"sort"
+)
+
+// Study is the file a user submits: designs to compare, hypotheses that act
+// both as generators and as candidates, the group-level replication settings
+// and the seed from which every random draw derives.
+type Study struct {
+	Name        string       `json:"name"`
+	Seed        uint64       `json:"seed"`
+	Designs     []Design     `json:"designs"`
+	Hypotheses  []Hypothesis `json:"hypotheses"`
+	Replication Replication  `json:"replication"`
+}
+
+// Design is one experiment being planned (model.md §1). Times are in
+// milliseconds. A zero field means its documented default (see Defaults).
+type Design struct {
+	Name             string      `json:"name"`
+	Streams          int         `json:"streams"`
+	Items            int         `json:"items"`
+	Validity         float64     `json:"validity"`
+	CTIms            []int       `json:"cti_ms"`
+	CTIWeights       []float64   `json:"cti_weights,omitempty"`
+	TrialsPerCTI     int         `json:"trials_per_cti"`
+	Participants     int         `json:"participants"`
+	Measures         []string    `json:"measures"`
+	PresentationMs   int         `json:"presentation_ms"`
+	ResponseWindowMs int         `json:"response_window_ms"`
+	EpochMs          int         `json:"epoch_ms"`
+	EEGBinMs         int         `json:"eeg_bin_ms"`
+	CueMs            int         `json:"cue_ms,omitempty"`
+	Agent            Agent       `json:"agent"`
+	Measurement      Measurement `json:"measurement"`
+	// Vary expands this design into variants, one per listed alternative
+	// value of a field (model.md §8). Empty means the design stands alone.
+	Vary []Variation `json:"vary,omitempty"`
+}
+
+// Variation lists alternative values for one design field. Each value
+// replaces the field in a copy of the design; Label names the copy.
+type Variation struct {
+	Field  string            `json:"field"`
+	Values []json.RawMessage `json:"values"`
+	Labels []string          `json:"labels,omitempty"`
+}
+
+// Agent holds the listening agent's constants (model.md §3).
+type Agent struct {
+	CueReliability     float64 `json:"cue_reliability"`
+	ItemFidelity       float64 `json:"item_fidelity"`
+	MarkerReliability  float64 `json:"marker_reliability"`
+	GainLevels         int     `json:"gain_levels"`
+	GainMin            float64 `json:"gain_min"`
+	GainMax            float64 `json:"gain_max"`
+	IterationsPerEpoch int     `json:"iterations_per_epoch"`
+	TimeConstant       float64 `json:"time_constant"`
+	Criterion          float64 `json:"criterion"`
+	ChoiceTemperature  float64 `json:"choice_temperature"`
+}
+
+// Measurement holds the priors of the measurement parameters (model.md §4)
+// from which each synthetic participant draws its own values.
+type Measurement struct {
+	RTBase    Prior `json:"rt_base"`
+	RTScale   Prior `json:"rt_scale"`
+	RTSD      Prior `json:"rt_sd"`
+	Lapse     Prior `json:"lapse"`
+	EEGOffset Prior `json:"eeg_offset"`
+	EEGGain   Prior `json:"eeg_gain"`
+	EEGSD     Prior `json:"eeg_sd"`
+	EEGAR     Prior `json:"eeg_ar"`
+}
+
+// Prior is a distribution for one measurement parameter:
+//
+//	fixed:     value
+//	normal:    mean, sd (truncated to [min, max] when both are given)
+//	uniform:   min, max
+//	lognormal: mu, sigma of ln X
+type Prior struct {
+	Dist  string   `json:"dist"`
+	Value float64  `json:"value,omitempty"`
+	Mean  float64  `json:"mean,omitempty"`
+	SD    float64  `json:"sd,omitempty"`
+	Min   *float64 `json:"min,omitempty"`
+	Max   *float64 `json:"max,omitempty"`
+	Mu    float64  `json:"mu,omitempty"`
+	Sigma float64  `json:"sigma,omitempty"`
+}
+
+// Hypothesis is a precision family with its parameters (model.md §2).
+type Hypothesis struct {
+	Name   string           `json:"name"`
+	Family string           `json:"family"`
+	Params map[string]Param `json:"params"`
+}
+
+// Param is either fixed (Value set) or free over [Min, Max] with a
+// generating distribution for true values.
+type Param struct {
+	Value    *float64  `json:"value,omitempty"`
+	Min      *float64  `json:"min,omitempty"`
+	Max      *float64  `json:"max,omitempty"`
+	Generate *Generate `json:"generate,omitempty"`
+}
+
+// Free reports whether the parameter is estimated.
+func (p Param) Free() bool { return p.Value == nil }
+
+// Generate is the distribution of true values over a free parameter's
+// range: uniform, normal (mean, sd; truncated to the range) or loguniform.
+type Generate struct {
+	Dist string  `json:"dist"`
+	Mean float64 `json:"mean,omitempty"`
+	SD   float64 `json:"sd,omitempty"`
+}
+
+// Replication holds the group-level settings (model.md §7).
+type Replication struct {
+	GroupSizes   []int   `json:"group_sizes"`
+	Replicates   int     `json:"replicates"`
+	PXPThreshold float64 `json:"pxp_threshold"`
+	TargetRate   float64 `json:"target_rate"`
+}
+
+// Families lists the precision families in their documented order.
+var Families = []string{"constant", "linear", "exponential", "saturating", "logistic", "hazard"}
+
+// Measures lists the allowed measures.
+var Measures = []string{"rt", "accuracy", "eeg"}
+
+// DecodeStudy parses a study file strictly (unknown fields are errors) and
+// fills defaults. It does not validate ranges; call Validate for that.
+func DecodeStudy(data []byte) (*Study, error) {
+	dec := json.NewDecoder(bytes.NewReader(data))
+	dec.DisallowUnknownFields()
+	var s Study
+	if err := dec.Decode(&s); err != nil {
+		return nil, fmt.Errorf("models: study file: %w", err)
+	}
+	if dec.More() {
+		return nil, fmt.Errorf("models: study file: trailing data after the study object")
+	}
+	s.FillDefaults()
+	return &s, nil
+}
+
+// FillDefaults replaces every zero field by its default. It is idempotent.
+func (s *Study) FillDefaults() {
+	if s.Name == "" {
+		s.Name = "study"
+	}
+	for i := range s.Designs {
+		s.Designs[i].FillDefaults()
+		if s.Designs[i].Name == "" {
+			s.Designs[i].Name = fmt.Sprintf("design-%d", i+1)
+		}
+	}
+	for i := range s.Hypotheses {
+		if s.Hypotheses[i].Name == "" {
+			s.Hypotheses[i].Name = fmt.Sprintf("hypothesis-%d", i+1)
+		}
+	}
+	r := &s.Replication
+	if len(r.GroupSizes) == 0 {
+		r.GroupSizes = []int{10, 20, 40}
+	}
+	if r.Replicates == 0 {
+		r.Replicates = 500
+	}
+	if r.PXPThreshold == 0 {
+		r.PXPThreshold = 0.95
+	}
+	if r.TargetRate == 0 {
+		r.TargetRate = 0.8
+	}
+}
+
+// Default design values. The measurement priors are ours (model.md gives
+// none); they describe a healthy adult sample and are stated in the report.
+const (
+	DefaultStreams          = 3
+	DefaultItems            = 8
+	DefaultValidity         = 0.75
+	DefaultTrialsPerCTI     = 40
+	DefaultParticipants     = 100
+	DefaultPresentationMs   = 400
+	DefaultResponseWindowMs = 1500
+	DefaultEpochMs          = 50
+	DefaultEEGBinMs         = 100
+)
+
+// DefaultCTIms is the default set of cue-target intervals.
+var DefaultCTIms = []int{300, 600, 900, 1200}
+
+// FillDefaults replaces every zero field of the design by its default.
+func (d *Design) FillDefaults() {
+	if d.Streams == 0 {
+		d.Streams = DefaultStreams
+	}
+	if d.Items == 0 {
+		d.Items = DefaultItems
+	}
+	if d.Validity == 0 {
+		d.Validity = DefaultValidity
+	}
+	if len(d.CTIms) == 0 {
+		d.CTIms = append([]int(nil), DefaultCTIms...)
+	}
+	if len(d.CTIWeights) == 0 {
+		d.CTIWeights = make([]float64, len(d.CTIms))
+		for i := range d.CTIWeights {
+			d.CTIWeights[i] = 1
+		}
+	}
+	if d.TrialsPerCTI == 0 {
+		d.TrialsPerCTI = DefaultTrialsPerCTI
+	}
+	if d.Participants == 0 {
+		d.Participants = DefaultParticipants
+	}
+	if len(d.Measures) == 0 {
+		d.Measures = []string{"rt", "accuracy"}
+	}
+	if d.PresentationMs == 0 {
+		d.PresentationMs = DefaultPresentationMs
+	}
+	if d.ResponseWindowMs == 0 {
+		d.ResponseWindowMs = DefaultResponseWindowMs
+	}
+	if d.EpochMs == 0 {
+		d.EpochMs = DefaultEpochMs
+	}
+	if d.EEGBinMs == 0 {
+		d.EEGBinMs = DefaultEEGBinMs
+	}
+	a := &d.Agent
+	if a.CueReliability == 0 && d.Streams > 0 {
+		// A likelihood ratio of 4/3 per glance: ρ/((1−ρ)/(L−1)) = 4/3.
+		a.CueReliability = 4 / (3*float64(d.Streams) + 1)
+	}
+	if a.ItemFidelity == 0 {
+		a.ItemFidelity = 0.6
+	}
+	if a.MarkerReliability == 0 {
+		a.MarkerReliability = 0.7
+	}
+	if a.GainLevels == 0 {
+		a.GainLevels = 9
+	}
+	if a.GainMin == 0 && a.GainMax == 0 {
+		a.GainMin, a.GainMax = 0.1, 2.0
+	}
+	if a.IterationsPerEpoch == 0 {
+		a.IterationsPerEpoch = 16
+	}
+	if a.TimeConstant == 0 {
+		a.TimeConstant = 4
+	}
+	if a.Criterion == 0 {
+		a.Criterion = 0.9
+	}
+	if a.ChoiceTemperature == 0 {
+		a.ChoiceTemperature = 1
+	}
+	m := &d.Measurement
+	fill := func(p *Prior, def Prior) {
+		if p.Dist == "" {
+			*p = def
+		}
+	}
+	fill(&m.RTBase, Prior{Dist: "normal", Mean: 250, SD: 30})
+	fill(&m.RTScale, Prior{Dist: "normal", Mean: 1, SD: 0.1, Min: fptr(0.5), Max: fptr(2)})
+	fill(&m.RTSD, Prior{Dist: "uniform", Min: fptr(40), Max: fptr(80)})
+	fill(&m.Lapse, Prior{Dist: "uniform", Min: fptr(0), Max: fptr(0.05)})
+	fill(&m.EEGOffset, Prior{Dist: "normal", Mean: 0, SD: 0.5})
+	fill(&m.EEGGain, Prior{Dist: "normal", Mean: 2, SD: 0.3, Min: fptr(0.5), Max: fptr(5)})
+	fill(&m.EEGSD, Prior{Dist: "uniform", Min: fptr(0.3), Max: fptr(0.6)})
+	fill(&m.EEGAR, Prior{Dist: "uniform", Min: fptr(0), Max: fptr(0.5)})
+}
+
+func fptr(v float64) *float64 { return &v }
+
+// HasMeasure reports whether the design records measure m.
+func (d *Design) HasMeasure(m string) bool {
+	for _, x := range d.Measures {
+		if x == m {
+			return true
+		}
+	}
+	return false
+}
+
+// GainGrid returns the gain levels γ_1..γ_G evenly spaced on [GainMin, GainMax].
+func (a Agent) GainGrid() []float64 {
+	g := make([]float64, a.GainLevels)
+	for i := range g {
+		if a.GainLevels == 1 {
+			g[i] = a.GainMin
+			continue
+		}
+		g[i] = a.GainMin + (a.GainMax-a.GainMin)*float64(i)/float64(a.GainLevels-1)
+	}
+	return g
+}
+
+// FreeParams returns the names of the hypothesis's free parameters, sorted.
+// Sorted order is the order of parameter vectors everywhere.
+func (h Hypothesis) FreeParams() []string {
+	var names []string
+	for n, p := range h.Params {
+		if p.Free() {
+			names = append(names, n)
+		}
+	}
+	sort.Strings(names)
+	return names
+}
+
+// Median returns the median of a free parameter's generating distribution.
+func (p Param) Median() float64 {
+	if !p.Free() {
+		return *p.Value
+	}
+	lo, hi := *p.Min, *p.Max
+	dist := "uniform"
+	if p.Generate != nil && p.Generate.Dist != "" {
+		dist = p.Generate.Dist
+	}
+	switch dist {
+	case "loguniform":
+		return math.Sqrt(lo * hi)
+	case "normal":
+		return truncNormalQuantile(0.5, p.Generate.Mean, p.Generate.SD, lo, hi)
+	default:
+		return (lo + hi) / 2
+	}
+}
