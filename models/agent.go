@@ -32,15 +32,15 @@ type Listener struct {
 	crit       float64
 	alpha      float64
 
-	ctiMs      []int
-	nOn        []int // target onset per CTI, in epochs
-	maxOn      int
-	cueEpochs  int // epochs with the cue shown when cue_ms is set; 0 = until onset
-	present    int // P, presentation epochs
-	window     int // W, response-window epochs
-	deltaMs    float64
-	binMs      int
-	binIters   int
+	ctiMs     []int
+	nOn       []int // target onset per CTI, in epochs
+	maxOn     int
+	cueEpochs int // epochs with the cue shown when cue_ms is set; 0 = until onset
+	present   int // P, presentation epochs
+	window    int // W, response-window epochs
+	deltaMs   float64
+	binMs     int
+	binIters  int
 }
 
 // NewListener compiles the agent for design d (defaults filled, valid).
@@ -219,14 +219,19 @@ func (l *Listener) NewPrediction() *Prediction {
 // softStep is one gradient step of model.md §3 on one factor:
 //
 //	ε = ln softmax(target) − v;  v ← v + ε/κ;  v ← ln softmax(v);  s = softmax(v)
+//
+// ln softmax(target) differs from target by a constant, and a constant
+// added to v vanishes in the renormalisation that follows, so the step
+// uses target itself: v ← ln softmax((1 − 1/κ)·v + target/κ).
 func softStep(v, s, target []float64, invKappa float64) {
-	lt := logSumExp(target)
+	keep := 1 - invKappa
+	m := math.Inf(-1)
 	for i := range v {
-		v[i] += (target[i] - lt - v[i]) * invKappa
-	}
-	m := v[0]
-	for _, x := range v[1:] {
-		m = math.Max(m, x)
+		x := keep*v[i] + invKappa*target[i]
+		v[i] = x
+		if x > m {
+			m = x
+		}
 	}
 	sum := 0.0
 	for i, x := range v {
@@ -245,7 +250,9 @@ func softStep(v, s, target []float64, invKappa float64) {
 func logSumExp(x []float64) float64 {
 	m := x[0]
 	for _, v := range x[1:] {
-		m = math.Max(m, v)
+		if v > m {
+			m = v
+		}
 	}
 	sum := 0.0
 	for _, v := range x {
@@ -261,8 +268,9 @@ func (l *Listener) gainPrior(dst []float64, gamma float64) {
 		dst[g] = -d * d * l.inv2s2
 	}
 	z := logSumExp(dst)
+	lf := math.Log(probFloor)
 	for g := range dst {
-		dst[g] -= z
+		dst[g] = math.Max(dst[g]-z, lf)
 	}
 }
 
@@ -353,9 +361,11 @@ func (l *Listener) initState(st *state, prior0 []float64) {
 	fill(st.vd, st.sd)
 	fill(st.vf, st.sf)
 	fill(st.vx, st.sx)
+	// The floored prior sums to slightly more than 1: renormalise.
+	z := logSumExp(prior0)
 	for g := range st.vg {
-		st.vg[g] = prior0[g]
-		st.sg[g] = math.Exp(prior0[g])
+		st.vg[g] = prior0[g] - z
+		st.sg[g] = math.Exp(st.vg[g])
 	}
 	for i := range st.ed {
 		st.ed[i], st.ef[i] = 0, 0
@@ -572,7 +582,9 @@ func (l *Listener) choose(s []float64, cued int) (acc, mis float64) {
 func maxOf(x []float64) float64 {
 	m := x[0]
 	for _, v := range x[1:] {
-		m = math.Max(m, v)
+		if v > m {
+			m = v
+		}
 	}
 	return m
 }

@@ -1,0 +1,198 @@
+package main
+
+import (
+	"encoding/json"
+	"flag"
+	"fmt"
+	"io"
+	"os"
+	"sort"
+	"strconv"
+	"strings"
+	"text/tabwriter"
+
+	"discrimen"
+	"discrimen/models"
+)
+
+// setFlags collects repeated --set HYPOTHESIS.PARAM=VALUE flags.
+type setFlags map[string]map[string]float64
+
+func (s setFlags) String() string { return "" }
+
+func (s setFlags) Set(v string) error {
+	lhs, rhs, ok := strings.Cut(v, "=")
+	hyp, param, ok2 := strings.Cut(lhs, ".")
+	if !ok || !ok2 || hyp == "" || param == "" {
+		return fmt.Errorf("want HYPOTHESIS.PARAM=VALUE, got %q", v)
+	}
+	x, err := strconv.ParseFloat(rhs, 64)
+	if err != nil {
+		return fmt.Errorf("value of %s must be a number, got %q", lhs, rhs)
+	}
+	if s[hyp] == nil {
+		s[hyp] = map[string]float64{}
+	}
+	s[hyp][param] = x
+	return nil
+}
+
+func cmdPredict(args []string, stdout, stderr io.Writer) int {
+	fs := flag.NewFlagSet("predict", flag.ContinueOnError)
+	fs.SetOutput(stderr)
+	design := fs.String("design", "", "design `NAME` (default: the first)")
+	format := fs.String("format", "table", "output format: table or json")
+	set := setFlags{}
+	fs.Var(set, "set", "override a parameter, `HYPOTHESIS.PARAM=VALUE` (repeatable)")
+	fs.Usage = func() {
+		fmt.Fprintln(stderr, "usage: discrimen predict [STUDY.json] (default: the embedded demo study) [--design NAME] [--set H.P=V ...] [--format table|json]")
+		fs.PrintDefaults()
+	}
+	path, rest := splitPath(args)
+	if err := fs.Parse(rest); err != nil {
+		return 2
+	}
+	if path == "" && fs.NArg() > 0 {
+		path = fs.Arg(0)
+	}
+	if *format != "table" && *format != "json" {
+		fmt.Fprintf(stderr, "discrimen predict: --format must be table or json, got %q\n", *format)
+		return 2
+	}
+	study, code := loadStudyFile(path, stderr)
+	if study == nil {
+		return code
+	}
+	designs, err := study.ExpandedDesigns()
+	if err != nil {
+		fmt.Fprintln(stderr, "discrimen predict:", err)
+		return 1
+	}
+	d := &designs[0]
+	if *design != "" {
+		d = nil
+		var names []string
+		for i := range designs {
+			names = append(names, designs[i].Name)
+			if designs[i].Name == *design {
+				d = &designs[i]
+			}
+		}
+		if d == nil {
+			fmt.Fprintf(stderr, "discrimen predict: --design %q not in the study; designs: %s\n", *design, strings.Join(names, ", "))
+			return 2
+		}
+	}
+	preds, err := models.PredictDesign(study, d, set)
+	if err != nil {
+		fmt.Fprintln(stderr, "discrimen predict:", err)
+		return 1
+	}
+	if *format == "json" {
+		out := struct {
+			Design     string                        `json:"design"`
+			Hypotheses []models.HypothesisPrediction `json:"hypotheses"`
+		}{d.Name, preds}
+		enc := json.NewEncoder(stdout)
+		enc.SetIndent("", "  ")
+		if err := enc.Encode(out); err != nil {
+			fmt.Fprintln(stderr, "discrimen predict:", err)
+			return 1
+		}
+		return 0
+	}
+	writePredictTable(stdout, d, preds)
+	return 0
+}
+
+// splitPath takes the first non-flag argument as the study path so that
+// flags may come before or after it.
+func splitPath(args []string) (string, []string) {
+	if len(args) > 0 && !strings.HasPrefix(args[0], "-") {
+		return args[0], args[1:]
+	}
+	return "", args
+}
+
+// loadStudyFile reads and validates a study; on failure it prints every
+// problem and returns nil with the exit code.
+func loadStudyFile(path string, stderr io.Writer) (*models.Study, int) {
+	data := discrimen.DemoStudy
+	if path != "" {
+		var err error
+		data, err = os.ReadFile(path)
+		if err != nil {
+			fmt.Fprintln(stderr, "discrimen:", err)
+			return nil, 2
+		}
+	} else {
+		path = "the embedded demo study"
+	}
+	s, err := models.LoadStudy(data)
+	if err != nil {
+		fmt.Fprintf(stderr, "discrimen: %s is not a valid study:\n%v\n", path, err)
+		return nil, 1
+	}
+	return s, 0
+}
+
+func writePredictTable(w io.Writer, d *models.Design, preds []models.HypothesisPrediction) {
+	fmt.Fprintf(w, "design %s: %d streams, %d items, validity %.2f, measures %s\n\n",
+		d.Name, d.Streams, d.Items, d.Validity, strings.Join(d.Measures, ","))
+	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', tabwriter.AlignRight)
+	fmt.Fprintln(tw, "hypothesis\tfamily\tCTI (ms)\tvalid RT (ms)\tvalid acc\tinvalid RT (ms)\tinvalid acc\tmisdirected\tcensored\t")
+	for _, p := range preds {
+		for c, cti := range p.CTIms {
+			cens := "-"
+			switch {
+			case p.Censored.Valid[c] && p.Censored.Invalid[c]:
+				cens = "both"
+			case p.Censored.Valid[c]:
+				cens = "valid"
+			case p.Censored.Invalid[c]:
+				cens = "invalid"
+			}
+			name, fam := p.Name, p.Family
+			if c > 0 {
+				name, fam = "", ""
+			}
+			fmt.Fprintf(tw, "%s\t%s\t%d\t%.1f\t%.3f\t%.1f\t%.3f\t%.3f\t%s\t\n", name, fam, cti,
+				p.Valid.RTms[c], p.Valid.Accuracy[c], p.Invalid.RTms[c], p.Invalid.Accuracy[c], p.Invalid.Misdirected[c], cens)
+		}
+	}
+	tw.Flush()
+	fmt.Fprintln(w)
+	fmt.Fprintf(w, "parameters used (free ones at the median of their generating distribution unless --set):\n")
+	for _, p := range preds {
+		fmt.Fprintf(w, "  %-20s %s\n", p.Name, formatParams(p.Params))
+	}
+	fmt.Fprintf(w, "\nneural signal (expected precision, baseline-corrected) in %d ms bins from cue onset, longest CTI:\n", preds[0].Neural.BinMs)
+	tw = tabwriter.NewWriter(w, 0, 0, 1, ' ', tabwriter.AlignRight)
+	last := len(preds[0].CTIms) - 1
+	fmt.Fprint(tw, "hypothesis\t")
+	for b := range preds[0].Neural.ByCTI[last] {
+		fmt.Fprintf(tw, "%d\t", (b+1)*preds[0].Neural.BinMs)
+	}
+	fmt.Fprintln(tw)
+	for _, p := range preds {
+		fmt.Fprintf(tw, "%s\t", p.Name)
+		for _, v := range p.Neural.ByCTI[last] {
+			fmt.Fprintf(tw, "%.3f\t", v)
+		}
+		fmt.Fprintln(tw)
+	}
+	tw.Flush()
+}
+
+func formatParams(m map[string]float64) string {
+	keys := make([]string, 0, len(m))
+	for k := range m {
+		keys = append(keys, k)
+	}
+	sort.Strings(keys)
+	parts := make([]string, len(keys))
+	for i, k := range keys {
+		parts[i] = fmt.Sprintf("%s=%.4g", k, m[k])
+	}
+	return strings.Join(parts, " ")
+}

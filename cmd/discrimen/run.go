@@ -1,0 +1,128 @@
+package main
+
+import (
+	"context"
+	"errors"
+	"flag"
+	"fmt"
+	"io"
+	"os"
+	"os/signal"
+	"path/filepath"
+	"syscall"
+
+	"github.com/schollz/progressbar/v3"
+
+	"discrimen/recovery"
+)
+
+func init() { extraCommands["run"] = cmdRun }
+
+// cmdRun runs a study in this process and writes report.json, report.html
+// and fits.csv. The progress bar (schollz/progressbar: a maintained
+// library with rate and ETA) goes to stderr.
+func cmdRun(args []string, stdout, stderr io.Writer) int {
+	fs := flag.NewFlagSet("run", flag.ContinueOnError)
+	fs.SetOutput(stderr)
+	out := fs.String("out", "", "output `DIR` for report.json, report.html and fits.csv (required)")
+	workers := fs.Int("workers", 0, "goroutines to use (0 = all cores)")
+	quiet := fs.Bool("quiet", false, "no progress bar")
+	fs.Usage = func() {
+		fmt.Fprintln(stderr, "usage: discrimen run [STUDY.json] --out DIR   (default study: the embedded demo) [--workers N] [--quiet]")
+		fs.PrintDefaults()
+	}
+	path, rest := splitPath(args)
+	if err := fs.Parse(rest); err != nil {
+		return 2
+	}
+	if path == "" && fs.NArg() > 0 {
+		path = fs.Arg(0)
+	}
+	if *out == "" {
+		fs.Usage()
+		return 2
+	}
+	study, code := loadStudyFile(path, stderr)
+	if study == nil {
+		return code
+	}
+	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
+	defer stop()
+	var bar *progressbar.ProgressBar
+	opt := recovery.Options{Workers: *workers}
+	if !*quiet {
+		opt.Progress = func(done, total int) {
+			if bar == nil {
+				bar = progressbar.NewOptions(total,
+					progressbar.OptionSetWriter(stderr),
+					progressbar.OptionSetDescription("fitting"),
+					progressbar.OptionShowCount(),
+					progressbar.OptionShowIts(),
+					progressbar.OptionSetItsString("fits"),
+					progressbar.OptionSetPredictTime(true),
+					progressbar.OptionThrottle(100e6),
+					progressbar.OptionClearOnFinish(),
+				)
+			}
+			bar.Set(done)
+		}
+		fmt.Fprintf(stderr, "discrimen: building prediction grids for %s ...\n", study.Name)
+	}
+	rep, err := recovery.Run(ctx, study, opt)
+	if bar != nil {
+		bar.Finish()
+	}
+	if err != nil {
+		if errors.Is(err, recovery.ErrCanceled) {
+			fmt.Fprintln(stderr, "discrimen run: canceled; nothing written")
+			return 130
+		}
+		fmt.Fprintln(stderr, "discrimen run:", err)
+		return 1
+	}
+	if err := writeReport(*out, rep); err != nil {
+		fmt.Fprintln(stderr, "discrimen run:", err)
+		return 1
+	}
+	t := rep.Timing
+	fmt.Fprintf(stdout, "%s: %d fits in %.1f s (%.0f fits/s, grids %.1f s) → %s\n", study.Name, t.Fits, t.TotalSeconds, t.FitsPerSecond, t.GridSeconds, *out)
+	for _, d := range rep.Designs {
+		for _, v := range d.Verdict {
+			fmt.Fprintf(stdout, "  [%s] %s\n", d.Name, v)
+		}
+	}
+	if rep.Verdict != "" {
+		fmt.Fprintln(stdout, " ", rep.Verdict)
+	}
+	return 0
+}
+
+// writeReport writes the three report files, each through a temporary
+// file and a rename so an interrupted run never leaves a half file.
+func writeReport(dir string, rep *recovery.Report) error {
+	if err := os.MkdirAll(dir, 0o755); err != nil {
+		return err
+	}
+	js, err := rep.JSON()
+	if err != nil {
+		return err
+	}
+	html, err := rep.HTML()
+	if err != nil {
+		return err
+	}
+	csv, err := rep.FitsCSV()
+	if err != nil {
+		return err
+	}
+	for name, data := range map[string][]byte{"report.json": js, "report.html": html, "fits.csv": csv} {
+		tmp := filepath.Join(dir, "."+name+".tmp")
+		if err := os.WriteFile(tmp, data, 0o644); err != nil {
+			return err
+		}
+		if err := os.Rename(tmp, filepath.Join(dir, name)); err != nil {
+			return err
+		}
+	}
+	return nil
+}

@@ -1,0 +1,247 @@
+package recovery
+
+import (
+	"context"
+	"fmt"
+	"math"
+	"sync"
+
+	"discrimen/models"
+)
+
+// gridPoints is the number of grid nodes per free parameter, by the number
+// of free parameters: the grid costs points^dims exact predictions.
+var gridPoints = map[int]int{1: 129, 2: 41, 3: 17, 4: 9}
+
+// Cache holds one candidate's exact predictions on a grid over its free
+// parameters, for one design (model.md §5: predictions depend only on the
+// candidate's parameters). Interpolation is multilinear in the generating
+// scale of each parameter (logarithmic for loguniform ones). A Cache is
+// read-only after BuildCache and safe for concurrent use.
+type Cache struct {
+	Hypothesis models.Hypothesis
+	Names      []string
+	design     *models.Design
+	listener   *models.Listener
+	lay        layout
+	lo, hi     []float64
+	logScale   []bool
+	points     int
+	values     []float64 // node-major: node index × lay.size()
+	strides    []int
+}
+
+// BuildCache computes the grid of exact predictions with the given number
+// of goroutines. A candidate with more than four free parameters gets no
+// grid (Interpolate then computes exact predictions).
+func BuildCache(ctx context.Context, l *models.Listener, d *models.Design, h models.Hypothesis, workers int) (*Cache, error) {
+	names := h.FreeParams()
+	c := &Cache{Hypothesis: h, Names: names, design: d, listener: l}
+	pr := l.NewPrediction()
+	c.lay = newLayout(pr)
+	for _, n := range names {
+		p := h.Params[n]
+		c.lo = append(c.lo, *p.Min)
+		c.hi = append(c.hi, *p.Max)
+		c.logScale = append(c.logScale, p.Generate != nil && p.Generate.Dist == "loguniform")
+	}
+	dims := len(names)
+	c.points = gridPoints[dims]
+	if dims == 0 {
+		c.points = 1
+	}
+	if c.points == 0 {
+		return c, nil
+	}
+	total := 1
+	c.strides = make([]int, dims)
+	for i := dims - 1; i >= 0; i-- {
+		c.strides[i] = total
+		total *= c.points
+	}
+	size := c.lay.size()
+	c.values = make([]float64, total*size)
+	if workers < 1 {
+		workers = 1
+	}
+	var wg sync.WaitGroup
+	errs := make([]error, workers)
+	for w := 0; w < workers; w++ {
+		wg.Add(1)
+		go func(w int) {
+			defer wg.Done()
+			ws, p := l.NewWorkspace(), l.NewPrediction()
+			x := make([]float64, dims)
+			for node := w; node < total; node += workers {
+				if node%64 == w && ctx.Err() != nil {
+					errs[w] = ctx.Err()
+					return
+				}
+				c.nodeParams(node, x)
+				prec, err := models.NewPrecision(h, d, x)
+				if err != nil {
+					errs[w] = err
+					return
+				}
+				l.Predict(prec, p, ws)
+				c.lay.flatten(p, c.values[node*size:(node+1)*size])
+			}
+		}(w)
+	}
+	wg.Wait()
+	for _, err := range errs {
+		if err != nil {
+			return nil, fmt.Errorf("recovery: prediction grid for %s: %w", h.Name, err)
+		}
+	}
+	return c, nil
+}
+
+// Nodes returns the number of grid nodes (0 without a grid).
+func (c *Cache) Nodes() int { return len(c.values) / max(1, c.lay.size()) }
+
+// coord maps a parameter value to grid units in [0, points−1].
+func (c *Cache) coord(i int, x float64) float64 {
+	var u float64
+	if c.logScale[i] {
+		u = (math.Log(x) - math.Log(c.lo[i])) / (math.Log(c.hi[i]) - math.Log(c.lo[i]))
+	} else {
+		u = (x - c.lo[i]) / (c.hi[i] - c.lo[i])
+	}
+	return math.Max(0, math.Min(1, u)) * float64(c.points-1)
+}
+
+// value maps grid units back to the parameter value.
+func (c *Cache) value(i int, g float64) float64 {
+	u := g / float64(c.points-1)
+	if c.logScale[i] {
+		return math.Exp(math.Log(c.lo[i]) + u*(math.Log(c.hi[i])-math.Log(c.lo[i])))
+	}
+	return c.lo[i] + u*(c.hi[i]-c.lo[i])
+}
+
+func (c *Cache) nodeParams(node int, x []float64) {
+	for i := range x {
+		k := (node / c.strides[i]) % c.points
+		x[i] = c.value(i, float64(k))
+	}
+}
+
+// node returns the stored prediction vector of one grid node.
+func (c *Cache) node(n int) []float64 {
+	s := c.lay.size()
+	return c.values[n*s : (n+1)*s]
+}
+
+// Interpolate writes the multilinear interpolation of the grid at x into
+// dst; without a grid it computes the exact prediction (ws may be nil).
+func (c *Cache) Interpolate(x, dst []float64, ws *models.Workspace) {
+	dims := len(c.Names)
+	if c.points == 0 {
+		c.Exact(x, dst, ws)
+		return
+	}
+	size := c.lay.size()
+	if dims == 0 {
+		copy(dst, c.values[:size])
+		return
+	}
+	var base [4]int
+	var frac [4]float64
+	for i := 0; i < dims; i++ {
+		g := c.coord(i, x[i])
+		k := int(g)
+		if k >= c.points-1 {
+			k = c.points - 2
+		}
+		base[i], frac[i] = k, g-float64(k)
+	}
+	for j := range dst[:size] {
+		dst[j] = 0
+	}
+	for corner := 0; corner < 1<<dims; corner++ {
+		w, idx := 1.0, 0
+		for i := 0; i < dims; i++ {
+			if corner>>i&1 == 1 {
+				w *= frac[i]
+				idx += (base[i] + 1) * c.strides[i]
+			} else {
+				w *= 1 - frac[i]
+				idx += base[i] * c.strides[i]
+			}
+		}
+		if w == 0 {
+			continue
+		}
+		v := c.values[idx*size : (idx+1)*size]
+		for j, x := range v {
+			dst[j] += w * x
+		}
+	}
+}
+
+// Exact writes the exact prediction at x into dst.
+func (c *Cache) Exact(x, dst []float64, ws *models.Workspace) {
+	prec, err := models.NewPrecision(c.Hypothesis, c.design, x)
+	if err != nil {
+		panic(fmt.Sprintf("recovery: candidate %s: %v", c.Hypothesis.Name, err))
+	}
+	p := c.listener.NewPrediction()
+	c.listener.Predict(prec, p, ws)
+	c.lay.flatten(p, dst)
+}
+
+// SurrogateError is the interpolation error of one candidate's grid against
+// exact predictions at random points (model.md §5).
+type SurrogateError struct {
+	Hypothesis   string  `json:"hypothesis"`
+	Points       int     `json:"points"`
+	GridNodes    int     `json:"grid_nodes"`
+	MaxRTms      float64 `json:"max_rt_ms"`
+	MedianRTms   float64 `json:"median_rt_ms"`
+	MaxAccuracy  float64 `json:"max_accuracy"`
+	MaxNeural    float64 `json:"max_neural"`
+	MedianNeural float64 `json:"median_neural"`
+}
+
+// MeasureError compares interpolated with exact predictions at n points
+// drawn uniformly (in grid units) from the seeded stream.
+func (c *Cache) MeasureError(seed uint64, n int) SurrogateError {
+	e := SurrogateError{Hypothesis: c.Hypothesis.Name, Points: n, GridNodes: c.Nodes()}
+	dims := len(c.Names)
+	if dims == 0 || c.points == 0 {
+		e.Points = 0
+		return e
+	}
+	r := streamRand(seed, "surrogate", c.design.Name, c.Hypothesis.Name)
+	size := c.lay.size()
+	a, b := make([]float64, size), make([]float64, size)
+	ws := c.listener.NewWorkspace()
+	x := make([]float64, dims)
+	var rtErr, nErr []float64
+	for range n {
+		for i := range x {
+			x[i] = c.value(i, r.Float64()*float64(c.points-1))
+		}
+		c.Interpolate(x, a, ws)
+		c.Exact(x, b, ws)
+		rt, acc, ne := 0.0, 0.0, 0.0
+		for cc := 0; cc < c.lay.C; cc++ {
+			rt = math.Max(rt, math.Max(math.Abs(a[c.lay.vRT(cc)]-b[c.lay.vRT(cc)]), math.Abs(a[c.lay.iRT(cc)]-b[c.lay.iRT(cc)])))
+			for _, j := range []int{c.lay.vAcc(cc), c.lay.iAcc(cc), c.lay.iMis(cc)} {
+				acc = math.Max(acc, math.Abs(a[j]-b[j]))
+			}
+		}
+		for bb := 0; bb < c.lay.bmax; bb++ {
+			ne = math.Max(ne, math.Abs(a[c.lay.eeg(bb)]-b[c.lay.eeg(bb)]))
+		}
+		rtErr = append(rtErr, rt)
+		nErr = append(nErr, ne)
+		e.MaxRTms = math.Max(e.MaxRTms, rt)
+		e.MaxAccuracy = math.Max(e.MaxAccuracy, acc)
+		e.MaxNeural = math.Max(e.MaxNeural, ne)
+	}
+	e.MedianRTms = median(rtErr)
+	e.MedianNeural = median(nErr)
+	return e
+}

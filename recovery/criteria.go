@@ -1,0 +1,63 @@
+package recovery
+
+import (
+	"fmt"
+	"math"
+)
+
+// AIC returns Akaike's information criterion of a fit with maximised log
+// likelihood logL and k free parameters (Akaike 1974, IEEE Transactions on
+// Automatic Control 19:716):
+//
+//	AIC = 2k − 2 ln L̂
+//
+// Smaller is better. AIC panics if k is negative.
+func AIC(logL float64, k int) float64 {
+	checkParamCount("AIC", k)
+	return 2*float64(k) - 2*logL
+}
+
+// AICc returns AIC with the small-sample correction (Hurvich & Tsai 1989,
+// Biometrika 76:297):
+//
+//	AICc = AIC + 2k(k+1)/(n − k − 1)
+//
+// It is +Inf when n − k − 1 ≤ 0, where the correction is undefined: such a
+// fit has no residual degrees of freedom and must never win a comparison.
+// AICc panics if k is negative or n is not positive.
+func AICc(logL float64, k, n int) float64 {
+	checkParamCount("AICc", k)
+	checkObsCount("AICc", n)
+	df := n - k - 1
+	if df <= 0 {
+		return math.Inf(1)
+	}
+	kf := float64(k)
+	return AIC(logL, k) + 2*kf*(kf+1)/float64(df)
+}
+
+// BIC returns the Bayesian (Schwarz) information criterion of a fit with
+// maximised log likelihood logL, k free parameters and n observations
+// (Schwarz 1978, Annals of Statistics 6:461):
+//
+//	BIC = k ln n − 2 ln L̂
+//
+// −BIC/2 approximates the log model evidence used by BMS. BIC panics if k is
+// negative or n is not positive.
+func BIC(logL float64, k, n int) float64 {
+	checkParamCount("BIC", k)
+	checkObsCount("BIC", n)
+	return float64(k)*math.Log(float64(n)) - 2*logL
+}
+
+func checkParamCount(fn string, k int) {
+	if k < 0 {
+		panic(fmt.Sprintf("recovery: %s: parameter count k = %d, want k ≥ 0", fn, k))
+	}
+}
+
+func checkObsCount(fn string, n int) {
+	if n <= 0 {
+		panic(fmt.Sprintf("recovery: %s: observation count n = %d, want n ≥ 1", fn, n))
+	}
+}

@@ -1,0 +1,133 @@
+package recovery
+
+import (
+	"math"
+	"math/rand/v2"
+	"strconv"
+
+	"discrimen/models"
+)
+
+// Report categories of one trial.
+const (
+	ReportTarget = 0 // the target item
+	ReportCued   = 1 // the item on the cued stream (invalid trials only)
+	ReportOther  = 2 // any other item
+)
+
+// Trial is one row of the trial table a real study records.
+type Trial struct {
+	CTI    int     // index into the design's cti_ms
+	Valid  bool    // target on the cued stream
+	Report int     // ReportTarget, ReportCued or ReportOther
+	RTms   float64 // response time in ms on correct trials when RT is measured, NaN otherwise
+}
+
+// Measurement holds one participant's measurement parameters (model.md §4).
+type Measurement struct {
+	RTBase, RTScale, RTSD, Lapse, EEGOffset, EEGGain, EEGSD, EEGAR float64
+}
+
+// Truth is what generated a dataset. Fits never see it.
+type Truth struct {
+	Free        []float64 // the generator's free parameters, in FreeParams order
+	Measurement Measurement
+}
+
+// Dataset is one synthetic participant's data: the trial table and the EEG
+// bin means per CTI condition, exactly what a study would record.
+type Dataset struct {
+	Design      string
+	Generator   string
+	Participant int
+	Trials      []Trial
+	EEG         [][]float64 // per CTI: bin means from cue onset; nil without eeg
+	Truth       Truth
+}
+
+// drawTruth draws a participant's true parameters from the generator's
+// generating distributions and the design's measurement priors.
+func drawTruth(r *rand.Rand, h models.Hypothesis, d *models.Design) Truth {
+	names := h.FreeParams()
+	t := Truth{Free: make([]float64, len(names))}
+	for i, n := range names {
+		t.Free[i] = h.Params[n].Quantile(uniform01(r))
+	}
+	m := &d.Measurement
+	t.Measurement = Measurement{
+		RTBase:    m.RTBase.Quantile(uniform01(r)),
+		RTScale:   m.RTScale.Quantile(uniform01(r)),
+		RTSD:      m.RTSD.Quantile(uniform01(r)),
+		Lapse:     m.Lapse.Quantile(uniform01(r)),
+		EEGOffset: m.EEGOffset.Quantile(uniform01(r)),
+		EEGGain:   m.EEGGain.Quantile(uniform01(r)),
+		EEGSD:     m.EEGSD.Quantile(uniform01(r)),
+		EEGAR:     m.EEGAR.Quantile(uniform01(r)),
+	}
+	return t
+}
+
+// Simulate makes the dataset of participant p of generator h under design d
+// from exact predictions pr at the participant's true parameters:
+//
+//	correct ~ Bernoulli((1−lapse)·acc + lapse/V); misdirected likewise
+//	rt = rt_base + rt_scale·RT + N(0, rt_sd²) on correct trials
+//	y_b = eeg_offset + eeg_gain·e_b + η_b, η stationary AR(1) with sd eeg_sd
+func Simulate(r *rand.Rand, d *models.Design, h models.Hypothesis, p int, truth Truth, pr *models.Prediction) *Dataset {
+	m := truth.Measurement
+	V := float64(d.Items)
+	ds := &Dataset{Design: d.Name, Generator: h.Name, Participant: p, Truth: truth}
+	hasRT := d.HasMeasure("rt")
+	ds.Trials = make([]Trial, 0, len(d.CTIms)*d.TrialsPerCTI)
+	for c := range d.CTIms {
+		for range d.TrialsPerCTI {
+			valid := r.Float64() < d.Validity
+			cls := &pr.Valid
+			if !valid {
+				cls = &pr.Invalid
+			}
+			pT := (1-m.Lapse)*cls.Accuracy[c] + m.Lapse/V
+			pC := 0.0
+			if !valid {
+				pC = (1-m.Lapse)*cls.Misdirected[c] + m.Lapse/V
+			}
+			u := r.Float64()
+			rep := ReportOther
+			switch {
+			case u < pT:
+				rep = ReportTarget
+			case u < pT+pC:
+				rep = ReportCued
+			}
+			t := Trial{CTI: c, Valid: valid, Report: rep, RTms: math.NaN()}
+			noise := r.NormFloat64()
+			if hasRT && rep == ReportTarget {
+				t.RTms = m.RTBase + m.RTScale*cls.RTms[c] + m.RTSD*noise
+			}
+			ds.Trials = append(ds.Trials, t)
+		}
+	}
+	if d.HasMeasure("eeg") {
+		ds.EEG = make([][]float64, len(d.CTIms))
+		innov := m.EEGSD * math.Sqrt(1-m.EEGAR*m.EEGAR)
+		for c, bins := range pr.Neural {
+			y := make([]float64, len(bins))
+			eta := 0.0
+			for b, e := range bins {
+				if b == 0 {
+					eta = m.EEGSD * r.NormFloat64()
+				} else {
+					eta = m.EEGAR*eta + innov*r.NormFloat64()
+				}
+				y[b] = m.EEGOffset + m.EEGGain*e + eta
+			}
+			ds.EEG[c] = y
+		}
+	}
+	return ds
+}
+
+// datasetRand is the stream for participant p's data.
+func datasetRand(seed uint64, design, generator string, p int, purpose string) *rand.Rand {
+	return streamRand(seed, "dataset", design, generator, strconv.Itoa(p), purpose)
+}

@@ -1,0 +1,315 @@
+package recovery
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"runtime"
+	"sort"
+	"strconv"
+	"sync"
+	"sync/atomic"
+	"time"
+
+	"discrimen/models"
+)
+
+// Version is written into every report.
+const Version = "0.1.0"
+
+// surrogatePoints is the number of random points at which each grid's
+// interpolation error is measured.
+const surrogatePoints = 40
+
+// Compiled is a study ready to run: its designs expanded, the agent
+// compiled per design and every candidate's prediction grid built. It is
+// read-only afterwards and shared by all shards of a process.
+type Compiled struct {
+	Study     *models.Study
+	Designs   []models.Design
+	listeners []*models.Listener
+	caches    [][]*Cache // [design][hypothesis]
+	Surrogate [][]SurrogateError
+	// Predictions holds each hypothesis's predictions at its reference
+	// values, per design, for the report's curves.
+	Predictions [][]models.HypothesisPrediction
+	GridSeconds float64
+}
+
+// Compile expands the study's designs and builds the prediction grids of
+// every candidate with the given number of goroutines (0 = all cores).
+func Compile(ctx context.Context, s *models.Study, workers int) (*Compiled, error) {
+	if workers <= 0 {
+		workers = runtime.GOMAXPROCS(0)
+	}
+	start := time.Now()
+	designs, err := s.ExpandedDesigns()
+	if err != nil {
+		return nil, err
+	}
+	c := &Compiled{Study: s, Designs: designs}
+	for di := range c.Designs {
+		d := &c.Designs[di]
+		l, err := models.NewListener(d)
+		if err != nil {
+			return nil, err
+		}
+		c.listeners = append(c.listeners, l)
+		var row []*Cache
+		var errRow []SurrogateError
+		for _, h := range s.Hypotheses {
+			cache, err := BuildCache(ctx, l, d, h, workers)
+			if err != nil {
+				return nil, err
+			}
+			row = append(row, cache)
+		}
+		errRow = make([]SurrogateError, len(row))
+		var wg sync.WaitGroup
+		sem := make(chan struct{}, workers)
+		for hi, cache := range row {
+			wg.Add(1)
+			sem <- struct{}{}
+			go func() {
+				defer wg.Done()
+				errRow[hi] = cache.MeasureError(s.Seed, surrogatePoints)
+				<-sem
+			}()
+		}
+		wg.Wait()
+		c.caches = append(c.caches, row)
+		c.Surrogate = append(c.Surrogate, errRow)
+		preds, err := models.PredictDesign(s, d, nil)
+		if err != nil {
+			return nil, err
+		}
+		c.Predictions = append(c.Predictions, preds)
+	}
+	c.GridSeconds = time.Since(start).Seconds()
+	return c, ctx.Err()
+}
+
+// ShardSpec is one unit of work: a block of synthetic participants
+// [From, To) of one generator under one design, fitted by every candidate.
+type ShardSpec struct {
+	Index     int `json:"index"`
+	Design    int `json:"design"`
+	Generator int `json:"generator"`
+	From      int `json:"from"`
+	To        int `json:"to"`
+}
+
+// Fits is the number of fits the shard runs for h candidates.
+func (s ShardSpec) Fits(h int) int { return (s.To - s.From) * h }
+
+// Plan splits the study into shards of at most size participants, in a
+// fixed order (design, generator, participant).
+func (c *Compiled) Plan(size int) []ShardSpec {
+	if size < 1 {
+		size = 1
+	}
+	var out []ShardSpec
+	for di := range c.Designs {
+		for gi := range c.Study.Hypotheses {
+			n := c.Designs[di].Participants
+			for from := 0; from < n; from += size {
+				out = append(out, ShardSpec{Index: len(out), Design: di, Generator: gi, From: from, To: min(n, from+size)})
+			}
+		}
+	}
+	return out
+}
+
+// TotalFits counts every fit of the study.
+func (c *Compiled) TotalFits() int {
+	h := len(c.Study.Hypotheses)
+	n := 0
+	for _, d := range c.Designs {
+		n += d.Participants * h * h
+	}
+	return n
+}
+
+// ParticipantResult is one synthetic participant: its truth and one fit per
+// candidate, in hypothesis order.
+type ParticipantResult struct {
+	Participant int
+	Truth       Truth
+	Fits        []Fit
+}
+
+// ShardResult is what a shard produces; it depends only on the study, the
+// seed and the spec, never on the worker that ran it.
+type ShardResult struct {
+	Spec         ShardSpec
+	Participants []ParticipantResult
+	// Seconds is the wall time the shard took (not part of the report's
+	// deterministic content).
+	Seconds float64
+}
+
+// ErrCanceled is returned when a run stops because its context ended.
+var ErrCanceled = errors.New("recovery: run canceled")
+
+// RunShard generates the shard's participants and fits every candidate to
+// each. progress, if not nil, is called with the number of fits finished
+// after each participant. Cancellation is checked between participants.
+func (c *Compiled) RunShard(ctx context.Context, spec ShardSpec, progress func(fits int)) (*ShardResult, error) {
+	if spec.Design < 0 || spec.Design >= len(c.Designs) || spec.Generator < 0 || spec.Generator >= len(c.Study.Hypotheses) {
+		return nil, fmt.Errorf("recovery: shard %d names design %d, generator %d outside the study", spec.Index, spec.Design, spec.Generator)
+	}
+	start := time.Now()
+	d := &c.Designs[spec.Design]
+	gen := c.Study.Hypotheses[spec.Generator]
+	l := c.listeners[spec.Design]
+	ws, pr := l.NewWorkspace(), l.NewPrediction()
+	fitters := make([]*fitter, len(c.caches[spec.Design]))
+	for j, cache := range c.caches[spec.Design] {
+		fitters[j] = newFitter(cache)
+	}
+	res := &ShardResult{Spec: spec}
+	for p := spec.From; p < spec.To; p++ {
+		if ctx.Err() != nil {
+			return nil, fmt.Errorf("%w: %v", ErrCanceled, ctx.Err())
+		}
+		truth := drawTruth(datasetRand(c.Study.Seed, d.Name, gen.Name, p, "truth"), gen, d)
+		prec, err := models.NewPrecision(gen, d, truth.Free)
+		if err != nil {
+			return nil, err
+		}
+		l.Predict(prec, pr, ws)
+		ds := Simulate(datasetRand(c.Study.Seed, d.Name, gen.Name, p, "trials"), d, gen, p, truth, pr)
+		sum := summarise(d, ds)
+		pres := ParticipantResult{Participant: p, Truth: truth}
+		for j, f := range fitters {
+			fit := f.fit(sum, j == spec.Generator)
+			fit.Design, fit.Generator, fit.Participant = d.Name, gen.Name, p
+			pres.Fits = append(pres.Fits, fit)
+		}
+		res.Participants = append(res.Participants, pres)
+		if progress != nil {
+			progress(len(fitters))
+		}
+	}
+	res.Seconds = time.Since(start).Seconds()
+	return res, nil
+}
+
+// Options configure an in-process run.
+type Options struct {
+	// Workers is the number of goroutines (0 = all cores).
+	Workers int
+	// ShardSize is the number of participants per shard (0 = 10).
+	ShardSize int
+	// Progress, if not nil, receives (fits done, fits total) as the run goes.
+	Progress func(done, total int)
+}
+
+// Run runs a whole study in this process: compile, every shard in
+// parallel, assemble. The report depends only on the study and its seed.
+func Run(ctx context.Context, s *models.Study, opt Options) (*Report, error) {
+	workers := opt.Workers
+	if workers <= 0 {
+		workers = runtime.GOMAXPROCS(0)
+	}
+	start := time.Now()
+	c, err := Compile(ctx, s, workers)
+	if err != nil {
+		return nil, err
+	}
+	size := opt.ShardSize
+	if size <= 0 {
+		size = 10
+	}
+	specs := c.Plan(size)
+	total := c.TotalFits()
+	var done atomic.Int64
+	results := make([]*ShardResult, len(specs))
+	errs := make([]error, len(specs))
+	next := atomic.Int64{}
+	var wg sync.WaitGroup
+	for w := 0; w < workers; w++ {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			for {
+				i := int(next.Add(1) - 1)
+				if i >= len(specs) || ctx.Err() != nil {
+					return
+				}
+				results[i], errs[i] = c.RunShard(ctx, specs[i], func(n int) {
+					d := done.Add(int64(n))
+					if opt.Progress != nil {
+						opt.Progress(int(d), total)
+					}
+				})
+			}
+		}()
+	}
+	wg.Wait()
+	if ctx.Err() != nil {
+		return nil, fmt.Errorf("%w: %v", ErrCanceled, ctx.Err())
+	}
+	for _, err := range errs {
+		if err != nil {
+			return nil, err
+		}
+	}
+	fitStart := time.Now()
+	rep, err := c.Assemble(results)
+	if err != nil {
+		return nil, err
+	}
+	var shardSeconds float64
+	for _, r := range results {
+		shardSeconds += r.Seconds
+	}
+	rep.Timing = Timing{
+		TotalSeconds:    time.Since(start).Seconds(),
+		GridSeconds:     c.GridSeconds,
+		ShardSeconds:    shardSeconds,
+		AssembleSeconds: time.Since(fitStart).Seconds(),
+		Fits:            total,
+		Workers:         workers,
+	}
+	if rep.Timing.TotalSeconds > 0 {
+		rep.Timing.FitsPerSecond = float64(total) / rep.Timing.TotalSeconds
+	}
+	return rep, nil
+}
+
+// sortResults orders shard results by their index and checks that the set
+// is complete and has no duplicates.
+func (c *Compiled) sortResults(results []*ShardResult, want int) ([]*ShardResult, error) {
+	rs := make([]*ShardResult, 0, len(results))
+	seen := map[string]bool{}
+	for _, r := range results {
+		if r == nil {
+			return nil, errors.New("recovery: assemble: a shard result is missing")
+		}
+		key := strconv.Itoa(r.Spec.Design) + "/" + strconv.Itoa(r.Spec.Generator) + "/" + strconv.Itoa(r.Spec.From)
+		if seen[key] {
+			continue // a duplicate shard adds nothing
+		}
+		seen[key] = true
+		rs = append(rs, r)
+	}
+	sort.Slice(rs, func(i, j int) bool {
+		a, b := rs[i].Spec, rs[j].Spec
+		if a.Design != b.Design {
+			return a.Design < b.Design
+		}
+		if a.Generator != b.Generator {
+			return a.Generator < b.Generator
+		}
+		return a.From < b.From
+	})
+	n := 0
+	for _, r := range rs {
+		n += len(r.Participants)
+	}
+	if n != want {
+		return nil, fmt.Errorf("recovery: assemble: %d participants in the shard results, want %d", n, want)
+	}
+	return rs, nil
+}

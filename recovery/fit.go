@@ -1,0 +1,351 @@
+package recovery
+
+import (
+	"math"
+	"sort"
+
+	"gonum.org/v1/gonum/optimize"
+
+	"discrimen/models"
+)
+
+// Search ranges of the measurement parameters that are searched rather
+// than profiled: lapse in (0, 0.5), eeg_ar in (−0.99, 0.99).
+const (
+	lapseMax = 0.5
+	arMax    = 0.99
+	nStarts  = 3
+)
+
+// Fit is one candidate fitted to one dataset by maximum likelihood
+// (model.md §5).
+type Fit struct {
+	Design      string
+	Generator   string
+	Participant int
+	Candidate   string
+	Names       []string  // the candidate's free parameters
+	Params      []float64 // estimates, natural units
+	SE          []float64 // observed-information standard errors (self-fits only; NaN otherwise)
+	SEReliable  bool
+	SENote      string
+	Measurement Measurement // every measurement estimate (NaN where not measured)
+	LogL        float64
+	K, N        int
+	AIC, AICc   float64
+	BIC         float64
+	Converged   bool
+	Status      string
+	Evaluations int
+	Failed      bool
+	Error       string
+}
+
+// fitter fits one candidate (its cache) to datasets of one design.
+type fitter struct {
+	cache *Cache
+	ws    *models.Workspace
+	pred  []float64
+	// memo holds exact predictions by candidate parameters during a
+	// Hessian: stencil points that move only lapse or eeg_ar reuse them.
+	memo []memoEntry
+}
+
+type memoEntry struct{ x, pred []float64 }
+
+// exactMemo writes the exact prediction at x into f.pred, reusing a
+// memoised one when x was seen since the last reset.
+func (f *fitter) exactMemo(x []float64) {
+	for _, e := range f.memo {
+		same := true
+		for i := range x {
+			same = same && e.x[i] == x[i]
+		}
+		if same {
+			copy(f.pred, e.pred)
+			return
+		}
+	}
+	f.cache.Exact(x, f.pred, f.ws)
+	f.memo = append(f.memo, memoEntry{append([]float64(nil), x...), append([]float64(nil), f.pred...)})
+}
+
+func newFitter(c *Cache) *fitter {
+	return &fitter{cache: c, ws: c.listener.NewWorkspace(), pred: make([]float64, c.lay.size())}
+}
+
+func logit(u float64) float64   { return math.Log(u / (1 - u)) }
+func sigmoid(z float64) float64 { return 1 / (1 + math.Exp(-z)) }
+
+// space maps the search vector z (unconstrained) to natural parameters:
+// the candidate's free parameters by the logit of the scaled range, then
+// lapse and eeg_ar when measured.
+type space struct {
+	lo, hi     []float64
+	lapse, ar  int // index of lapse and eeg_ar in θ, or −1
+	dimsHyp    int
+	totalDims  int
+	defaultLap float64
+	defaultAR  float64
+}
+
+func newSpace(c *Cache, s *summary) space {
+	sp := space{lapse: -1, ar: -1, dimsHyp: len(c.Names), defaultLap: 0.02, defaultAR: 0.25}
+	sp.lo = append(sp.lo, c.lo...)
+	sp.hi = append(sp.hi, c.hi...)
+	if s.measAcc {
+		sp.lapse = len(sp.lo)
+		sp.lo, sp.hi = append(sp.lo, 0), append(sp.hi, lapseMax)
+	}
+	if s.measEEG {
+		sp.ar = len(sp.lo)
+		sp.lo, sp.hi = append(sp.lo, -arMax), append(sp.hi, arMax)
+	}
+	sp.totalDims = len(sp.lo)
+	return sp
+}
+
+func (sp space) toNatural(z, theta []float64) {
+	for i := range z {
+		theta[i] = sp.lo[i] + (sp.hi[i]-sp.lo[i])*sigmoid(z[i])
+	}
+}
+
+func (sp space) toSearch(theta, z []float64) {
+	for i := range theta {
+		u := (theta[i] - sp.lo[i]) / (sp.hi[i] - sp.lo[i])
+		u = math.Max(1e-6, math.Min(1-1e-6, u))
+		z[i] = logit(u)
+	}
+}
+
+func (sp space) split(theta []float64) (hyp []float64, lapse, ar float64) {
+	lapse, ar = 0, 0
+	if sp.lapse >= 0 {
+		lapse = theta[sp.lapse]
+	}
+	if sp.ar >= 0 {
+		ar = theta[sp.ar]
+	}
+	return theta[:sp.dimsHyp], lapse, ar
+}
+
+// negLogLik evaluates −ln L at natural θ with interpolated (exact=false) or
+// exact predictions.
+func (f *fitter) negLogLik(s *summary, sp space, theta []float64, exact bool, est *Measurement) float64 {
+	hyp, lapse, ar := sp.split(theta)
+	if exact {
+		f.cache.Exact(hyp, f.pred, f.ws)
+	} else {
+		f.cache.Interpolate(hyp, f.pred, f.ws)
+	}
+	return logLik(s, f.cache.lay, f.pred, lapse, ar, est)
+}
+
+// starts picks up to nStarts starting points: the best grid nodes by the
+// likelihood at default lapse and eeg_ar, each at least two grid steps from
+// the ones already chosen.
+func (f *fitter) starts(s *summary, sp space) [][]float64 {
+	c := f.cache
+	dims := sp.dimsHyp
+	base := make([]float64, sp.totalDims)
+	if sp.lapse >= 0 {
+		base[sp.lapse] = sp.defaultLap
+	}
+	if sp.ar >= 0 {
+		base[sp.ar] = sp.defaultAR
+	}
+	if dims == 0 || c.points == 0 {
+		for i := 0; i < dims; i++ {
+			base[i] = c.Hypothesis.Params[c.Names[i]].Median()
+		}
+		return [][]float64{base}
+	}
+	type scored struct {
+		node int
+		v    float64
+	}
+	nodes := c.Nodes()
+	all := make([]scored, nodes)
+	for n := 0; n < nodes; n++ {
+		_, lapse, ar := sp.split(base)
+		v := logLik(s, c.lay, c.node(n), lapse, ar, nil)
+		if math.IsNaN(v) {
+			v = math.Inf(1)
+		}
+		all[n] = scored{n, v}
+	}
+	sort.SliceStable(all, func(i, j int) bool { return all[i].v < all[j].v })
+	var picked []int
+	var out [][]float64
+	for _, sc := range all {
+		if len(out) == nStarts {
+			break
+		}
+		far := true
+		for _, p := range picked {
+			d := 0
+			for i := 0; i < dims; i++ {
+				a := (sc.node / c.strides[i]) % c.points
+				b := (p / c.strides[i]) % c.points
+				d = max(d, abs(a-b))
+			}
+			far = far && d >= 2
+		}
+		if !far {
+			continue
+		}
+		picked = append(picked, sc.node)
+		x := append([]float64(nil), base...)
+		c.nodeParams(sc.node, x[:dims])
+		out = append(out, x)
+	}
+	return out
+}
+
+func abs(x int) int {
+	if x < 0 {
+		return -x
+	}
+	return x
+}
+
+// fit runs the multi-start Nelder–Mead search (derivative-free, as the
+// likelihood has kinks and jumps: model.md §5) on interpolated
+// predictions, then evaluates the exact likelihood at the optimum and, when
+// withSE, the observed-information standard errors.
+func (f *fitter) fit(s *summary, withSE bool) Fit {
+	c := f.cache
+	sp := newSpace(c, s)
+	out := Fit{Candidate: c.Hypothesis.Name, Names: c.Names, K: len(c.Names) + s.nMeasurement(), N: s.nObs()}
+	theta := make([]float64, sp.totalDims)
+	best := math.Inf(1)
+	var bestTheta []float64
+	converged := false
+	status := "no search (nothing free)"
+	evals := 0
+	if sp.totalDims == 0 {
+		bestTheta = theta
+		best = f.negLogLik(s, sp, theta, false, nil)
+		converged = true
+	}
+	for _, start := range f.starts(s, sp) {
+		if sp.totalDims == 0 {
+			break
+		}
+		z0 := make([]float64, sp.totalDims)
+		sp.toSearch(start, z0)
+		prob := optimize.Problem{Func: func(z []float64) float64 {
+			sp.toNatural(z, theta)
+			v := f.negLogLik(s, sp, theta, false, nil)
+			if math.IsNaN(v) {
+				return math.Inf(1)
+			}
+			return v
+		}}
+		settings := &optimize.Settings{
+			FuncEvaluations: 400 * sp.totalDims,
+			Converger:       &optimize.FunctionConverge{Absolute: 1e-6, Relative: 1e-9, Iterations: 12 * sp.totalDims},
+		}
+		res, err := optimize.Minimize(prob, z0, settings, &optimize.NelderMead{SimplexSize: 0.5})
+		if res == nil {
+			if err != nil {
+				status = err.Error()
+			}
+			continue
+		}
+		evals += res.Stats.FuncEvaluations
+		if res.F < best {
+			best = res.F
+			bestTheta = make([]float64, sp.totalDims)
+			sp.toNatural(res.X, bestTheta)
+			status = res.Status.String()
+			converged = err == nil && (res.Status == optimize.FunctionConvergence || res.Status == optimize.MethodConverge)
+		}
+	}
+	out.Status, out.Converged, out.Evaluations = status, converged, evals
+	if bestTheta == nil || math.IsInf(best, 0) {
+		out.Failed, out.Error = true, "no finite likelihood found: "+status
+		out.LogL, out.AIC, out.AICc, out.BIC = math.NaN(), math.NaN(), math.NaN(), math.NaN()
+		return out
+	}
+	var est Measurement
+	nll := f.negLogLik(s, sp, bestTheta, true, &est)
+	if math.IsNaN(nll) || math.IsInf(nll, 0) {
+		out.Failed, out.Error = true, "exact likelihood not finite at the optimum"
+		out.LogL, out.AIC, out.AICc, out.BIC = math.NaN(), math.NaN(), math.NaN(), math.NaN()
+		return out
+	}
+	maskMeasurement(s, &est)
+	out.Measurement = est
+	out.Params = append([]float64(nil), bestTheta[:sp.dimsHyp]...)
+	out.LogL = -nll
+	out.AIC, out.AICc, out.BIC = AIC(out.LogL, out.K), AICc(out.LogL, out.K, out.N), BIC(out.LogL, out.K, out.N)
+	out.SE = make([]float64, sp.dimsHyp)
+	for i := range out.SE {
+		out.SE[i] = math.NaN()
+	}
+	if withSE && sp.totalDims > 0 {
+		out.SE, out.SEReliable, out.SENote = f.standardErrors(s, sp, bestTheta)
+	}
+	return out
+}
+
+// standardErrors computes SEs of the candidate's parameters from the
+// numerical Hessian of −ln L (exact predictions, profiled linear terms) in
+// natural units, with steps of 1e-3 of each range, shrunk near a bound.
+func (f *fitter) standardErrors(s *summary, sp space, theta []float64) ([]float64, bool, string) {
+	steps := make([]float64, len(theta))
+	for i := range theta {
+		h := 1e-3 * (sp.hi[i] - sp.lo[i])
+		room := math.Min(theta[i]-sp.lo[i], sp.hi[i]-theta[i]) / 2.5
+		if room < h {
+			h = room
+		}
+		if !(h > 1e-9*(sp.hi[i]-sp.lo[i])) {
+			se := make([]float64, sp.dimsHyp)
+			for j := range se {
+				se[j] = math.NaN()
+			}
+			return se, false, "estimate at the edge of its range"
+		}
+		steps[i] = h
+	}
+	f.memo = f.memo[:0]
+	defer func() { f.memo = f.memo[:0] }()
+	nll := func(t []float64) float64 {
+		hyp, lapse, ar := sp.split(t)
+		f.exactMemo(hyp)
+		return logLik(s, f.cache.lay, f.pred, lapse, ar, nil)
+	}
+	se, _, ok, why := HessianSE(nll, theta, steps)
+	return append([]float64(nil), se[:sp.dimsHyp]...), ok, why
+}
+
+// maskMeasurement sets the estimates of measurements the design does not
+// record to NaN.
+func maskMeasurement(s *summary, m *Measurement) {
+	nan := math.NaN()
+	if !s.measRT || s.nRT == 0 {
+		m.RTBase, m.RTScale, m.RTSD = nan, nan, nan
+	}
+	if !s.measAcc {
+		m.Lapse = nan
+	}
+	if !s.measEEG {
+		m.EEGOffset, m.EEGGain, m.EEGSD, m.EEGAR = nan, nan, nan, nan
+	}
+}
+
+func median(x []float64) float64 {
+	if len(x) == 0 {
+		return math.NaN()
+	}
+	y := append([]float64(nil), x...)
+	sort.Float64s(y)
+	n := len(y)
+	if n%2 == 1 {
+		return y[n/2]
+	}
+	return (y[n/2-1] + y[n/2]) / 2
+}

@@ -1,0 +1,490 @@
+package recovery
+
+import (
+	"bytes"
+	"encoding/csv"
+	"encoding/json"
+	"fmt"
+	"math"
+	"strconv"
+
+	"discrimen/models"
+)
+
+// Num is a float that encodes NaN and ±Inf as JSON null.
+type Num float64
+
+// MarshalJSON writes the number with the shortest exact representation, or
+// null when it is not finite.
+func (n Num) MarshalJSON() ([]byte, error) {
+	f := float64(n)
+	if math.IsNaN(f) || math.IsInf(f, 0) {
+		return []byte("null"), nil
+	}
+	return strconv.AppendFloat(nil, f, 'g', -1, 64), nil
+}
+
+// UnmarshalJSON reads a number or null (as NaN).
+func (n *Num) UnmarshalJSON(b []byte) error {
+	if string(b) == "null" {
+		*n = Num(math.NaN())
+		return nil
+	}
+	f, err := strconv.ParseFloat(string(b), 64)
+	*n = Num(f)
+	return err
+}
+
+func nums(x []float64) []Num {
+	out := make([]Num, len(x))
+	for i, v := range x {
+		out[i] = Num(v)
+	}
+	return out
+}
+
+func numMatrix(x [][]float64) [][]Num {
+	out := make([][]Num, len(x))
+	for i, r := range x {
+		out[i] = nums(r)
+	}
+	return out
+}
+
+// Report is the outcome of a study: everything report.json holds.
+type Report struct {
+	Study      string          `json:"study"`
+	Seed       uint64          `json:"seed"`
+	Version    string          `json:"version"`
+	Hypotheses []string        `json:"hypotheses"`
+	Families   []string        `json:"families"`
+	Designs    []DesignReport  `json:"designs"`
+	Ranking    []DesignRank    `json:"design_ranking,omitempty"`
+	Preferred  string          `json:"preferred_design,omitempty"`
+	Verdict    string          `json:"ranking_verdict,omitempty"`
+	Timing     Timing          `json:"timing"`
+	StudyFile  *models.Study   `json:"study_file"`
+	Fits       [][]FitRowGroup `json:"-"` // per design: per-dataset fits, for fits.csv
+}
+
+// FitRowGroup is one dataset's fits (every candidate), kept for fits.csv.
+type FitRowGroup struct {
+	Truth Truth
+	Fits  []Fit
+}
+
+// Timing records how long the run took; it is the only part of a report
+// that changes between runs of the same study and seed.
+type Timing struct {
+	TotalSeconds    float64 `json:"total_seconds"`
+	GridSeconds     float64 `json:"grid_seconds"`
+	ShardSeconds    float64 `json:"shard_seconds"`
+	AssembleSeconds float64 `json:"assemble_seconds"`
+	Fits            int     `json:"fits"`
+	FitsPerSecond   float64 `json:"fits_per_second"`
+	Workers         int     `json:"workers"`
+}
+
+// DesignReport summarises one design.
+type DesignReport struct {
+	Name              string                        `json:"name"`
+	Measures          []string                      `json:"measures"`
+	Participants      int                           `json:"participants"`
+	TrialsPerSubject  int                           `json:"trials_per_participant"`
+	MinutesPerSubject float64                       `json:"minutes_per_participant"`
+	Criteria          map[string]CriterionReport    `json:"criteria"`
+	ParamRecovery     []ParamRecoveryReport         `json:"parameter_recovery"`
+	Tradeoffs         []TradeoffReport              `json:"tradeoffs"`
+	Mimicry           []MimicryReport               `json:"mimicry"`
+	FitFailures       FitFailures                   `json:"fit_failures"`
+	Surrogate         []SurrogateError              `json:"surrogate_error"`
+	Predictions       []models.HypothesisPrediction `json:"predictions"`
+	Verdict           []string                      `json:"verdict"`
+	Group             *GroupReport                  `json:"group,omitempty"`
+	Recovery          []RecoveryPoints              `json:"recovery_points"`
+}
+
+// CriterionReport is the confusion analysis under one criterion.
+type CriterionReport struct {
+	Confusion    [][]Num `json:"confusion"`
+	Counts       [][]Num `json:"counts"`
+	CILow        [][]Num `json:"ci_low"`
+	CIHigh       [][]Num `json:"ci_high"`
+	Inversion    [][]Num `json:"inversion"`
+	RecoveryRate Num     `json:"recovery_rate"`
+	MIBits       Num     `json:"mutual_information_bits"`
+	NormalizedMI Num     `json:"normalized_mi"`
+	Datasets     []int   `json:"datasets"`
+	Failures     []int   `json:"failures"`
+}
+
+// ParamRecoveryReport is RecoverParam's result for the report.
+type ParamRecoveryReport struct {
+	Hypothesis  string `json:"hypothesis"`
+	Parameter   string `json:"parameter"`
+	N           int    `json:"n"`
+	R           Num    `json:"r"`
+	Bias        Num    `json:"bias"`
+	RMSE        Num    `json:"rmse"`
+	Slope       Num    `json:"slope"`
+	Coverage    Num    `json:"coverage"`
+	Flat        bool   `json:"flat"`
+	MedianSE    Num    `json:"median_se"`
+	ReliableSEs int    `json:"reliable_ses"`
+}
+
+// RecoveryPoints holds true and estimated values of one parameter, for the
+// report's scatter plots.
+type RecoveryPoints struct {
+	Hypothesis string `json:"hypothesis"`
+	Parameter  string `json:"parameter"`
+	Min        Num    `json:"min"`
+	Max        Num    `json:"max"`
+	Truth      []Num  `json:"truth"`
+	Estimate   []Num  `json:"estimate"`
+}
+
+// TradeoffReport is one pair of a hypothesis's parameters.
+type TradeoffReport struct {
+	Hypothesis string `json:"hypothesis"`
+	A          string `json:"a"`
+	B          string `json:"b"`
+	R          Num    `json:"r"`
+	N          int    `json:"n"`
+}
+
+// QuantilesReport summarises a ΔBIC distribution.
+type QuantilesReport struct {
+	N    int `json:"n"`
+	Mean Num `json:"mean"`
+	Q05  Num `json:"q05"`
+	Q25  Num `json:"q25"`
+	Q50  Num `json:"q50"`
+	Q75  Num `json:"q75"`
+	Q95  Num `json:"q95"`
+}
+
+// MimicryReport is ΔBIC = BIC_A − BIC_B when A generates and when B does.
+type MimicryReport struct {
+	A     string          `json:"a"`
+	B     string          `json:"b"`
+	WhenA QuantilesReport `json:"when_a_generates"`
+	WhenB QuantilesReport `json:"when_b_generates"`
+}
+
+// FitFailures counts fits that failed or did not converge.
+type FitFailures struct {
+	Failed       int `json:"failed"`
+	NotConverged int `json:"not_converged"`
+	Total        int `json:"total"`
+	// NoWinner counts datasets where no candidate had a finite criterion.
+	NoWinner int `json:"datasets_without_winner"`
+}
+
+// DesignRank is one row of the design ranking (model.md §8).
+type DesignRank struct {
+	Design                string  `json:"design"`
+	Rank                  int     `json:"rank"`
+	NormalizedMI          Num     `json:"normalized_mi"`
+	WorstDiagonal         Num     `json:"worst_diagonal"`
+	ParameterR            Num     `json:"parameter_r"`
+	TrialsPerParticipant  int     `json:"trials_per_participant"`
+	MinutesPerParticipant float64 `json:"minutes_per_participant"`
+	NormalizedMIPerMinute Num     `json:"normalized_mi_per_minute"`
+}
+
+func quantilesReport(q Quantiles) QuantilesReport {
+	return QuantilesReport{N: q.N, Mean: Num(q.Mean), Q05: Num(q.Q05), Q25: Num(q.Q25), Q50: Num(q.Q50), Q75: Num(q.Q75), Q95: Num(q.Q95)}
+}
+
+// minutesPerParticipant estimates testing time: each trial lasts its CTI,
+// the response window and an inter-trial interval of 1 s (our assumption,
+// stated in the report).
+func minutesPerParticipant(d *models.Design) float64 {
+	ms := 0.0
+	for _, c := range d.CTIms {
+		ms += float64(d.TrialsPerCTI) * float64(c+d.ResponseWindowMs+1000)
+	}
+	return ms / 60000
+}
+
+// Criteria names, in report order.
+var Criteria = []string{"bic", "aic", "aicc"}
+
+func criterionValue(f *Fit, name string) float64 {
+	if f.Failed {
+		return math.NaN()
+	}
+	switch name {
+	case "aic":
+		return f.AIC
+	case "aicc":
+		return f.AICc
+	}
+	return f.BIC
+}
+
+// Assemble aggregates every shard's results into the report. The shard
+// results may come in any order and may contain duplicates; the report
+// depends only on their content.
+func (c *Compiled) Assemble(results []*ShardResult) (*Report, error) {
+	s := c.Study
+	H := len(s.Hypotheses)
+	want := 0
+	for _, d := range c.Designs {
+		want += d.Participants * H
+	}
+	rs, err := c.sortResults(results, want)
+	if err != nil {
+		return nil, err
+	}
+	rep := &Report{Study: s.Name, Seed: s.Seed, Version: Version, StudyFile: s}
+	for _, h := range s.Hypotheses {
+		rep.Hypotheses = append(rep.Hypotheses, h.Name)
+		rep.Families = append(rep.Families, h.Family)
+	}
+	// byDesign[d][g] lists the participants of generator g, in order.
+	byDesign := make([][][]ParticipantResult, len(c.Designs))
+	for d := range byDesign {
+		byDesign[d] = make([][]ParticipantResult, H)
+	}
+	for _, r := range rs {
+		byDesign[r.Spec.Design][r.Spec.Generator] = append(byDesign[r.Spec.Design][r.Spec.Generator], r.Participants...)
+	}
+	rep.Fits = make([][]FitRowGroup, len(c.Designs))
+	for di := range c.Designs {
+		d := &c.Designs[di]
+		dr := c.designReport(di, byDesign[di])
+		rep.Designs = append(rep.Designs, dr)
+		for g := 0; g < H; g++ {
+			for _, p := range byDesign[di][g] {
+				rep.Fits[di] = append(rep.Fits[di], FitRowGroup{Truth: p.Truth, Fits: p.Fits})
+			}
+		}
+		_ = d
+	}
+	if err := c.groupLevel(rep, byDesign); err != nil {
+		return nil, err
+	}
+	rankDesigns(rep)
+	return rep, nil
+}
+
+func (c *Compiled) designReport(di int, parts [][]ParticipantResult) DesignReport {
+	s := c.Study
+	d := &c.Designs[di]
+	H := len(s.Hypotheses)
+	dr := DesignReport{
+		Name: d.Name, Measures: d.Measures, Participants: d.Participants,
+		TrialsPerSubject:  d.TrialsPerCTI * len(d.CTIms),
+		MinutesPerSubject: minutesPerParticipant(d),
+		Criteria:          map[string]CriterionReport{},
+		Surrogate:         c.Surrogate[di],
+		Predictions:       c.Predictions[di],
+		ParamRecovery:     []ParamRecoveryReport{},
+		Tradeoffs:         []TradeoffReport{},
+		Mimicry:           []MimicryReport{},
+		Recovery:          []RecoveryPoints{},
+	}
+	for g := 0; g < H; g++ {
+		for _, p := range parts[g] {
+			for _, f := range p.Fits {
+				dr.FitFailures.Total++
+				if f.Failed {
+					dr.FitFailures.Failed++
+				} else if !f.Converged {
+					dr.FitFailures.NotConverged++
+				}
+			}
+		}
+	}
+	for _, crit := range Criteria {
+		winners := make([][][]float64, H)
+		for g := 0; g < H; g++ {
+			for _, p := range parts[g] {
+				vals := make([]float64, H)
+				for j := range p.Fits {
+					vals[j] = criterionValue(&p.Fits[j], crit)
+				}
+				sh, failed := WinShares(vals, TieTolerance)
+				if failed && crit == "bic" {
+					dr.FitFailures.NoWinner++
+				}
+				winners[g] = append(winners[g], sh)
+			}
+		}
+		cf := NewConfusion(winners)
+		dr.Criteria[crit] = CriterionReport{
+			Confusion: numMatrix(cf.P), Counts: numMatrix(cf.Counts), CILow: numMatrix(cf.CILow), CIHigh: numMatrix(cf.CIHigh),
+			Inversion: numMatrix(cf.Inversion), RecoveryRate: Num(cf.RecoveryRate), MIBits: Num(cf.MIBits), NormalizedMI: Num(cf.NormalizedMI),
+			Datasets: cf.N, Failures: cf.Failures,
+		}
+	}
+	// Parameter recovery: each generator fitted by itself.
+	for g, h := range s.Hypotheses {
+		names := h.FreeParams()
+		est := make([][]float64, 0, len(parts[g]))
+		for pi, name := range names {
+			var truth, e, se []float64
+			var rel []bool
+			for _, p := range parts[g] {
+				f := p.Fits[g]
+				truth = append(truth, p.Truth.Free[pi])
+				if f.Failed {
+					e, se, rel = append(e, math.NaN()), append(se, math.NaN()), append(rel, false)
+					continue
+				}
+				e = append(e, f.Params[pi])
+				se = append(se, f.SE[pi])
+				rel = append(rel, f.SEReliable)
+			}
+			pr := RecoverParam(truth, e, se, rel)
+			var good []float64
+			for i, v := range se {
+				if rel[i] && !math.IsNaN(v) {
+					good = append(good, v)
+				}
+			}
+			p := h.Params[name]
+			medSE := median(good)
+			flat := len(good) < len(se)/2 || FlatProfile(medSE, *p.Min, *p.Max)
+			dr.ParamRecovery = append(dr.ParamRecovery, ParamRecoveryReport{
+				Hypothesis: h.Name, Parameter: name, N: pr.N, R: Num(pr.R), Bias: Num(pr.Bias), RMSE: Num(pr.RMSE),
+				Slope: Num(pr.Slope), Coverage: Num(pr.Coverage), Flat: flat, MedianSE: Num(medSE), ReliableSEs: len(good),
+			})
+			dr.Recovery = append(dr.Recovery, RecoveryPoints{Hypothesis: h.Name, Parameter: name, Min: Num(*p.Min), Max: Num(*p.Max), Truth: nums(truth), Estimate: nums(e)})
+		}
+		if len(names) >= 2 {
+			for _, p := range parts[g] {
+				f := p.Fits[g]
+				if f.Failed {
+					continue
+				}
+				est = append(est, f.Params)
+			}
+			for _, t := range Tradeoffs(h.Name, names, est) {
+				dr.Tradeoffs = append(dr.Tradeoffs, TradeoffReport{Hypothesis: t.Hypothesis, A: t.A, B: t.B, R: Num(t.R), N: t.N})
+			}
+		}
+	}
+	// Mimicry: ΔBIC = BIC_a − BIC_b on datasets of a and of b.
+	for a := 0; a < H; a++ {
+		for b := a + 1; b < H; b++ {
+			delta := func(g int) []float64 {
+				var out []float64
+				for _, p := range parts[g] {
+					fa, fb := p.Fits[a], p.Fits[b]
+					if fa.Failed || fb.Failed {
+						continue
+					}
+					out = append(out, fa.BIC-fb.BIC)
+				}
+				return out
+			}
+			m := MimicryPair(s.Hypotheses[a].Name, s.Hypotheses[b].Name, delta(a), delta(b))
+			dr.Mimicry = append(dr.Mimicry, MimicryReport{A: m.A, B: m.B, WhenA: quantilesReport(m.WhenA), WhenB: quantilesReport(m.WhenB)})
+		}
+	}
+	dr.Verdict = verdict(s, d, dr)
+	return dr
+}
+
+// verdict states in plain words what the design can and cannot tell apart
+// under BIC: a pair is told apart when each is recovered as itself at least
+// 80% of the time and mistaken for the other less than 10% of the time.
+func verdict(s *models.Study, d *models.Design, dr DesignReport) []string {
+	cr := dr.Criteria["bic"]
+	H := len(s.Hypotheses)
+	var apart, confused []string
+	for a := 0; a < H; a++ {
+		for b := a + 1; b < H; b++ {
+			pab, pba := float64(cr.Confusion[a][b]), float64(cr.Confusion[b][a])
+			paa, pbb := float64(cr.Confusion[a][a]), float64(cr.Confusion[b][b])
+			pair := s.Hypotheses[a].Name + " and " + s.Hypotheses[b].Name
+			switch {
+			case paa >= 0.8 && pbb >= 0.8 && pab < 0.1 && pba < 0.1:
+				apart = append(apart, pair)
+			case pab >= 0.2 || pba >= 0.2:
+				confused = append(confused, fmt.Sprintf("%s (mistaken for each other in %.0f%% and %.0f%% of datasets)", pair, 100*pab, 100*pba))
+			}
+		}
+	}
+	var out []string
+	out = append(out, fmt.Sprintf("Under BIC this design recovers the generating hypothesis in %.0f%% of synthetic participants on average (normalised mutual information %.2f).",
+		100*float64(cr.RecoveryRate), float64(cr.NormalizedMI)))
+	if len(apart) > 0 {
+		out = append(out, fmt.Sprintf("It can tell apart %d of %d pairs, for example %s.", len(apart), H*(H-1)/2, apart[0]))
+	}
+	for _, c := range confused {
+		out = append(out, "It cannot reliably tell apart "+c+" at "+strconv.Itoa(d.TrialsPerCTI*len(d.CTIms))+" trials per participant.")
+	}
+	for _, p := range dr.ParamRecovery {
+		if p.Flat {
+			out = append(out, fmt.Sprintf("Parameter %s of %s is poorly identified (median SE %.3g over its range; r = %.2f).", p.Parameter, p.Hypothesis, float64(p.MedianSE), float64(p.R)))
+		}
+	}
+	return out
+}
+
+// JSON encodes the report, indented, with a final newline.
+func (r *Report) JSON() ([]byte, error) {
+	var buf bytes.Buffer
+	enc := json.NewEncoder(&buf)
+	enc.SetIndent("", "  ")
+	if err := enc.Encode(r); err != nil {
+		return nil, err
+	}
+	return buf.Bytes(), nil
+}
+
+// FitsCSV writes one tidy row per dataset × candidate.
+func (r *Report) FitsCSV() ([]byte, error) {
+	var buf bytes.Buffer
+	w := csv.NewWriter(&buf)
+	w.Write([]string{"design", "generator", "participant", "candidate", "parameter_names", "estimates", "standard_errors", "se_reliable",
+		"true_values", "loglik", "k", "n", "aic", "aicc", "bic", "converged", "status", "evaluations", "failed",
+		"rt_base", "rt_scale", "rt_sd", "lapse", "eeg_offset", "eeg_gain", "eeg_sd", "eeg_ar"})
+	g := func(v float64) string {
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			return "NA"
+		}
+		return strconv.FormatFloat(v, 'g', 10, 64)
+	}
+	join := func(x []float64) string {
+		s := ""
+		for i, v := range x {
+			if i > 0 {
+				s += ";"
+			}
+			s += g(v)
+		}
+		return s
+	}
+	names := func(x []string) string {
+		s := ""
+		for i, v := range x {
+			if i > 0 {
+				s += ";"
+			}
+			s += v
+		}
+		return s
+	}
+	for _, design := range r.Fits {
+		for _, grp := range design {
+			for _, f := range grp.Fits {
+				truth := ""
+				if f.Candidate == f.Generator {
+					truth = join(grp.Truth.Free)
+				}
+				m := f.Measurement
+				w.Write([]string{f.Design, f.Generator, strconv.Itoa(f.Participant), f.Candidate, names(f.Names), join(f.Params), join(f.SE),
+					strconv.FormatBool(f.SEReliable), truth, g(f.LogL), strconv.Itoa(f.K), strconv.Itoa(f.N), g(f.AIC), g(f.AICc), g(f.BIC),
+					strconv.FormatBool(f.Converged), f.Status, strconv.Itoa(f.Evaluations), strconv.FormatBool(f.Failed),
+					g(m.RTBase), g(m.RTScale), g(m.RTSD), g(m.Lapse), g(m.EEGOffset), g(m.EEGGain), g(m.EEGSD), g(m.EEGAR)})
+			}
+		}
+	}
+	w.Flush()
+	return buf.Bytes(), w.Error()
+}
