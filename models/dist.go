@@ -1,6 +1,7 @@
 package models
 
 import (
+	"encoding/json"
 	"math"
 
 	"gonum.org/v1/gonum/stat/distuv"
@@ -64,3 +65,29 @@ func (p Prior) Quantile(u float64) float64 {
 
 // Median returns the prior's median.
 func (p Prior) Median() float64 { return p.Quantile(0.5) }
+
+// MarshalJSON writes a prior with only the fields of its distribution, so
+// that a fixed prior at 0 keeps its "value" and a decoded, re-encoded study
+// passes the schema again.
+func (p Prior) MarshalJSON() ([]byte, error) {
+	type out struct {
+		Dist  string   `json:"dist"`
+		Value *float64 `json:"value,omitempty"`
+		Mean  *float64 `json:"mean,omitempty"`
+		SD    *float64 `json:"sd,omitempty"`
+		Min   *float64 `json:"min,omitempty"`
+		Max   *float64 `json:"max,omitempty"`
+		Mu    *float64 `json:"mu,omitempty"`
+		Sigma *float64 `json:"sigma,omitempty"`
+	}
+	o := out{Dist: p.Dist, Min: p.Min, Max: p.Max}
+	switch p.Dist {
+	case "fixed":
+		o.Value = &p.Value
+	case "normal":
+		o.Mean, o.SD = &p.Mean, &p.SD
+	case "lognormal":
+		o.Mu, o.Sigma = &p.Mu, &p.Sigma
+	}
+	return json.Marshal(o)
+}

@@ -3,6 +3,8 @@ package recovery
 import (
 	"context"
 	"testing"
+
+	"discrimen/models"
 )
 
 // BenchmarkDemoStudy runs the whole demo study (six hypotheses, 100
@@ -18,5 +20,45 @@ func BenchmarkDemoStudy(b *testing.B) {
 		}
 		b.ReportMetric(float64(r.Timing.Fits)/r.Timing.TotalSeconds, "fits/s")
 		b.ReportMetric(r.Timing.GridSeconds, "grid-s")
+	}
+}
+
+// BenchmarkFit fits one candidate to one demo dataset, searching on the
+// prediction grid ("grid") or on exact predictions at every evaluation
+// ("exact"); both end with the exact likelihood and, for the self-fit
+// measured here, the observed-information SEs.
+//
+//	go test ./recovery -run XXX -bench Fit -benchtime 20x
+func BenchmarkFit(b *testing.B) {
+	s := loadStudy(b, "../testdata/studies/radio-watch.json")
+	s.Designs = s.Designs[1:]
+	c, err := Compile(context.Background(), s, 0)
+	if err != nil {
+		b.Fatal(err)
+	}
+	const g = 3 // early-lift: one free parameter, plus lapse and eeg_ar
+	d := &c.Designs[0]
+	h := s.Hypotheses[g]
+	truth := drawTruth(datasetRand(s.Seed, d.Name, h.Name, 0, "truth"), h, d)
+	l := c.listeners[0]
+	pr := l.NewPrediction()
+	prec, _ := models.NewPrecision(h, d, truth.Free)
+	l.Predict(prec, pr, nil)
+	sum := summarise(d, Simulate(datasetRand(s.Seed, d.Name, h.Name, 0, "trials"), d, h, 0, truth, pr))
+	exact := *c.caches[0][g]
+	exact.points = 0
+	for _, bc := range []struct {
+		name  string
+		cache *Cache
+	}{{"grid", c.caches[0][g]}, {"exact", &exact}} {
+		b.Run(bc.name, func(b *testing.B) {
+			f := newFitter(bc.cache)
+			evals := 0
+			for b.Loop() {
+				fit := f.fit(sum, true)
+				evals += fit.Evaluations
+			}
+			b.ReportMetric(float64(evals)/float64(b.N), "evals/fit")
+		})
 	}
 }

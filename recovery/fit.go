@@ -203,6 +203,21 @@ func (f *fitter) starts(s *summary, sp space) [][]float64 {
 	return out
 }
 
+// searchSettings are the stopping rules of one Nelder–Mead run: at most
+// 400 evaluations per dimension, converged when the best value improves by
+// less than 1e-6 (absolute) over 12 iterations per dimension.
+func searchSettings(dims int) *optimize.Settings {
+	return &optimize.Settings{
+		FuncEvaluations: 400 * dims,
+		Converger:       &optimize.FunctionConverge{Absolute: 1e-6, Relative: 1e-9, Iterations: 12 * dims},
+	}
+}
+
+// searchMethod is Nelder–Mead (Nelder & Mead 1965, Computer Journal 7:308)
+// with gonum's default reflection, expansion and contraction coefficients
+// and an initial simplex of 0.5 in the logit-transformed space.
+func searchMethod() *optimize.NelderMead { return &optimize.NelderMead{SimplexSize: 0.5} }
+
 func abs(x int) int {
 	if x < 0 {
 		return -x
@@ -243,11 +258,7 @@ func (f *fitter) fit(s *summary, withSE bool) Fit {
 			}
 			return v
 		}}
-		settings := &optimize.Settings{
-			FuncEvaluations: 400 * sp.totalDims,
-			Converger:       &optimize.FunctionConverge{Absolute: 1e-6, Relative: 1e-9, Iterations: 12 * sp.totalDims},
-		}
-		res, err := optimize.Minimize(prob, z0, settings, &optimize.NelderMead{SimplexSize: 0.5})
+		res, err := optimize.Minimize(prob, z0, searchSettings(sp.totalDims), searchMethod())
 		if res == nil {
 			if err != nil {
 				status = err.Error()
@@ -293,33 +304,73 @@ func (f *fitter) fit(s *summary, withSE bool) Fit {
 
 // standardErrors computes SEs of the candidate's parameters from the
 // numerical Hessian of −ln L (exact predictions, profiled linear terms) in
-// natural units, with steps of 1e-3 of each range, shrunk near a bound.
+// natural units. The exact likelihood has small kinks wherever a criterion
+// crossing moves across an iteration, so a tiny step measures the kinks,
+// not the curvature: a first pass with steps of 1% of each range gives
+// rough SEs, and the second pass uses steps of half those SEs (the scale
+// on which a 95% interval is read), checked against twice the step by
+// HessianSE. Parameters within 0.1% of a bound of their range are held
+// fixed (the Hessian of a boundary optimum is not an information matrix);
+// a candidate parameter held so gets a NaN SE.
 func (f *fitter) standardErrors(s *summary, sp space, theta []float64) ([]float64, bool, string) {
-	steps := make([]float64, len(theta))
+	se := make([]float64, sp.dimsHyp)
+	for j := range se {
+		se[j] = math.NaN()
+	}
+	var active []int
+	room := make([]float64, len(theta))
+	atEdge := false
 	for i := range theta {
-		h := 1e-3 * (sp.hi[i] - sp.lo[i])
-		room := math.Min(theta[i]-sp.lo[i], sp.hi[i]-theta[i]) / 2.5
-		if room < h {
-			h = room
+		r := sp.hi[i] - sp.lo[i]
+		room[i] = math.Min(theta[i]-sp.lo[i], sp.hi[i]-theta[i])
+		if room[i] > 1e-3*r {
+			active = append(active, i)
+		} else if i < sp.dimsHyp {
+			atEdge = true
 		}
-		if !(h > 1e-9*(sp.hi[i]-sp.lo[i])) {
-			se := make([]float64, sp.dimsHyp)
-			for j := range se {
-				se[j] = math.NaN()
-			}
-			return se, false, "estimate at the edge of its range"
-		}
-		steps[i] = h
+	}
+	if len(active) == 0 {
+		return se, false, "every estimate at the edge of its range"
 	}
 	f.memo = f.memo[:0]
 	defer func() { f.memo = f.memo[:0] }()
+	full := append([]float64(nil), theta...)
 	nll := func(t []float64) float64 {
-		hyp, lapse, ar := sp.split(t)
+		for k, i := range active {
+			full[i] = t[k]
+		}
+		hyp, lapse, ar := sp.split(full)
 		f.exactMemo(hyp)
 		return logLik(s, f.cache.lay, f.pred, lapse, ar, nil)
 	}
-	se, _, ok, why := HessianSE(nll, theta, steps)
-	return append([]float64(nil), se[:sp.dimsHyp]...), ok, why
+	x := make([]float64, len(active))
+	steps := make([]float64, len(active))
+	clampStep := func(k int, h float64) float64 {
+		i := active[k]
+		r := sp.hi[i] - sp.lo[i]
+		return math.Max(1e-4*r, math.Min(h, math.Min(0.1*r, room[i]/2.5)))
+	}
+	for k, i := range active {
+		x[k] = theta[i]
+		steps[k] = clampStep(k, 0.01*(sp.hi[i]-sp.lo[i]))
+	}
+	rough, _, _, why := HessianSE(nll, x, steps)
+	for k := range steps {
+		if math.IsNaN(rough[k]) || math.IsInf(rough[k], 0) {
+			return se, false, "rough pass: " + why
+		}
+		steps[k] = clampStep(k, rough[k]/2)
+	}
+	fine, _, ok, why := HessianSE(nll, x, steps)
+	for k, i := range active {
+		if i < sp.dimsHyp {
+			se[i] = fine[k]
+		}
+	}
+	if atEdge {
+		return se, false, "a parameter at the edge of its range (held fixed); " + why
+	}
+	return se, ok, why
 }
 
 // maskMeasurement sets the estimates of measurements the design does not

@@ -339,18 +339,25 @@ func (c *Compiled) designReport(di int, parts [][]ParticipantResult) DesignRepor
 				rel = append(rel, f.SEReliable)
 			}
 			pr := RecoverParam(truth, e, se, rel)
-			var good []float64
+			// Flatness is read from the size of every finite SE (reliable
+			// or not): a step-sensitive SE still tells the scale of the
+			// likelihood's width.
+			var finite []float64
+			reliable := 0
 			for i, v := range se {
-				if rel[i] && !math.IsNaN(v) {
-					good = append(good, v)
+				if !math.IsNaN(v) && !math.IsInf(v, 0) {
+					finite = append(finite, v)
+					if rel[i] {
+						reliable++
+					}
 				}
 			}
 			p := h.Params[name]
-			medSE := median(good)
-			flat := len(good) < len(se)/2 || FlatProfile(medSE, *p.Min, *p.Max)
+			medSE := median(finite)
+			flat := FlatProfile(medSE, *p.Min, *p.Max)
 			dr.ParamRecovery = append(dr.ParamRecovery, ParamRecoveryReport{
 				Hypothesis: h.Name, Parameter: name, N: pr.N, R: Num(pr.R), Bias: Num(pr.Bias), RMSE: Num(pr.RMSE),
-				Slope: Num(pr.Slope), Coverage: Num(pr.Coverage), Flat: flat, MedianSE: Num(medSE), ReliableSEs: len(good),
+				Slope: Num(pr.Slope), Coverage: Num(pr.Coverage), Flat: flat, MedianSE: Num(medSE), ReliableSEs: reliable,
 			})
 			dr.Recovery = append(dr.Recovery, RecoveryPoints{Hypothesis: h.Name, Parameter: name, Min: Num(*p.Min), Max: Num(*p.Max), Truth: nums(truth), Estimate: nums(e)})
 		}
@@ -420,7 +427,7 @@ func verdict(s *models.Study, d *models.Design, dr DesignReport) []string {
 	}
 	for _, p := range dr.ParamRecovery {
 		if p.Flat {
-			out = append(out, fmt.Sprintf("Parameter %s of %s is poorly identified (median SE %.3g over its range; r = %.2f).", p.Parameter, p.Hypothesis, float64(p.MedianSE), float64(p.R)))
+			out = append(out, fmt.Sprintf("Parameter %s of %s is poorly identified (median SE %.3g, more than a quarter of its range; r = %.2f).", p.Parameter, p.Hypothesis, float64(p.MedianSE), float64(p.R)))
 		}
 	}
 	return out

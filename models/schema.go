@@ -1,0 +1,545 @@
+package models
+
+import (
+	"bytes"
+	_ "embed"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"net/url"
+	"regexp"
+	"sort"
+	"strconv"
+	"strings"
+	"sync"
+
+	"github.com/santhosh-tekuri/jsonschema/v6"
+	"github.com/santhosh-tekuri/jsonschema/v6/kind"
+)
+
+//go:embed schema/study.schema.json
+var studySchemaJSON []byte
+
+// studySchemaID is the schema's $id; the compiler resolves $refs against it.
+const studySchemaID = "urn:discrimen:study.schema.json"
+
+// StudySchema returns a copy of the study file's JSON Schema (draft 2020-12).
+func StudySchema() []byte { return bytes.Clone(studySchemaJSON) }
+
+type compiledSchema struct {
+	schema *jsonschema.Schema
+	doc    any // the schema document, to read bounds and descriptions for messages
+}
+
+// loadSchema compiles the embedded schema once. A schema that does not
+// compile is a build defect, not a data failure, hence the panic.
+var loadSchema = sync.OnceValue(func() compiledSchema {
+	doc, err := jsonschema.UnmarshalJSON(bytes.NewReader(studySchemaJSON))
+	if err != nil {
+		panic("models: embedded study schema is not JSON: " + err.Error())
+	}
+	c := jsonschema.NewCompiler()
+	if err := c.AddResource(studySchemaID, doc); err != nil {
+		panic("models: embedded study schema: " + err.Error())
+	}
+	sch, err := c.Compile(studySchemaID)
+	if err != nil {
+		panic("models: embedded study schema does not compile: " + err.Error())
+	}
+	return compiledSchema{schema: sch, doc: doc}
+})
+
+// problemKind records where a problem came from, so LoadStudy can tell which
+// semantic problems repeat a schema problem.
+type problemKind int
+
+const (
+	kindSemantic    problemKind = iota
+	kindSchema                  // a schema problem about one value or object
+	kindSchemaArray             // a schema problem about an array's length or repeats
+	kindDecode                  // the value passed the schema but does not fit its Go type
+)
+
+type located struct {
+	Problem
+	kind problemKind
+}
+
+// ValidateSchema checks raw study bytes against the study file's JSON Schema
+// and returns every problem, with paths in our dotted form
+// ("designs[0].validity"). Bytes that are not one JSON value give a single
+// problem with an empty path.
+func ValidateSchema(data []byte) []Problem {
+	lp, _ := schemaProblems(data)
+	return plain(lp)
+}
+
+func plain(lp []located) []Problem {
+	if len(lp) == 0 {
+		return nil
+	}
+	out := make([]Problem, len(lp))
+	for i, p := range lp {
+		out[i] = p.Problem
+	}
+	return out
+}
+
+// schemaProblems returns the schema problems; ok is false when data is not JSON.
+func schemaProblems(data []byte) (problems []located, ok bool) {
+	inst, err := jsonschema.UnmarshalJSON(bytes.NewReader(data))
+	if err != nil {
+		return []located{{Problem: Problem{Path: "", Problem: notJSONMessage(data, err)}, kind: kindSchema}}, false
+	}
+	cs := loadSchema()
+	err = cs.schema.Validate(inst)
+	if err == nil {
+		return nil, true
+	}
+	var ve *jsonschema.ValidationError
+	if !errors.As(err, &ve) {
+		return []located{{Problem: Problem{Path: "", Problem: err.Error()}, kind: kindSchema}}, true
+	}
+	var leaves []*jsonschema.ValidationError
+	collectLeaves(ve, &leaves)
+	seen := map[Problem]bool{}
+	for _, leaf := range leaves {
+		p := describe(cs.doc, inst, leaf)
+		if seen[p.Problem] {
+			continue
+		}
+		seen[p.Problem] = true
+		problems = append(problems, p)
+	}
+	sortProblems(problems)
+	return problems, true
+}
+
+func collectLeaves(e *jsonschema.ValidationError, out *[]*jsonschema.ValidationError) {
+	if len(e.Causes) == 0 {
+		*out = append(*out, e)
+		return
+	}
+	for _, c := range e.Causes {
+		collectLeaves(c, out)
+	}
+}
+
+// notJSONMessage says where the bytes stop being JSON, by line and column.
+func notJSONMessage(data []byte, err error) string {
+	var se *json.SyntaxError
+	if errors.As(err, &se) {
+		line, col := lineCol(data, se.Offset)
+		return fmt.Sprintf("the file is not valid JSON: line %d, column %d: %s", line, col, strings.TrimPrefix(se.Error(), "json: "))
+	}
+	if strings.Contains(err.Error(), "after top-level value") {
+		return "the file is not valid JSON: data follows the study object"
+	}
+	if strings.Contains(err.Error(), "EOF") {
+		return "the file is not valid JSON: it ends before the study object is complete"
+	}
+	return "the file is not valid JSON: " + strings.TrimPrefix(err.Error(), "json: ")
+}
+
+func lineCol(data []byte, offset int64) (line, col int) {
+	if offset > int64(len(data)) {
+		offset = int64(len(data))
+	}
+	line, col = 1, 1
+	for _, b := range data[:offset] {
+		if b == '\n' {
+			line++
+			col = 1
+		} else {
+			col++
+		}
+	}
+	// Offset points just past the offending byte.
+	if col > 1 {
+		col--
+	}
+	return line, col
+}
+
+// location is an instance location resolved against the document, so that
+// array indices and object keys print differently.
+type location struct {
+	tokens  []string
+	isIndex []bool
+	values  []any // values[i] is the value at tokens[:i]; values[len(tokens)] the leaf
+}
+
+func resolve(inst any, tokens []string) location {
+	loc := location{tokens: tokens, isIndex: make([]bool, len(tokens)), values: make([]any, len(tokens)+1)}
+	v := inst
+	loc.values[0] = v
+	for i, t := range tokens {
+		switch c := v.(type) {
+		case []any:
+			loc.isIndex[i] = true
+			n, err := strconv.Atoi(t)
+			if err == nil && n >= 0 && n < len(c) {
+				v = c[n]
+			} else {
+				v = nil
+			}
+		case map[string]any:
+			v = c[t]
+		default:
+			v = nil
+		}
+		loc.values[i+1] = v
+	}
+	return loc
+}
+
+var identRE = regexp.MustCompile(`^[A-Za-z_][A-Za-z0-9_]*$`)
+
+func (l location) path() string { return l.pathTo(len(l.tokens)) }
+
+func (l location) pathTo(n int) string {
+	var b strings.Builder
+	for i, t := range l.tokens[:n] {
+		switch {
+		case l.isIndex[i]:
+			b.WriteString("[" + t + "]")
+		case identRE.MatchString(t):
+			if b.Len() > 0 {
+				b.WriteByte('.')
+			}
+			b.WriteString(t)
+		default:
+			q, _ := json.Marshal(t)
+			b.WriteString("[" + string(q) + "]")
+		}
+	}
+	return b.String()
+}
+
+func (l location) leaf() any { return l.values[len(l.tokens)] }
+
+// objectAt returns the value at tokens[:n] if it is an object.
+func (l location) objectAt(n int) map[string]any {
+	if n < 0 || n > len(l.tokens) {
+		return nil
+	}
+	m, _ := l.values[n].(map[string]any)
+	return m
+}
+
+// name is the value's key with the indices after it ("cti_ms",
+// "values[2]"), for naming its elements.
+func (l location) name() string {
+	n := len(l.tokens)
+	j := n - 1
+	for j >= 0 && l.isIndex[j] {
+		j--
+	}
+	var b strings.Builder
+	if j >= 0 {
+		b.WriteString(l.tokens[j])
+	}
+	for _, t := range l.tokens[j+1 : n] {
+		b.WriteString("[" + t + "]")
+	}
+	return b.String()
+}
+
+// subject names the value a message is about: its key, an indexed element
+// ("cti_ms[2]"), or "parent key" for the generic keys of priors and
+// parameters ("tau min", "lapse max").
+func (l location) subject() string {
+	n := len(l.tokens)
+	if n == 0 {
+		return "study"
+	}
+	last := l.tokens[n-1]
+	if l.isIndex[n-1] {
+		// the nearest key with the indices after it, and for a vary value
+		// the field it varies: "cti_ms[2]", "values[1] (streams)"
+		s := l.name()
+		j := n - 1
+		for j >= 0 && l.isIndex[j] {
+			j--
+		}
+		if j >= 0 && l.tokens[j] == "values" {
+			if f, ok := l.objectAt(j)["field"].(string); ok {
+				s += " (" + f + ")"
+			}
+		}
+		return s
+	}
+	switch last {
+	case "value", "min", "max", "mean", "sd", "mu", "sigma", "dist":
+		if n >= 2 && !l.isIndex[n-2] {
+			return l.tokens[n-2] + " " + last
+		}
+	}
+	return last
+}
+
+// isParams reports whether the value at tokens[:n] is hypotheses[i].params.
+func (l location) isParams(n int) bool {
+	return n == 3 && l.tokens[0] == "hypotheses" && l.isIndex[1] && l.tokens[2] == "params"
+}
+
+// schemaAt returns the schema object at the fragment of a schema URL.
+func schemaAt(doc any, schemaURL string) map[string]any {
+	_, frag, _ := strings.Cut(schemaURL, "#")
+	if f, err := url.PathUnescape(frag); err == nil {
+		frag = f
+	}
+	v := doc
+	for _, tok := range strings.Split(strings.TrimPrefix(frag, "/"), "/") {
+		if tok == "" {
+			continue
+		}
+		tok = strings.ReplaceAll(strings.ReplaceAll(tok, "~1", "/"), "~0", "~")
+		switch c := v.(type) {
+		case map[string]any:
+			v = c[tok]
+		case []any:
+			n, err := strconv.Atoi(tok)
+			if err != nil || n < 0 || n >= len(c) {
+				return nil
+			}
+			v = c[n]
+		default:
+			return nil
+		}
+	}
+	m, _ := v.(map[string]any)
+	return m
+}
+
+// display renders an instance value for a message, cut to a readable length.
+func display(v any) string {
+	var s string
+	switch x := v.(type) {
+	case json.Number:
+		s = x.String()
+	case nil:
+		s = "null"
+	default:
+		b, err := json.Marshal(x)
+		if err != nil {
+			s = fmt.Sprint(x)
+		} else {
+			s = string(b)
+		}
+	}
+	if r := []rune(s); len(r) > 60 {
+		s = string(r[:57]) + "..."
+	}
+	return s
+}
+
+func numText(v any) (string, bool) {
+	switch x := v.(type) {
+	case json.Number:
+		return x.String(), true
+	case float64:
+		return strconv.FormatFloat(x, 'g', -1, 64), true
+	}
+	return "", false
+}
+
+// rangeText renders the bounds a schema object places on a number:
+// "in 2..6" for integers, "in (0, 1]" for reals, "> 0", ">= 1".
+func rangeText(s map[string]any) string {
+	lo, hasLo := numText(s["minimum"])
+	loOpen := false
+	if x, ok := numText(s["exclusiveMinimum"]); ok {
+		lo, hasLo, loOpen = x, true, true
+	}
+	hi, hasHi := numText(s["maximum"])
+	hiOpen := false
+	if x, ok := numText(s["exclusiveMaximum"]); ok {
+		hi, hasHi, hiOpen = x, true, true
+	}
+	switch {
+	case hasLo && hasHi:
+		if s["type"] == "integer" && !loOpen && !hiOpen {
+			return "in " + lo + ".." + hi
+		}
+		l, r := "[", "]"
+		if loOpen {
+			l = "("
+		}
+		if hiOpen {
+			r = ")"
+		}
+		return "in " + l + lo + ", " + hi + r
+	case hasLo && loOpen:
+		return "> " + lo
+	case hasLo:
+		return ">= " + lo
+	case hasHi && hiOpen:
+		return "< " + hi
+	case hasHi:
+		return "<= " + hi
+	}
+	return "in range"
+}
+
+func article(t string) string {
+	switch t {
+	case "integer", "array", "object":
+		return "an " + t
+	case "null":
+		return "null"
+	}
+	return "a " + t
+}
+
+func quoteAll(names []string) string {
+	q := make([]string, len(names))
+	for i, n := range names {
+		q[i] = strconv.Quote(n)
+	}
+	return strings.Join(q, ", ")
+}
+
+// describe turns one leaf error of the schema validator into our Problem.
+func describe(doc any, inst any, e *jsonschema.ValidationError) located {
+	loc := resolve(inst, e.InstanceLocation)
+	subj := loc.subject()
+	sch := schemaAt(doc, e.SchemaURL)
+	k := kindSchema
+	var msg string
+	switch ek := e.ErrorKind.(type) {
+	case *kind.Type:
+		want := make([]string, len(ek.Want))
+		for i, w := range ek.Want {
+			want[i] = article(w)
+		}
+		msg = fmt.Sprintf("%s must be %s, got %s", subj, strings.Join(want, " or "), display(loc.leaf()))
+	case *kind.Enum:
+		want := make([]string, len(ek.Want))
+		for i, w := range ek.Want {
+			want[i] = fmt.Sprint(w)
+		}
+		msg = fmt.Sprintf("%s must be one of %s, got %s", subj, strings.Join(want, ", "), display(loc.leaf()))
+	case *kind.Minimum, *kind.Maximum, *kind.ExclusiveMinimum, *kind.ExclusiveMaximum:
+		msg = fmt.Sprintf("%s must be %s, got %s", subj, rangeText(sch), display(loc.leaf()))
+	case *kind.MinItems, *kind.MaxItems:
+		k = kindSchemaArray
+		n := 0
+		if a, ok := loc.leaf().([]any); ok {
+			n = len(a)
+		}
+		lo, hi := -1, -1
+		if x, ok := numText(sch["minItems"]); ok {
+			lo, _ = strconv.Atoi(x)
+		}
+		if x, ok := numText(sch["maxItems"]); ok {
+			hi, _ = strconv.Atoi(x)
+		}
+		msg = countText(subj, lo, hi, n)
+	case *kind.UniqueItems:
+		k = kindSchemaArray
+		i, j := ek.Duplicates[0], ek.Duplicates[1]
+		var v any
+		if a, ok := loc.leaf().([]any); ok && j < len(a) {
+			v = a[j]
+		}
+		name := loc.name()
+		msg = fmt.Sprintf("%s must not repeat a value: %s[%d] and %s[%d] are both %s", subj, name, i, name, j, display(v))
+	case *kind.MinLength:
+		msg = fmt.Sprintf("%s must not be empty", subj)
+	case *kind.Required:
+		msg = requiredMessage(loc, ek.Missing)
+	case *kind.AdditionalProperties:
+		msg = extraMessage(loc, sch, ek.Properties)
+	case *kind.Not:
+		d, _ := sch["description"].(string)
+		if d == "" {
+			d = "is not allowed here"
+		}
+		msg = subj + " " + d
+	case *kind.FalseSchema:
+		msg = subj + " is not allowed here"
+	default:
+		msg = subj + ": " + e.ErrorKind.LocalizedString(nil)
+	}
+	return located{Problem: Problem{Path: loc.path(), Problem: msg}, kind: k}
+}
+
+func requiredMessage(loc location, missing []string) string {
+	n := len(loc.tokens)
+	obj := loc.objectAt(n)
+	switch {
+	case loc.isParams(n):
+		fam, _ := loc.objectAt(2)["family"].(string)
+		return familyNeedsMessage(fam, missing)
+	case n == 4 && loc.isParams(3):
+		return paramNeedsMessage(loc.tokens[3], missing)
+	}
+	if d, ok := obj["dist"].(string); ok {
+		return fmt.Sprintf("%s: dist %s needs %s", loc.subject(), d, joinNames(missing))
+	}
+	return fmt.Sprintf("%s needs %s", loc.subject(), joinFields(missing))
+}
+
+func joinFields(names []string) string {
+	if len(names) == 1 {
+		return "field " + strconv.Quote(names[0])
+	}
+	return "fields " + quoteAll(names)
+}
+
+func joinNames(names []string) string {
+	return strings.Join(names, " and ")
+}
+
+func familyNeedsMessage(family string, missing []string) string {
+	sort.Strings(missing)
+	if len(missing) == 1 {
+		return fmt.Sprintf("family %s needs parameter %s", family, missing[0])
+	}
+	return fmt.Sprintf("family %s needs parameters %s", family, strings.Join(missing, ", "))
+}
+
+func paramNeedsMessage(name string, missing []string) string {
+	return fmt.Sprintf("%s needs value (fixed) or min and max (free); missing %s", name, joinNames(missing))
+}
+
+func extraMessage(loc location, sch map[string]any, extra []string) string {
+	n := len(loc.tokens)
+	sort.Strings(extra)
+	if loc.isParams(n) {
+		fam, _ := loc.objectAt(2)["family"].(string)
+		return unknownParamsMessage(fam, extra)
+	}
+	var allowed []string
+	if props, ok := sch["properties"].(map[string]any); ok {
+		for p := range props {
+			allowed = append(allowed, p)
+		}
+	}
+	sort.Strings(allowed)
+	noun := "field"
+	if len(extra) > 1 {
+		noun = "fields"
+	}
+	if d, ok := loc.objectAt(n)["dist"].(string); ok {
+		return fmt.Sprintf("%s: dist %s takes no %s %s; allowed: %s", loc.subject(), d, noun, quoteAll(extra), strings.Join(allowed, ", "))
+	}
+	return fmt.Sprintf("unknown %s %s; allowed: %s", noun, quoteAll(extra), strings.Join(allowed, ", "))
+}
+
+func unknownParamsMessage(family string, extra []string) string {
+	allowed := "(none: the family is unknown)"
+	if spec, ok := familySpecs[family]; ok {
+		allowed = strings.Join(spec.names(), ", ")
+	}
+	noun := "parameter"
+	if len(extra) > 1 {
+		noun = "parameters"
+	}
+	verb := "is"
+	if len(extra) > 1 {
+		verb = "are"
+	}
+	return fmt.Sprintf("%s %s %s not allowed for family %s; allowed: %s", noun, quoteAll(extra), verb, family, allowed)
+}

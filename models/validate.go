@@ -1,0 +1,1122 @@
+package models
+
+import (
+	"bytes"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"math"
+	"reflect"
+	"slices"
+	"sort"
+	"strconv"
+	"strings"
+
+	"github.com/santhosh-tekuri/jsonschema/v6"
+)
+
+// Problem is one thing wrong with a study file. Path is a JSON path in dotted
+// form ("designs[0].validity", "hypotheses[2].params.tau.min"); an empty Path
+// means the file as a whole.
+type Problem struct {
+	Path    string `json:"path"`
+	Problem string `json:"problem"`
+}
+
+// String renders the problem as "PATH: PROBLEM", or the problem alone for
+// the file as a whole.
+func (p Problem) String() string {
+	if p.Path == "" {
+		return p.Problem
+	}
+	return p.Path + ": " + p.Problem
+}
+
+// ValidationError carries every problem found in a study file.
+type ValidationError struct {
+	Problems []Problem
+}
+
+// Error lists the problems one per line.
+func (e *ValidationError) Error() string {
+	lines := make([]string, len(e.Problems))
+	for i, p := range e.Problems {
+		lines[i] = p.String()
+	}
+	return strings.Join(lines, "\n")
+}
+
+// MaxFits is the largest compute budget a study file may ask for: the number
+// of fits, Σ over (expanded) designs of participants × hypotheses².
+const MaxFits = 5_000_000
+
+// Limits of the study file (model.md §1-2 and the service's budget).
+const (
+	minStreams, maxStreams       = 2, 6
+	maxItems                     = 32
+	maxTrialsPerCTI              = 10000
+	maxParticipants              = 10000
+	maxEpochMs                   = 1000
+	minGainLevels, maxGainLevels = 2, 64
+	maxIterationsPerEpoch        = 256
+	minHypotheses, maxHypotheses = 2, 12
+	maxDesigns                   = 16
+	maxReplicates                = 100000
+	validityTolerance            = 1e-9 // lets validity = 1/streams be written with finite decimals
+	fixedAndFreeText             = "is fixed by value, so it takes no min, max or generate: a parameter is either fixed {value} or free {min, max[, generate]}"
+	priorDists                   = "fixed, normal, uniform, lognormal"
+	generateDists                = "uniform, normal, loguniform"
+	measuresText                 = "rt, accuracy, eeg"
+	familiesText                 = "constant, linear, exponential, saturating, logistic, hazard"
+	budgetFormula                = "participants × hypotheses² summed over designs"
+)
+
+// VaryFields lists the design fields a vary block may change.
+var VaryFields = []string{"cti_ms", "cti_weights", "trials_per_cti", "measures", "validity", "participants", "streams", "items", "presentation_ms"}
+
+// sign is the allowed sign of a hypothesis parameter.
+type sign int
+
+const (
+	signAny sign = iota
+	signPositive
+	signNonNegative
+)
+
+type paramSpec struct {
+	name     string
+	required bool
+	sign     sign
+}
+
+type familySpec []paramSpec
+
+func (f familySpec) names() []string {
+	n := make([]string, len(f))
+	for i, p := range f {
+		n[i] = p.name
+	}
+	return n
+}
+
+func (f familySpec) find(name string) (paramSpec, bool) {
+	for _, p := range f {
+		if p.name == name {
+			return p, true
+		}
+	}
+	return paramSpec{}, false
+}
+
+// gainBounds are γ_lo and γ_hi, shared by every non-constant family (model.md §2).
+var gainBounds = []paramSpec{{"low", false, signPositive}, {"high", false, signPositive}}
+
+// familySpecs gives each family's parameters in documented order. horizon
+// (default: the longest CTI) and window (default 0.2 s) are optional.
+var familySpecs = map[string]familySpec{
+	"constant":    {{"level", true, signPositive}},
+	"linear":      append(familySpec{{"slope", true, signNonNegative}}, gainBounds...),
+	"exponential": append(familySpec{{"rate", true, signPositive}, {"horizon", false, signPositive}}, gainBounds...),
+	"saturating":  append(familySpec{{"tau", true, signPositive}}, gainBounds...),
+	"logistic":    append(familySpec{{"midpoint", true, signAny}, {"width", true, signPositive}}, gainBounds...),
+	"hazard":      append(familySpec{{"weber", true, signPositive}, {"window", false, signPositive}}, gainBounds...),
+}
+
+type checker struct{ out []Problem }
+
+func (c *checker) add(path, format string, args ...any) {
+	c.out = append(c.out, Problem{Path: path, Problem: fmt.Sprintf(format, args...)})
+}
+
+func join(prefix, rel string) string {
+	switch {
+	case prefix == "":
+		return rel
+	case rel == "":
+		return prefix
+	case strings.HasPrefix(rel, "["):
+		return prefix + rel
+	}
+	return prefix + "." + rel
+}
+
+// g prints a float as Go's shortest round-tripping form; g3 with three
+// significant digits, for bounds derived by division (1/3 → 0.333).
+func g(v float64) string  { return strconv.FormatFloat(v, 'g', -1, 64) }
+func g3(v float64) string { return strconv.FormatFloat(v, 'g', 3, 64) }
+
+func finite(v float64) bool { return !math.IsNaN(v) && !math.IsInf(v, 0) }
+
+func intRange(c *checker, path, name string, v, lo, hi int) bool {
+	if v < lo || v > hi {
+		c.add(path, "%s must be in %d..%d, got %d", name, lo, hi, v)
+		return false
+	}
+	return true
+}
+
+func countText(subject string, lo, hi, n int) string {
+	noun := func(k int) string {
+		if k == 1 {
+			return "entry"
+		}
+		return "entries"
+	}
+	switch {
+	case hi < 0:
+		return fmt.Sprintf("%s must have at least %d %s, got %d", subject, lo, noun(lo), n)
+	case lo < 0:
+		return fmt.Sprintf("%s must have at most %d %s, got %d", subject, hi, noun(hi), n)
+	}
+	return fmt.Sprintf("%s must have %d..%d entries, got %d", subject, lo, hi, n)
+}
+
+// Validate runs the semantic checks on a decoded, defaults-filled study and
+// returns every problem found, in the order of the file.
+func (s *Study) Validate() []Problem {
+	c := &checker{}
+	h := len(s.Hypotheses)
+
+	if n := len(s.Designs); n < 1 || n > maxDesigns {
+		c.add("designs", "%s", countText("designs", 1, maxDesigns, n))
+	}
+	expanded := make([][]Design, len(s.Designs))
+	type named struct{ name, where, path string }
+	var names []named
+	for i := range s.Designs {
+		d := s.Designs[i]
+		prefix := fmt.Sprintf("designs[%d]", i)
+		base := designProblems(&d)
+		for _, p := range base {
+			c.add(join(prefix, p.Path), "%s", p.Problem)
+		}
+		if len(d.Vary) == 0 {
+			expanded[i] = []Design{d}
+			names = append(names, named{d.Name, prefix, join(prefix, "name")})
+			continue
+		}
+		variants, probs := expandDesign(d)
+		for _, p := range probs {
+			c.add(join(prefix, p.Path), "%s", p.Problem)
+		}
+		inBase := map[Problem]bool{}
+		for _, p := range base {
+			inBase[p] = true
+		}
+		for _, v := range variants {
+			expanded[i] = append(expanded[i], v.design)
+			names = append(names, named{v.design.Name, join(prefix, v.valuePath), join(prefix, v.namePath)})
+			for _, p := range designProblems(&v.design) {
+				if inBase[p] {
+					continue // already reported once for the design itself
+				}
+				c.add(join(prefix, v.valuePath), "variant %q: %s", v.design.Name, p.Problem)
+			}
+		}
+	}
+	firstUse := map[string]string{}
+	for _, n := range names {
+		if n.name == "" {
+			c.add(n.path, "name must not be empty")
+			continue
+		}
+		if w, dup := firstUse[n.name]; dup {
+			c.add(n.path, "name %q is used by %s too; design names, variants included, must be unique", n.name, w)
+			continue
+		}
+		firstUse[n.name] = n.where
+	}
+
+	if h < minHypotheses || h > maxHypotheses {
+		c.add("hypotheses", "%s", countText("hypotheses", minHypotheses, maxHypotheses, h))
+	}
+	hypNames := map[string]int{}
+	for j := range s.Hypotheses {
+		hy := &s.Hypotheses[j]
+		prefix := fmt.Sprintf("hypotheses[%d]", j)
+		switch k, dup := hypNames[hy.Name]; {
+		case hy.Name == "":
+			c.add(prefix+".name", "name must not be empty")
+		case dup:
+			c.add(prefix+".name", "name %q is used by hypotheses[%d] too; hypothesis names must be unique", hy.Name, k)
+		default:
+			hypNames[hy.Name] = j
+		}
+		hypothesisProblems(c, prefix, hy, s.Designs)
+	}
+
+	var all []Design
+	for _, e := range expanded {
+		all = append(all, e...)
+	}
+	replicationProblems(c, &s.Replication, all)
+
+	if f := fitsOf(all, h); f > MaxFits {
+		c.add("", "the study needs %s fits (%s, %d designs with vary blocks expanded); the limit is %s", thousands(f), budgetFormula, len(all), thousands(MaxFits))
+	}
+	return c.out
+}
+
+// designProblems checks one design; paths are relative to the design.
+func designProblems(d *Design) []Problem {
+	c := &checker{}
+	L := d.Streams
+	streamsOK := intRange(c, "streams", "streams", L, minStreams, maxStreams)
+
+	itemsLo := minStreams
+	if streamsOK {
+		itemsLo = L
+	}
+	if d.Items < itemsLo || d.Items > maxItems {
+		c.add("items", "items must be in [streams, %d] = [%d, %d], got %d", maxItems, itemsLo, maxItems, d.Items)
+	}
+	itemsOK := d.Items >= 2 && d.Items <= maxItems
+
+	if streamsOK {
+		lo := 1 / float64(L)
+		if !(d.Validity >= lo-validityTolerance && d.Validity <= 1) {
+			c.add("validity", "validity must be in [1/streams, 1] = [%s, 1], got %s", g3(lo), g(d.Validity))
+		}
+	} else if !(d.Validity > 0 && d.Validity <= 1) {
+		c.add("validity", "validity must be in (0, 1], got %s", g(d.Validity))
+	}
+
+	epoch := d.EpochMs
+	epochOK := intRange(c, "epoch_ms", "epoch_ms", epoch, 1, maxEpochMs)
+
+	if len(d.CTIms) == 0 {
+		c.add("cti_ms", "cti_ms must list at least one CTI")
+	}
+	seen := map[int]int{}
+	minCTI := 0
+	for i, t := range d.CTIms {
+		p := fmt.Sprintf("cti_ms[%d]", i)
+		if t <= 0 {
+			c.add(p, "%s must be > 0, got %d", p, t)
+			continue
+		}
+		if epochOK && t%epoch != 0 {
+			c.add(p, "%s must be a whole multiple of epoch_ms = %d, got %d", p, epoch, t)
+		}
+		if j, dup := seen[t]; dup {
+			c.add("cti_ms", "cti_ms must not repeat a value: cti_ms[%d] and cti_ms[%d] are both %d", j, i, t)
+		} else {
+			seen[t] = i
+		}
+		if minCTI == 0 || t < minCTI {
+			minCTI = t
+		}
+	}
+
+	if len(d.CTIWeights) != len(d.CTIms) {
+		c.add("cti_weights", "cti_weights must have one weight per CTI (%d in cti_ms), got %d", len(d.CTIms), len(d.CTIWeights))
+	}
+	sum, weightsOK := 0.0, true
+	for i, w := range d.CTIWeights {
+		if !(w >= 0) || math.IsInf(w, 1) {
+			c.add(fmt.Sprintf("cti_weights[%d]", i), "cti_weights[%d] must be >= 0, got %s", i, g(w))
+			weightsOK = false
+			continue
+		}
+		sum += w
+	}
+	if weightsOK && len(d.CTIWeights) > 0 && !(sum > 0) {
+		c.add("cti_weights", "cti_weights must sum to more than 0, got %s", g(sum))
+	}
+
+	intRange(c, "trials_per_cti", "trials_per_cti", d.TrialsPerCTI, 1, maxTrialsPerCTI)
+	intRange(c, "participants", "participants", d.Participants, 1, maxParticipants)
+
+	if len(d.Measures) == 0 {
+		c.add("measures", "measures must list at least one of %s", measuresText)
+	}
+	seenM := map[string]int{}
+	for i, m := range d.Measures {
+		if !slices.Contains(Measures, m) {
+			c.add(fmt.Sprintf("measures[%d]", i), "measures[%d] must be one of %s, got %q", i, measuresText, m)
+			continue
+		}
+		if j, dup := seenM[m]; dup {
+			c.add("measures", "measures must not repeat a value: measures[%d] and measures[%d] are both %q", j, i, m)
+		} else {
+			seenM[m] = i
+		}
+	}
+
+	timed := func(name string, v int) bool {
+		if v <= 0 {
+			c.add(name, "%s must be > 0, got %d", name, v)
+			return false
+		}
+		if epochOK && v%epoch != 0 {
+			c.add(name, "%s must be a whole multiple of epoch_ms = %d, got %d", name, epoch, v)
+			return false
+		}
+		return true
+	}
+	presOK := timed("presentation_ms", d.PresentationMs)
+	windowOK := timed("response_window_ms", d.ResponseWindowMs)
+	if presOK && windowOK && d.ResponseWindowMs < d.PresentationMs {
+		c.add("response_window_ms", "response_window_ms must be >= presentation_ms = %d, got %d", d.PresentationMs, d.ResponseWindowMs)
+	}
+	if timed("eeg_bin_ms", d.EEGBinMs) && d.HasMeasure("eeg") && minCTI > 0 && d.EEGBinMs > minCTI {
+		c.add("eeg_bin_ms", "eeg_bin_ms must be <= the shortest CTI (%d ms) when eeg is measured, got %d", minCTI, d.EEGBinMs)
+	}
+	if d.CueMs != 0 {
+		timed("cue_ms", d.CueMs)
+	}
+
+	agentProblems(c, d, streamsOK, itemsOK)
+	measurementProblems(c, &d.Measurement)
+	return c.out
+}
+
+func agentProblems(c *checker, d *Design, streamsOK, itemsOK bool) {
+	a := &d.Agent
+	if streamsOK {
+		lo := 1 / float64(d.Streams)
+		if !(a.CueReliability > lo && a.CueReliability <= 1) {
+			c.add("agent.cue_reliability", "cue_reliability must be in (1/streams, 1] = (%s, 1], got %s", g3(lo), g(a.CueReliability))
+		}
+	} else if !(a.CueReliability > 0 && a.CueReliability <= 1) {
+		c.add("agent.cue_reliability", "cue_reliability must be in (0, 1], got %s", g(a.CueReliability))
+	}
+	itemsLo := 0.0
+	if itemsOK {
+		itemsLo = 1 / float64(d.Items)
+	}
+	if !(a.ItemFidelity > itemsLo && a.ItemFidelity <= 1) {
+		c.add("agent.item_fidelity", "item_fidelity must be in (1/items, 1] = (%s, 1], got %s", g3(itemsLo), g(a.ItemFidelity))
+	}
+	if !(a.MarkerReliability > 0.5 && a.MarkerReliability <= 1) {
+		c.add("agent.marker_reliability", "marker_reliability must be in (0.5, 1], got %s", g(a.MarkerReliability))
+	}
+	intRange(c, "agent.gain_levels", "gain_levels", a.GainLevels, minGainLevels, maxGainLevels)
+	if !(a.GainMin > 0) || !finite(a.GainMin) {
+		c.add("agent.gain_min", "gain_min must be > 0, got %s", g(a.GainMin))
+	}
+	if !(a.GainMax > a.GainMin) || !finite(a.GainMax) {
+		c.add("agent.gain_max", "gain_max must be > gain_min = %s, got %s", g(a.GainMin), g(a.GainMax))
+	}
+	intRange(c, "agent.iterations_per_epoch", "iterations_per_epoch", a.IterationsPerEpoch, 1, maxIterationsPerEpoch)
+	if !(a.TimeConstant >= 1) || !finite(a.TimeConstant) {
+		c.add("agent.time_constant", "time_constant must be >= 1, got %s", g(a.TimeConstant))
+	}
+	if !(a.Criterion > itemsLo && a.Criterion < 1) {
+		c.add("agent.criterion", "criterion must be in (1/items, 1) = (%s, 1), got %s", g3(itemsLo), g(a.Criterion))
+	}
+	if !(a.ChoiceTemperature > 0) || !finite(a.ChoiceTemperature) {
+		c.add("agent.choice_temperature", "choice_temperature must be > 0, got %s", g(a.ChoiceTemperature))
+	}
+}
+
+// support is the set of values a measurement parameter may take.
+type support struct {
+	lo, hi         float64
+	loOpen, hiOpen bool
+}
+
+var (
+	anyReal  = support{math.Inf(-1), math.Inf(1), true, true}
+	positive = support{0, math.Inf(1), true, true}
+)
+
+func (s support) aboveLo(v float64) bool { return v > s.lo || (!s.loOpen && v == s.lo) }
+func (s support) belowHi(v float64) bool { return v < s.hi || (!s.hiOpen && v == s.hi) }
+func (s support) contains(v float64) bool {
+	return !math.IsNaN(v) && s.aboveLo(v) && s.belowHi(v)
+}
+func (s support) loText() string {
+	if s.loOpen {
+		return "> " + g(s.lo)
+	}
+	return ">= " + g(s.lo)
+}
+func (s support) hiText() string {
+	if s.hiOpen {
+		return "< " + g(s.hi)
+	}
+	return "<= " + g(s.hi)
+}
+func (s support) String() string {
+	switch {
+	case math.IsInf(s.lo, -1) && math.IsInf(s.hi, 1):
+		return "any real number"
+	case math.IsInf(s.hi, 1):
+		return s.loText()
+	}
+	l, r := "[", "]"
+	if s.loOpen {
+		l = "("
+	}
+	if s.hiOpen {
+		r = ")"
+	}
+	return "in " + l + g(s.lo) + ", " + g(s.hi) + r
+}
+
+// measurementPriors lists the priors in file order with their parameter's
+// support (model.md §4: SDs and the RT scale are positive, a lapse rate is a
+// probability below 1, an AR(1) coefficient is in (−1, 1) for a stationary series).
+var measurementPriors = []struct {
+	name string
+	get  func(*Measurement) *Prior
+	sup  support
+}{
+	{"rt_base", func(m *Measurement) *Prior { return &m.RTBase }, anyReal},
+	{"rt_scale", func(m *Measurement) *Prior { return &m.RTScale }, positive},
+	{"rt_sd", func(m *Measurement) *Prior { return &m.RTSD }, positive},
+	{"lapse", func(m *Measurement) *Prior { return &m.Lapse }, support{0, 1, false, true}},
+	{"eeg_offset", func(m *Measurement) *Prior { return &m.EEGOffset }, anyReal},
+	{"eeg_gain", func(m *Measurement) *Prior { return &m.EEGGain }, anyReal},
+	{"eeg_sd", func(m *Measurement) *Prior { return &m.EEGSD }, positive},
+	{"eeg_ar", func(m *Measurement) *Prior { return &m.EEGAR }, support{-1, 1, true, true}},
+}
+
+func measurementProblems(c *checker, m *Measurement) {
+	for _, mp := range measurementPriors {
+		priorProblems(c, "measurement."+mp.name, mp.name, mp.get(m), mp.sup)
+	}
+}
+
+func priorProblems(c *checker, path, name string, p *Prior, sup support) {
+	bounded := func(bound string) {
+		b, v := p.Min, sup.aboveLo
+		text := sup.loText()
+		if bound == "max" {
+			b, v, text = p.Max, sup.belowHi, sup.hiText()
+		}
+		if b == nil {
+			c.add(path+"."+bound, "%s: a %s prior on %s must be truncated with %s %s (%s must be %s)", name, p.Dist, name, bound, text, name, sup)
+			return
+		}
+		if !v(*b) || math.IsNaN(*b) {
+			c.add(path+"."+bound, "%s %s must be %s (%s must be %s), got %s", name, bound, text, name, sup, g(*b))
+		}
+	}
+	switch p.Dist {
+	case "fixed":
+		if !sup.contains(p.Value) || !finite(p.Value) {
+			c.add(path+".value", "%s value must be %s, got %s", name, sup, g(p.Value))
+		}
+	case "normal":
+		if !(p.SD > 0) || !finite(p.SD) {
+			c.add(path, "%s: dist normal needs sd > 0, got %s", name, g(p.SD))
+		}
+		if p.Min != nil && p.Max != nil && !(*p.Min < *p.Max) {
+			c.add(path, "%s: min must be < max, got min = %s, max = %s", name, g(*p.Min), g(*p.Max))
+		}
+		if !math.IsInf(sup.lo, -1) {
+			bounded("min")
+		}
+		if !math.IsInf(sup.hi, 1) {
+			bounded("max")
+		}
+	case "uniform":
+		var missing []string
+		if p.Min == nil {
+			missing = append(missing, "min")
+		}
+		if p.Max == nil {
+			missing = append(missing, "max")
+		}
+		if len(missing) > 0 {
+			c.add(path, "%s: dist uniform needs %s", name, joinNames(missing))
+			return
+		}
+		if !(*p.Min < *p.Max) || !finite(*p.Min) || !finite(*p.Max) {
+			c.add(path, "%s: min must be < max, got min = %s, max = %s", name, g(*p.Min), g(*p.Max))
+		}
+		if !math.IsInf(sup.lo, -1) {
+			bounded("min")
+		}
+		if !math.IsInf(sup.hi, 1) {
+			bounded("max")
+		}
+	case "lognormal":
+		if !(p.Sigma > 0) || !finite(p.Sigma) {
+			c.add(path, "%s: dist lognormal needs sigma > 0, got %s", name, g(p.Sigma))
+		}
+		// A lognormal takes every value in (0, ∞).
+		if sup.lo > 0 || !math.IsInf(sup.hi, 1) {
+			c.add(path+".dist", "%s: a lognormal prior takes every value > 0, but %s must be %s; use uniform or a truncated normal", name, name, sup)
+		}
+	default:
+		c.add(path+".dist", "%s dist must be one of %s, got %q", name, priorDists, p.Dist)
+	}
+}
+
+func hypothesisProblems(c *checker, prefix string, hy *Hypothesis, designs []Design) {
+	spec, ok := familySpecs[hy.Family]
+	if !ok {
+		c.add(prefix+".family", "family must be one of %s, got %q", familiesText, hy.Family)
+		return
+	}
+	pp := prefix + ".params"
+	var missing, extra []string
+	for _, ps := range spec {
+		if _, ok := hy.Params[ps.name]; ps.required && !ok {
+			missing = append(missing, ps.name)
+		}
+	}
+	for name := range hy.Params {
+		if _, ok := spec.find(name); !ok {
+			extra = append(extra, name)
+		}
+	}
+	if len(missing) > 0 {
+		c.add(pp, "%s", familyNeedsMessage(hy.Family, missing))
+	}
+	if len(extra) > 0 {
+		sort.Strings(extra)
+		c.add(pp, "%s", unknownParamsMessage(hy.Family, extra))
+	}
+	wellFormed := map[string]bool{}
+	for _, ps := range spec {
+		p, ok := hy.Params[ps.name]
+		if !ok {
+			continue
+		}
+		wellFormed[ps.name] = paramProblems(c, pp+"."+ps.name, ps, p)
+	}
+	gainProblems(c, pp, hy, wellFormed, designs)
+}
+
+// paramProblems checks one parameter and reports whether it is well formed.
+func paramProblems(c *checker, path string, ps paramSpec, p Param) bool {
+	name := ps.name
+	ok := true
+	signCheck := func(field string, v float64) {
+		switch {
+		case !finite(v):
+			c.add(path+"."+field, "%s %s must be a finite number, got %s", name, field, g(v))
+		case ps.sign == signPositive && !(v > 0):
+			c.add(path+"."+field, "%s %s must be > 0, got %s", name, field, g(v))
+		case ps.sign == signNonNegative && !(v >= 0):
+			c.add(path+"."+field, "%s %s must be >= 0, got %s", name, field, g(v))
+		default:
+			return
+		}
+		ok = false
+	}
+	if p.Value != nil {
+		if p.Min != nil || p.Max != nil || p.Generate != nil {
+			c.add(path, "%s %s", name, fixedAndFreeText)
+			return false
+		}
+		signCheck("value", *p.Value)
+		return ok
+	}
+	var missing []string
+	if p.Min == nil {
+		missing = append(missing, "min")
+	}
+	if p.Max == nil {
+		missing = append(missing, "max")
+	}
+	if len(missing) > 0 {
+		c.add(path, "%s", paramNeedsMessage(name, missing))
+		return false
+	}
+	signCheck("min", *p.Min)
+	signCheck("max", *p.Max)
+	if !(*p.Min < *p.Max) {
+		c.add(path, "%s min must be < max, got min = %s, max = %s", name, g(*p.Min), g(*p.Max))
+		ok = false
+	}
+	if gen := p.Generate; gen != nil {
+		gp := path + ".generate"
+		switch gen.Dist {
+		case "uniform":
+		case "normal":
+			if !(gen.SD > 0) || !finite(gen.SD) {
+				c.add(gp, "generate: dist normal needs sd > 0, got %s", g(gen.SD))
+				ok = false
+			}
+			if !finite(gen.Mean) {
+				c.add(gp+".mean", "generate mean must be a finite number, got %s", g(gen.Mean))
+				ok = false
+			}
+		case "loguniform":
+			if ok && !(*p.Min > 0) {
+				c.add(path+".min", "%s min must be > 0 for a loguniform generate distribution, got %s", name, g(*p.Min))
+				ok = false
+			}
+		case "":
+			c.add(gp, "generate needs field %q", "dist")
+			ok = false
+		default:
+			c.add(gp+".dist", "generate dist must be one of %s, got %q", generateDists, gen.Dist)
+			ok = false
+		}
+	}
+	return ok
+}
+
+// span is the set of values a parameter can take: [v, v] when fixed.
+func span(p Param) (lo, hi float64) {
+	if p.Value != nil {
+		return *p.Value, *p.Value
+	}
+	return *p.Min, *p.Max
+}
+
+func spanText(name string, p Param) string {
+	lo, hi := span(p)
+	if p.Value != nil {
+		return fmt.Sprintf("%s = %s", name, g(lo))
+	}
+	return fmt.Sprintf("%s range [%s, %s]", name, g(lo), g(hi))
+}
+
+// gainProblems checks γ_lo and γ_hi: each within [gain_min, gain_max] of
+// every design, and γ_lo below γ_hi for every value either can take (an
+// omitted one is the design's gain_min or gain_max).
+func gainProblems(c *checker, pp string, hy *Hypothesis, wellFormed map[string]bool, designs []Design) {
+	low, hasLow := hy.Params["low"]
+	high, hasHigh := hy.Params["high"]
+	hasLow = hasLow && wellFormed["low"]
+	hasHigh = hasHigh && wellFormed["high"]
+	if !hasLow && !hasHigh {
+		return
+	}
+	outside := map[string]bool{}
+	for _, bound := range []string{"low", "high"} {
+		p, has := low, hasLow
+		if bound == "high" {
+			p, has = high, hasHigh
+		}
+		if !has {
+			continue
+		}
+		lo, hi := span(p)
+		var bad []string
+		first := ""
+		for _, d := range designs {
+			a := d.Agent
+			if !(a.GainMin > 0 && a.GainMax > a.GainMin) {
+				continue // reported for the design itself
+			}
+			if lo < a.GainMin || hi > a.GainMax {
+				if first == "" {
+					first = fmt.Sprintf("design %q has [%s, %s]", d.Name, g(a.GainMin), g(a.GainMax))
+				}
+				bad = append(bad, d.Name)
+			}
+		}
+		if len(bad) > 0 {
+			outside[bound] = true
+			more := ""
+			if len(bad) > 1 {
+				more = fmt.Sprintf(" (and %d more)", len(bad)-1)
+			}
+			c.add(pp+"."+bound, "%s must be within [gain_min, gain_max] of every design; %s%s", spanText(bound, p), first, more)
+		}
+	}
+	if hasLow && hasHigh {
+		_, loTop := span(low)
+		hiBottom, _ := span(high)
+		if !(loTop < hiBottom) {
+			if low.Value != nil && high.Value != nil {
+				c.add(pp+".low", "low must be < high, got low = %s, high = %s", g(loTop), g(hiBottom))
+			} else {
+				c.add(pp+".low", "low must stay below high: low can reach %s but high can be as small as %s", g(loTop), g(hiBottom))
+			}
+		}
+		return
+	}
+	if outside["low"] || outside["high"] {
+		return // the omitted bound is a gain limit the given one already crosses
+	}
+	for _, d := range designs {
+		a := d.Agent
+		if !(a.GainMin > 0 && a.GainMax > a.GainMin) {
+			continue
+		}
+		if hasLow {
+			if _, loTop := span(low); !(loTop < a.GainMax) {
+				c.add(pp+".low", "low must be < high; high is omitted, so it is gain_max = %s of design %q, but low can reach %s", g(a.GainMax), d.Name, g(loTop))
+				return
+			}
+		} else if hiBottom, _ := span(high); !(a.GainMin < hiBottom) {
+			c.add(pp+".high", "high must be > low; low is omitted, so it is gain_min = %s of design %q, but high can be as small as %s", g(a.GainMin), d.Name, g(hiBottom))
+			return
+		}
+	}
+}
+
+func replicationProblems(c *checker, r *Replication, designs []Design) {
+	if len(r.GroupSizes) == 0 {
+		c.add("replication.group_sizes", "group_sizes must list at least one group size")
+	}
+	for k, n := range r.GroupSizes {
+		p := fmt.Sprintf("replication.group_sizes[%d]", k)
+		if n < 2 {
+			c.add(p, "group_sizes[%d] must be >= 2, got %d", k, n)
+			continue
+		}
+		for _, d := range designs {
+			if d.Participants >= 1 && n > d.Participants {
+				c.add(p, "group_sizes[%d] = %d must be <= participants of every design; design %q has %d", k, n, d.Name, d.Participants)
+				break
+			}
+		}
+	}
+	intRange(c, "replication.replicates", "replicates", r.Replicates, 1, maxReplicates)
+	if !(r.PXPThreshold > 0 && r.PXPThreshold < 1) {
+		c.add("replication.pxp_threshold", "pxp_threshold must be in (0, 1), got %s", g(r.PXPThreshold))
+	}
+	if !(r.TargetRate > 0 && r.TargetRate <= 1) {
+		c.add("replication.target_rate", "target_rate must be in (0, 1], got %s", g(r.TargetRate))
+	}
+}
+
+// fitsOf counts fits, Σ_d participants_d × h², saturating at MaxInt.
+func fitsOf(designs []Design, h int) int {
+	hh := int64(h) * int64(h)
+	var total int64
+	for _, d := range designs {
+		p := int64(max(d.Participants, 0))
+		if hh > 0 && p > (math.MaxInt64-total)/hh {
+			return math.MaxInt
+		}
+		total += p * hh
+	}
+	if total > math.MaxInt {
+		return math.MaxInt
+	}
+	return int(total)
+}
+
+// TotalFits is the study's compute budget: Σ over designs, vary blocks
+// expanded, of participants × hypotheses² (each participant of each
+// generating hypothesis is fitted by every candidate). A design whose vary
+// blocks do not expand counts once.
+func (s *Study) TotalFits() int {
+	var all []Design
+	for _, d := range s.Designs {
+		ds, err := d.Expand()
+		if err != nil {
+			ds = []Design{d}
+		}
+		all = append(all, ds...)
+	}
+	return fitsOf(all, len(s.Hypotheses))
+}
+
+// thousands prints n with comma separators: 5000000 → "5,000,000".
+func thousands(n int) string {
+	s := strconv.Itoa(n)
+	neg := strings.HasPrefix(s, "-")
+	s = strings.TrimPrefix(s, "-")
+	var b strings.Builder
+	for i, r := range s {
+		if i > 0 && (len(s)-i)%3 == 0 {
+			b.WriteByte(',')
+		}
+		b.WriteRune(r)
+	}
+	if neg {
+		return "-" + b.String()
+	}
+	return b.String()
+}
+
+// LoadStudy reads a study file: schema check, DecodeStudy, then Validate.
+// On failure it returns a *ValidationError holding every problem at once,
+// schema and semantic, a semantic problem being left out where it repeats a
+// schema problem at the same place. Bytes that are not JSON give that one
+// problem.
+func LoadStudy(data []byte) (*Study, error) {
+	schemaProbs, isJSON := schemaProblems(data)
+	if !isJSON {
+		return nil, &ValidationError{Problems: plain(schemaProbs)}
+	}
+	s, err := DecodeStudy(data)
+	if err != nil {
+		// With schema problems present, the decoder failed on one of them;
+		// only a value the schema accepts but Go cannot hold adds news.
+		// encoding/json names only the first such value; numberProblems
+		// finds them all.
+		var news []located
+		if inst, jerr := jsonschema.UnmarshalJSON(bytes.NewReader(data)); jerr == nil {
+			numberProblems(inst, inst, reflect.TypeFor[Study](), nil, &news)
+		}
+		if len(news) == 0 {
+			news = []located{decodeProblem(data, err)}
+		}
+		for _, dp := range news {
+			if len(schemaProbs) == 0 || (dp.Path != "" && !covered(dp.Problem, schemaProbs)) {
+				schemaProbs = append(schemaProbs, dp)
+			}
+		}
+		sortProblems(schemaProbs)
+		return nil, &ValidationError{Problems: plain(schemaProbs)}
+	}
+	all := schemaProbs
+	for _, p := range s.Validate() {
+		if !covered(p, schemaProbs) {
+			all = append(all, located{Problem: p, kind: kindSemantic})
+		}
+	}
+	if len(all) > 0 {
+		sortProblems(all)
+		return nil, &ValidationError{Problems: plain(all)}
+	}
+	return s, nil
+}
+
+// covered reports whether a schema problem already speaks of p's value: at
+// the same path, or at its parent or child (a missing field is reported on
+// its object by the schema and on the field by Validate). Array-length and
+// repeat problems cover only their own path, since they say nothing of the
+// elements.
+func covered(p Problem, schemaProbs []located) bool {
+	ps := splitPath(p.Path)
+	for _, sp := range schemaProbs {
+		if sp.Path == p.Path {
+			return true
+		}
+		if sp.kind == kindSchemaArray {
+			continue
+		}
+		ss := splitPath(sp.Path)
+		if isChild(ps, ss) || isChild(ss, ps) {
+			return true
+		}
+	}
+	return false
+}
+
+func isChild(child, parent []string) bool {
+	return len(child) == len(parent)+1 && slices.Equal(child[:len(parent)], parent)
+}
+
+// splitPath cuts a dotted path into segments: "a.b[2]" → a, b, [2].
+func splitPath(p string) []string {
+	var out []string
+	for i := 0; i < len(p); {
+		switch p[i] {
+		case '.':
+			i++
+		case '[':
+			j := i + 1
+			if j < len(p) && p[j] == '"' {
+				// a quoted key: find the closing quote that is not escaped
+				for j++; j < len(p) && p[j] != '"'; j++ {
+					if p[j] == '\\' {
+						j++
+					}
+				}
+			}
+			k := strings.IndexByte(p[min(j, len(p)):], ']')
+			if k < 0 {
+				out = append(out, p[i:])
+				return out
+			}
+			end := min(j, len(p)) + k + 1
+			out = append(out, p[i:end])
+			i = end
+		default:
+			j := i
+			for j < len(p) && p[j] != '.' && p[j] != '[' {
+				j++
+			}
+			out = append(out, p[i:j])
+			i = j
+		}
+	}
+	return out
+}
+
+// comparePaths orders paths segment by segment, indices numerically, so
+// designs[2] comes before designs[10].
+func comparePaths(a, b string) int {
+	as, bs := splitPath(a), splitPath(b)
+	for i := 0; i < len(as) && i < len(bs); i++ {
+		x, y := as[i], bs[i]
+		if x == y {
+			continue
+		}
+		xi, xerr := strconv.Atoi(strings.Trim(x, "[]"))
+		yi, yerr := strconv.Atoi(strings.Trim(y, "[]"))
+		if strings.HasPrefix(x, "[") && strings.HasPrefix(y, "[") && xerr == nil && yerr == nil {
+			return xi - yi
+		}
+		return strings.Compare(x, y)
+	}
+	return len(as) - len(bs)
+}
+
+func sortProblems(ps []located) {
+	// The message breaks ties so the order never depends on the schema
+	// validator's map iteration.
+	sort.SliceStable(ps, func(i, j int) bool {
+		if c := comparePaths(ps[i].Path, ps[j].Path); c != 0 {
+			return c < 0
+		}
+		return ps[i].Problem.Problem < ps[j].Problem.Problem
+	})
+}
+
+// numberProblems walks a parsed study file along the Go type it decodes
+// into and reports each number that type cannot hold: an integer field
+// written with a fraction or an exponent (3e2, 40.0), or beyond its range,
+// and a float beyond float64. Numbers keep their text in json.Number, so
+// the check sees what the file says.
+func numberProblems(root, v any, t reflect.Type, tokens []string, out *[]located) {
+	for t.Kind() == reflect.Pointer {
+		t = t.Elem()
+	}
+	if t == reflect.TypeFor[json.RawMessage]() {
+		return // vary values: Expand reports these against their field
+	}
+	switch x := v.(type) {
+	case map[string]any:
+		switch t.Kind() {
+		case reflect.Struct:
+			for i := 0; i < t.NumField(); i++ {
+				f := t.Field(i)
+				name, _, _ := strings.Cut(f.Tag.Get("json"), ",")
+				if fv, ok := x[name]; ok && name != "" && name != "-" {
+					numberProblems(root, fv, f.Type, append(slices.Clone(tokens), name), out)
+				}
+			}
+		case reflect.Map:
+			keys := make([]string, 0, len(x))
+			for k := range x {
+				keys = append(keys, k)
+			}
+			sort.Strings(keys)
+			for _, k := range keys {
+				numberProblems(root, x[k], t.Elem(), append(slices.Clone(tokens), k), out)
+			}
+		}
+	case []any:
+		if t.Kind() == reflect.Slice {
+			for i, e := range x {
+				numberProblems(root, e, t.Elem(), append(slices.Clone(tokens), strconv.Itoa(i)), out)
+			}
+		}
+	case json.Number:
+		var bad bool
+		switch t.Kind() {
+		case reflect.Int, reflect.Int64:
+			_, err := strconv.ParseInt(x.String(), 10, 64)
+			bad = err != nil
+		case reflect.Uint64:
+			_, err := strconv.ParseUint(x.String(), 10, 64)
+			bad = err != nil
+		case reflect.Float64:
+			_, err := strconv.ParseFloat(x.String(), 64)
+			bad = err != nil
+		default:
+			return
+		}
+		if !bad {
+			return
+		}
+		loc := resolve(root, tokens)
+		msg := fmt.Sprintf("%s must be a whole number in plain digits (no fraction, no exponent) within %s, got %s", loc.subject(), intLimit(t.Kind()), x)
+		if t.Kind() == reflect.Float64 {
+			msg = fmt.Sprintf("%s must be a number within ±%s, got %s", loc.subject(), g(math.MaxFloat64), x)
+		}
+		*out = append(*out, located{Problem: Problem{Path: loc.path(), Problem: msg}, kind: kindDecode})
+	}
+}
+
+func intLimit(k reflect.Kind) string {
+	switch k {
+	case reflect.Uint, reflect.Uint8, reflect.Uint16, reflect.Uint32, reflect.Uint64:
+		return "[0, " + strconv.FormatUint(math.MaxUint64, 10) + "]"
+	}
+	return "±" + strconv.FormatInt(math.MaxInt64, 10)
+}
+
+// decodeProblem turns a DecodeStudy error into a problem, finding the path of
+// the offending value from the error's byte offset.
+func decodeProblem(data []byte, err error) located {
+	var te *json.UnmarshalTypeError
+	if errors.As(err, &te) {
+		inst, _ := jsonschema.UnmarshalJSON(bytes.NewReader(data))
+		loc := resolve(inst, tokensAtOffset(data, te.Offset))
+		var msg string
+		switch te.Type.Kind() {
+		case reflect.Int, reflect.Int8, reflect.Int16, reflect.Int32, reflect.Int64,
+			reflect.Uint, reflect.Uint8, reflect.Uint16, reflect.Uint32, reflect.Uint64:
+			msg = fmt.Sprintf("%s must be a whole number in plain digits (no fraction, no exponent) within %s, got %s", loc.subject(), intLimit(te.Type.Kind()), display(loc.leaf()))
+		case reflect.Float32, reflect.Float64:
+			msg = fmt.Sprintf("%s must be a number within ±%s, got %s", loc.subject(), g(math.MaxFloat64), display(loc.leaf()))
+		default:
+			msg = fmt.Sprintf("%s cannot be read as %s, got %s", loc.subject(), te.Type, display(loc.leaf()))
+		}
+		return located{Problem: Problem{Path: loc.path(), Problem: msg}, kind: kindDecode}
+	}
+	return located{Problem: Problem{Path: "", Problem: strings.TrimPrefix(err.Error(), "models: study file: ")}, kind: kindDecode}
+}
+
+// tokensAtOffset returns the instance location of the scalar that ends at
+// byte offset off (encoding/json reports a type error there).
+func tokensAtOffset(data []byte, off int64) []string {
+	dec := json.NewDecoder(bytes.NewReader(data))
+	dec.UseNumber()
+	type frame struct {
+		array   bool
+		index   int
+		key     string
+		wantKey bool
+	}
+	var stack []*frame
+	cur := func() []string {
+		p := make([]string, 0, len(stack))
+		for _, f := range stack {
+			if f.array {
+				p = append(p, strconv.Itoa(f.index))
+			} else {
+				p = append(p, f.key)
+			}
+		}
+		return p
+	}
+	done := func() {
+		if len(stack) == 0 {
+			return
+		}
+		if top := stack[len(stack)-1]; top.array {
+			top.index++
+		} else {
+			top.wantKey = true
+		}
+	}
+	for {
+		tok, err := dec.Token()
+		if err != nil {
+			return nil
+		}
+		if len(stack) > 0 {
+			if top := stack[len(stack)-1]; !top.array && top.wantKey {
+				if k, ok := tok.(string); ok {
+					top.key, top.wantKey = k, false
+					continue
+				}
+			}
+		}
+		switch t := tok.(type) {
+		case json.Delim:
+			switch t {
+			case '{':
+				stack = append(stack, &frame{wantKey: true})
+			case '[':
+				stack = append(stack, &frame{array: true})
+			default:
+				stack = stack[:len(stack)-1]
+				done()
+			}
+		default:
+			if dec.InputOffset() >= off {
+				return cur()
+			}
+			done()
+		}
+	}
+}

@@ -1,0 +1,239 @@
+package recovery
+
+import (
+	"context"
+	"math"
+	"math/rand/v2"
+	"testing"
+
+	"gonum.org/v1/gonum/floats/scalar"
+	"gonum.org/v1/gonum/mat"
+	"gonum.org/v1/gonum/optimize"
+
+	"discrimen/models"
+)
+
+// TestNelderMeadRosenbrock: the fits' search reaches the minimum (1, 1) of
+// Rosenbrock's function (Rosenbrock 1960, Computer Journal 3:175) from the
+// classic start (−1.2, 1).
+func TestNelderMeadRosenbrock(t *testing.T) {
+	f := func(x []float64) float64 {
+		a, b := 1-x[0], x[1]-x[0]*x[0]
+		return a*a + 100*b*b
+	}
+	set := searchSettings(2)
+	set.FuncEvaluations = 5000
+	set.Converger = &optimize.FunctionConverge{Absolute: 1e-14, Iterations: 200}
+	res, err := optimize.Minimize(optimize.Problem{Func: f}, []float64{-1.2, 1}, set, searchMethod())
+	if err != nil {
+		t.Fatal(err)
+	}
+	for i, want := range []float64{1, 1} {
+		if !scalar.EqualWithinAbs(res.X[i], want, 1e-4) {
+			t.Errorf("x[%d] = %.8f, want %g (status %v)", i, res.X[i], want, res.Status)
+		}
+	}
+}
+
+// testSummary builds a dataset's summary from a design and a prediction
+// with a seeded source.
+func testSummary(t *testing.T, js string, free []float64, m Measurement) (*models.Design, *summary, *Dataset, *models.Prediction) {
+	t.Helper()
+	s := mustStudy(t, js)
+	d := &s.Designs[0]
+	l, err := models.NewListener(d)
+	if err != nil {
+		t.Fatal(err)
+	}
+	h := s.Hypotheses[0]
+	prec, err := models.NewPrecision(h, d, free)
+	if err != nil {
+		t.Fatal(err)
+	}
+	pr := l.NewPrediction()
+	l.Predict(prec, pr, nil)
+	ds := Simulate(rand.New(rand.NewPCG(1, 2)), d, h, 0, Truth{Free: free, Measurement: m}, pr)
+	return d, summarise(d, ds), ds, pr
+}
+
+const oneHypStudy = `{"name": "t", "seed": 1,
+  "designs": [{"name": "d", "cti_ms": [300, 600, 900], "trials_per_cti": 60, "participants": 2, "measures": ["rt", "accuracy", "eeg"]}],
+  "hypotheses": [{"name": "ramp", "family": "linear", "params": {"slope": {"min": 0.5, "max": 3}}},
+                 {"name": "flat", "family": "constant", "params": {"level": {"value": 1}}}],
+  "replication": {"group_sizes": [2], "replicates": 2}}`
+
+// TestProfiledLikelihoodMatchesDirect checks the closed-form profiling of
+// the likelihood against a direct evaluation at the profiled estimates:
+// RT terms as a sum of Gaussian log densities over the trial table, EEG
+// terms as the multivariate normal log density with the stationary AR(1)
+// covariance Σ_ab = σ² ρ^|a−b| (Hamilton 1994, Time Series Analysis §5.2),
+// through a Cholesky factorisation.
+func TestProfiledLikelihoodMatchesDirect(t *testing.T) {
+	m := Measurement{RTBase: 250, RTScale: 1.1, RTSD: 50, Lapse: 0.03, EEGOffset: 0.3, EEGGain: 2, EEGSD: 0.4, EEGAR: 0.35}
+	d, sum, ds, pr := testSummary(t, oneHypStudy, []float64{1.2}, m)
+	lay := newLayout(pr)
+	vec := make([]float64, lay.size())
+	lay.flatten(pr, vec)
+	for _, ar := range []float64{0, 0.35, -0.4} {
+		var est Measurement
+		got := logLik(sum, lay, vec, 0.03, ar, &est)
+
+		want := 0.0
+		// RT: Gaussian density of every recorded RT.
+		for _, tr := range ds.Trials {
+			if math.IsNaN(tr.RTms) {
+				continue
+			}
+			rt := pr.Valid.RTms[tr.CTI]
+			if !tr.Valid {
+				rt = pr.Invalid.RTms[tr.CTI]
+			}
+			z := (tr.RTms - est.RTBase - est.RTScale*rt) / est.RTSD
+			want += -0.5*math.Log(2*math.Pi) - math.Log(est.RTSD) - 0.5*z*z
+		}
+		// Accuracy: categorical report probabilities with lapse.
+		V := float64(d.Items)
+		for _, tr := range ds.Trials {
+			cls := pr.Valid
+			if !tr.Valid {
+				cls = pr.Invalid
+			}
+			pT := (1-0.03)*cls.Accuracy[tr.CTI] + 0.03/V
+			pC := 0.0
+			if !tr.Valid {
+				pC = (1-0.03)*cls.Misdirected[tr.CTI] + 0.03/V
+			}
+			switch tr.Report {
+			case ReportTarget:
+				want += math.Log(pT)
+			case ReportCued:
+				want += math.Log(pC)
+			default:
+				want += math.Log(1 - pT - pC)
+			}
+		}
+		// EEG: multivariate normal per CTI series.
+		for c, y := range ds.EEG {
+			n := len(y)
+			cov := mat.NewSymDense(n, nil)
+			for a := 0; a < n; a++ {
+				for b := a; b < n; b++ {
+					cov.SetSym(a, b, est.EEGSD*est.EEGSD*math.Pow(ar, float64(b-a)))
+				}
+			}
+			var ch mat.Cholesky
+			if !ch.Factorize(cov) {
+				t.Fatal("AR(1) covariance not positive definite")
+			}
+			r := mat.NewVecDense(n, nil)
+			for b := range y {
+				r.SetVec(b, y[b]-est.EEGOffset-est.EEGGain*pr.Neural[c][b])
+			}
+			var sol mat.VecDense
+			if err := ch.SolveVecTo(&sol, r); err != nil {
+				t.Fatal(err)
+			}
+			want += -0.5*float64(n)*math.Log(2*math.Pi) - 0.5*ch.LogDet() - 0.5*mat.Dot(r, &sol)
+		}
+		if !scalar.EqualWithinAbsOrRel(-got, want, 1e-8, 1e-10) {
+			t.Errorf("ar %g: profiled ln L = %.10f, direct = %.10f", ar, -got, want)
+		}
+	}
+}
+
+// TestProfiledEstimatesRecoverTruth: at the true parameters with many
+// trials the profiled linear terms land near their true values.
+func TestProfiledEstimatesRecoverTruth(t *testing.T) {
+	m := Measurement{RTBase: 250, RTScale: 1.1, RTSD: 20, Lapse: 0.0, EEGOffset: 0.3, EEGGain: 2, EEGSD: 0.05, EEGAR: 0.2}
+	_, sum, _, pr := testSummary(t, oneHypStudy, []float64{1.2}, m)
+	lay := newLayout(pr)
+	vec := make([]float64, lay.size())
+	lay.flatten(pr, vec)
+	var est Measurement
+	logLik(sum, lay, vec, 0, 0.2, &est)
+	checks := []struct {
+		name      string
+		got, want float64
+		tol       float64
+	}{
+		{"rt_base", est.RTBase, 250, 10},
+		{"rt_scale", est.RTScale, 1.1, 0.08},
+		{"rt_sd", est.RTSD, 20, 2},
+		{"eeg_offset", est.EEGOffset, 0.3, 0.05},
+		{"eeg_gain", est.EEGGain, 2, 0.1},
+		{"eeg_sd", est.EEGSD, 0.05, 0.02},
+	}
+	for _, c := range checks {
+		if math.Abs(c.got-c.want) > c.tol {
+			t.Errorf("%s = %.4f, want %.4f ± %g", c.name, c.got, c.want, c.tol)
+		}
+	}
+}
+
+// TestFailedFitIsCounted: a candidate whose likelihood is nowhere finite
+// gives a failed fit with its cause, and the report counts it rather than
+// dropping it; a failed fit never wins.
+func TestFailedFitIsCounted(t *testing.T) {
+	m := Measurement{RTBase: 250, RTScale: 1, RTSD: 50, Lapse: 0.02, EEGOffset: 0, EEGGain: 2, EEGSD: 0.4, EEGAR: 0.2}
+	_, sum, _, pr := testSummary(t, oneHypStudy, []float64{1.2}, m)
+	s := mustStudy(t, oneHypStudy)
+	d := &s.Designs[0]
+	l, _ := models.NewListener(d)
+	c := &Cache{Hypothesis: s.Hypotheses[1], design: d, listener: l, lay: newLayout(pr), points: 1}
+	c.values = make([]float64, c.lay.size())
+	for i := range c.values {
+		c.values[i] = math.NaN()
+	}
+	// Without free parameters of its own the candidate still searches lapse
+	// and eeg_ar; NaN predictions make every evaluation non-finite.
+	fit := newFitter(c).fit(sum, false)
+	if !fit.Failed || fit.Error == "" {
+		t.Fatalf("fit = %+v, want a failed fit with its cause", fit)
+	}
+	if !math.IsNaN(fit.BIC) {
+		t.Errorf("failed fit BIC = %g, want NaN", fit.BIC)
+	}
+	sh, failed := WinShares([]float64{fit.BIC, 100}, TieTolerance)
+	if failed || sh[0] != 0 || sh[1] != 1 {
+		t.Errorf("shares %v (failed %v): a failed fit must not win", sh, failed)
+	}
+}
+
+// TestAssembleCountsFailures: a failed fit in a shard result shows up in
+// fit_failures and the dataset is still counted under the other
+// candidates; a shard delivered twice is counted once.
+func TestAssembleCountsFailures(t *testing.T) {
+	s := mustStudy(t, smallStudy)
+	c, err := Compile(context.Background(), s, 2)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var results []*ShardResult
+	for _, spec := range c.Plan(3) {
+		r, err := c.RunShard(context.Background(), spec, nil)
+		if err != nil {
+			t.Fatal(err)
+		}
+		results = append(results, r)
+	}
+	f := &results[0].Participants[0].Fits[2]
+	f.Failed, f.Error = true, "injected"
+	f.BIC, f.AIC, f.AICc, f.LogL = math.NaN(), math.NaN(), math.NaN(), math.NaN()
+	dup := *results[1]
+	rep, err := c.Assemble(append(results, &dup))
+	if err != nil {
+		t.Fatal(err)
+	}
+	ff := rep.Designs[0].FitFailures
+	if ff.Failed != 1 || ff.Total != 3*6*3 {
+		t.Errorf("fit_failures = %+v, want 1 failed of 54", ff)
+	}
+	cr := rep.Designs[0].Criteria["bic"]
+	if n := cr.Datasets[0]; n != 6 {
+		t.Errorf("generator 0 has %d datasets with a winner, want 6", n)
+	}
+	// A missing shard is an error naming the count.
+	if _, err := c.Assemble(results[1:]); err == nil {
+		t.Error("Assemble with a missing shard: want an error")
+	}
+}
