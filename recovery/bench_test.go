@@ -39,7 +39,7 @@ func BenchmarkFit(b *testing.B) {
 	const g = 3 // early-lift: one free parameter, plus lapse and eeg_ar
 	d := &c.Designs[0]
 	h := s.Hypotheses[g]
-	truth := drawTruth(datasetRand(s.Seed, d.Name, h.Name, 0, "truth"), h, d)
+	truth := drawTruth(truthRand(s.Seed, h.Name, 0), h, d)
 	l := c.listeners[0]
 	pr := l.NewPrediction()
 	prec, _ := models.NewPrecision(h, d, truth.Free)

@@ -127,7 +127,15 @@ func Simulate(r *rand.Rand, d *models.Design, h models.Hypothesis, p int, truth 
 	return ds
 }
 
-// datasetRand is the stream for participant p's data.
+// truthRand is the stream of participant p's true parameters. It does not
+// depend on the design, so every design of a study (and every variant of a
+// vary block) meets the same synthetic participants: design comparisons
+// are paired (common random numbers).
+func truthRand(seed uint64, generator string, p int) *rand.Rand {
+	return streamRand(seed, "participant", generator, strconv.Itoa(p))
+}
+
+// datasetRand is the stream for participant p's data under one design.
 func datasetRand(seed uint64, design, generator string, p int, purpose string) *rand.Rand {
 	return streamRand(seed, "dataset", design, generator, strconv.Itoa(p), purpose)
 }

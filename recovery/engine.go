@@ -172,7 +172,7 @@ func (c *Compiled) RunShard(ctx context.Context, spec ShardSpec, progress func(f
 		if ctx.Err() != nil {
 			return nil, fmt.Errorf("%w: %v", ErrCanceled, ctx.Err())
 		}
-		truth := drawTruth(datasetRand(c.Study.Seed, d.Name, gen.Name, p, "truth"), gen, d)
+		truth := drawTruth(truthRand(c.Study.Seed, gen.Name, p), gen, d)
 		prec, err := models.NewPrecision(gen, d, truth.Free)
 		if err != nil {
 			return nil, err

@@ -151,3 +151,28 @@ func TestLowNoiseRecovers(t *testing.T) {
 		}
 	}
 }
+
+// TestDesignsMeetTheSameParticipants: two designs of one study draw the
+// same true parameters for participant p of a generator (paired design
+// comparison), while their trial data differ.
+func TestDesignsMeetTheSameParticipants(t *testing.T) {
+	s := mustStudy(t, `{"name": "paired (invented)", "seed": 9,
+	  "designs": [{"name": "short", "cti_ms": [300, 600], "participants": 3, "trials_per_cti": 10},
+	              {"name": "long", "cti_ms": [300, 600, 900, 1200], "participants": 3, "trials_per_cti": 10}],
+	  "hypotheses": [{"name": "ramp", "family": "linear", "params": {"slope": {"min": 0.5, "max": 3}}},
+	                 {"name": "flat", "family": "constant", "params": {"level": {"min": 0.3, "max": 1.5}}}],
+	  "replication": {"group_sizes": [2], "replicates": 4}}`)
+	r, err := Run(context.Background(), s, Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	for i := range r.Fits[0] {
+		a, b := r.Fits[0][i].Truth, r.Fits[1][i].Truth
+		if a.Free[0] != b.Free[0] {
+			t.Errorf("participant %d: true %g under short, %g under long", i, a.Free[0], b.Free[0])
+		}
+		if r.Fits[0][i].Fits[0].LogL == r.Fits[1][i].Fits[0].LogL {
+			t.Errorf("participant %d: identical likelihood under two designs", i)
+		}
+	}
+}

@@ -1,0 +1,727 @@
+package recovery
+
+import (
+	"context"
+	"encoding/json"
+	"math"
+	"math/rand/v2"
+	"os"
+	"reflect"
+	"runtime"
+	"strings"
+	"sync"
+	"testing"
+	"time"
+
+	"gonum.org/v1/gonum/floats"
+	"gonum.org/v1/gonum/floats/scalar"
+	"gonum.org/v1/gonum/mathext"
+	"gonum.org/v1/gonum/stat/distuv"
+
+	"discrimen/models"
+)
+
+// bmsVariant runs one of the two implementations of random-effects BMS, so
+// every property below is checked through both.
+type bmsVariant struct {
+	name string
+	run  func(lme [][]float64) BMSResult
+}
+
+var bmsVariants = []bmsVariant{
+	{"BMS", func(lme [][]float64) BMSResult { return BMS(lme, rand.New(rand.NewPCG(3, 4)), 20000) }},
+	{"BMSQuadrature", BMSQuadrature},
+}
+
+// TestGroupBMSStrongFavour: when every participant's evidence favours model
+// 0 by 50 nats, g_n0 = 1 and the Dirichlet update of Stephan et al. 2009
+// (NeuroImage 46:1004) gives α = (1 + N, 1, …, 1): E[r_0] → (N+1)/(N+K).
+func TestGroupBMSStrongFavour(t *testing.T) {
+	for _, v := range bmsVariants {
+		for _, c := range []struct{ n, k int }{{5, 2}, {20, 3}, {10, 6}, {40, 6}} {
+			res := v.run(strongEvidence(c.n, c.k))
+			want := float64(c.n+1) / float64(c.n+c.k)
+			if !scalar.EqualWithinAbs(res.Expected[0], want, 1e-6) {
+				t.Errorf("%s N=%d K=%d: Expected[0] = %v, want (N+1)/(N+K) = %v", v.name, c.n, c.k, res.Expected[0], want)
+			}
+			if c.n >= 20 && (res.PXP[0] <= 0.99 || res.BOR > 1e-3) {
+				t.Errorf("%s N=%d K=%d: PXP[0] = %v, BOR = %v; want PXP > 0.99 and BOR < 1e-3", v.name, c.n, c.k, res.PXP[0], res.BOR)
+			}
+		}
+	}
+}
+
+// TestGroupBMSTwoModelExact: for K = 2, r_1 ~ Beta(α_1, α_2), so
+// XP_1 = 1 − I_{1/2}(α_1, α_2) (Stephan et al. 2009). Reference:
+// gonum distuv.Beta{α_1, α_2}.CDF(0.5) = I_{1/2}(α_1, α_2).
+func TestGroupBMSTwoModelExact(t *testing.T) {
+	for _, v := range bmsVariants {
+		for seed, shift := range [][]float64{{0, 0}, {0, 1.5}, {4, 0}, {0.3, 0}} {
+			lme := randomEvidence(uint64(20+seed), 15+5*seed, shift, 2.5)
+			res := v.run(lme)
+			want := 1 - distuv.Beta{Alpha: res.Alpha[0], Beta: res.Alpha[1]}.CDF(0.5)
+			if !scalar.EqualWithinAbsOrRel(res.XP[0], want, 1e-12, 1e-10) {
+				t.Errorf("%s shift %v: XP[0] = %v, 1 − Beta(α1, α2).CDF(½) = %v", v.name, shift, res.XP[0], want)
+			}
+			if q := ExceedanceQuadrature(res.Alpha, 0); !scalar.EqualWithinAbsOrRel(q, want, 1e-12, 1e-10) {
+				t.Errorf("ExceedanceQuadrature(%v, 0) = %v, want %v", res.Alpha, q, want)
+			}
+		}
+	}
+}
+
+// TestGroupBMSIdenticalEvidence: evidences equal across models give
+// g_nk = 1/K, α_k = 1 + N/K; the null of equal frequencies is then the
+// better account, so the Bayesian omnibus risk is near 1 and every
+// protected exceedance probability near 1/K (Rigoux et al. 2014,
+// NeuroImage 84:971: PXP = XP(1 − BOR) + BOR/K). BOR approaches 1
+// slowly in N, slowest for K = 2 (0.84 at N = 40), hence N = 200 there.
+func TestGroupBMSIdenticalEvidence(t *testing.T) {
+	for _, v := range bmsVariants {
+		for _, k := range []int{2, 3, 6} {
+			n := 40
+			if k == 2 {
+				n = 200
+			}
+			lme := make([][]float64, n)
+			for i := range lme {
+				lme[i] = make([]float64, k)
+				for j := range lme[i] {
+					lme[i][j] = -80 - 3*float64(i)
+				}
+			}
+			res := v.run(lme)
+			if res.BOR <= 0.85 {
+				t.Errorf("%s K=%d: BOR = %v, want near 1 (> 0.85)", v.name, k, res.BOR)
+			}
+			for j, p := range res.PXP {
+				if math.Abs(p-1/float64(k)) > 0.05 {
+					t.Errorf("%s K=%d: PXP[%d] = %v, want 1/K ± 0.05", v.name, k, j, p)
+				}
+			}
+		}
+	}
+}
+
+// TestBMSQuadratureMatchesBMS: the reorganised updates reach the same α,
+// free energies and omnibus risk as BMS, in the same number of iterations.
+func TestBMSQuadratureMatchesBMS(t *testing.T) {
+	for i, c := range []struct {
+		n     int
+		shift []float64
+		sd    float64
+	}{
+		{12, []float64{0.8, 0.4, 0}, 2},
+		{40, []float64{1, 0.5, 0, 0, -0.5, 0.2}, 3},
+		{7, []float64{0, 0, 0, 0}, 1},
+		{25, []float64{30, 0, -20, 5, 1}, 10},
+	} {
+		lme := randomEvidence(uint64(40+i), c.n, c.shift, c.sd)
+		a, b := BMS(lme, rand.New(rand.NewPCG(1, 1)), 10), BMSQuadrature(lme)
+		if !floats.EqualApprox(a.Alpha, b.Alpha, 1e-9) || !floats.EqualApprox(a.Expected, b.Expected, 1e-9) {
+			t.Errorf("case %d: α %v vs %v", i, a.Alpha, b.Alpha)
+		}
+		for _, p := range [][2]float64{{a.FreeEnergy, b.FreeEnergy}, {a.NullEvidence, b.NullEvidence}, {a.BOR, b.BOR}} {
+			if !scalar.EqualWithinAbsOrRel(p[0], p[1], 1e-9, 1e-9) {
+				t.Errorf("case %d: F1, F0 or BOR: BMS %v, BMSQuadrature %v", i, p[0], p[1])
+			}
+		}
+		if a.Iterations != b.Iterations || a.Converged != b.Converged || b.XPMCError != 0 {
+			t.Errorf("case %d: iterations %d/%v vs %d/%v, MC error %v", i, a.Iterations, a.Converged, b.Iterations, b.Converged, b.XPMCError)
+		}
+	}
+}
+
+// randomAlpha draws Dirichlet parameters ≥ 1 (as BMS produces) on mixed
+// scales, the larger ones as in groups of up to a few thousand.
+func randomAlpha(rng *rand.Rand) []float64 {
+	alpha := make([]float64, 3+rng.IntN(5))
+	scale := []float64{0.5, 3, 20, 60, 400, 3000}[rng.IntN(6)]
+	for j := range alpha {
+		alpha[j] = 1 + scale*rng.Float64()
+	}
+	return alpha
+}
+
+// TestExceedanceQuadratureVsMonteCarlo: the quadrature XP lies within 4
+// Monte Carlo standard errors of BMS's 10⁴-draw estimate on the same α (the
+// MC error is the one BMS states, XPMCError, per model √(p(1−p)/samples)).
+func TestExceedanceQuadratureVsMonteCarlo(t *testing.T) {
+	for i, c := range []struct {
+		n     int
+		shift []float64
+	}{
+		{12, []float64{0.8, 0.4, 0}},
+		{20, []float64{0.5, 0, 0.2, 0.1}},
+		{40, []float64{1, 0.5, 0, 0, -0.5, 0.2}},
+		{9, []float64{0, 0, 0, 0, 0}},
+	} {
+		lme := randomEvidence(uint64(60+i), c.n, c.shift, 2)
+		const samples = 10000
+		mc := BMS(lme, rand.New(rand.NewPCG(uint64(i), 77)), samples)
+		for k := range mc.XP {
+			q := ExceedanceQuadrature(mc.Alpha, k)
+			se := math.Sqrt(math.Max(q*(1-q), 1e-4) / samples)
+			if d := math.Abs(q - mc.XP[k]); d > 4*se {
+				t.Errorf("case %d k=%d: quadrature %v, Monte Carlo %v ± %v: |Δ| = %v > 4 SE", i, k, q, mc.XP[k], se, d)
+			}
+		}
+	}
+}
+
+// TestExceedanceQuadratureAccuracy: on random α (K = 3…7, α up to 3001)
+// the rule agrees with one of four times as many panels to 1e-12, the XP of
+// all models sum to 1 within 1e-10 (an identity of the integrand that the
+// rule does not use), XP is ordered as α (the monotonicity groupRecovered
+// relies on, proved in its comment), and the pairwise beta bounds hold.
+func TestExceedanceQuadratureAccuracy(t *testing.T) {
+	rng := rand.New(rand.NewPCG(8, 9))
+	for trial := 0; trial < 150; trial++ {
+		alpha := randomAlpha(rng)
+		xp := make([]float64, len(alpha))
+		for k := range alpha {
+			xp[k] = ExceedanceQuadrature(alpha, k)
+			if fine := exceedanceQuad(alpha, k, xpPanelScale/4); !scalar.EqualWithinAbs(xp[k], fine, 1e-12) {
+				t.Errorf("α = %v, k = %d: %v, with 4× panels %v", alpha, k, xp[k], fine)
+			}
+		}
+		if s := floats.Sum(xp); !scalar.EqualWithinAbs(s, 1, 1e-10) {
+			t.Errorf("α = %v: XP sums to %v", alpha, s)
+		}
+		for i := range alpha {
+			for j := range alpha {
+				if alpha[i] > alpha[j] && xp[i] < xp[j] {
+					t.Errorf("α = %v: α[%d] > α[%d] but XP %v < %v", alpha, i, j, xp[i], xp[j])
+				}
+			}
+			lower, upper := 1.0, 1.0
+			for j := range alpha {
+				if j != i {
+					b := mathext.RegIncBeta(alpha[i], alpha[j], 0.5)
+					lower -= b
+					upper = math.Min(upper, 1-b)
+				}
+			}
+			if xp[i] < lower-1e-10 || xp[i] > upper+1e-10 {
+				t.Errorf("α = %v: XP[%d] = %v outside the bounds [%v, %v]", alpha, i, xp[i], lower, upper)
+			}
+		}
+	}
+}
+
+// TestGroupWinnerMatchesFullPXP: the bounded decision agrees with
+// computing every PXP by quadrature and applying the rule directly (the
+// largest PXP, if it exceeds the threshold), on groups near and far from
+// the threshold.
+func TestGroupWinnerMatchesFullPXP(t *testing.T) {
+	rng := rand.New(rand.NewPCG(10, 11))
+	quads, winners := 0, 0
+	for trial := 0; trial < 300; trial++ {
+		k := 2 + rng.IntN(5)
+		shift := make([]float64, k)
+		for j := range shift {
+			shift[j] = 2 * rng.Float64()
+		}
+		lme := randomEvidence(uint64(100+trial), 3+rng.IntN(38), shift, 1+3*rng.Float64())
+		res := BMSQuadrature(lme)
+		p := newEvidencePool(lme, k)
+		rows := make([]int, len(lme))
+		for i := range rows {
+			rows[i] = i
+		}
+		s := newVBScratch(k)
+		o := p.vb(rows, s)
+		top := floats.MaxIdx(res.PXP)
+		for _, thr := range []float64{0.3, 0.5, 0.9, 0.95, 0.99} {
+			want := -1
+			if res.PXP[top] > thr {
+				want = top
+			}
+			got, q := groupWinner(s.alpha, o.logOdds, thr)
+			if q {
+				quads++
+			}
+			if got >= 0 {
+				winners++
+			}
+			if got != want && math.Abs(res.PXP[top]-thr) > 1e-9 {
+				t.Errorf("trial %d thr=%v: winner %d, full PXP %v says %d", trial, thr, got, res.PXP, want)
+			}
+		}
+	}
+	if winners < 300 || winners > 1200 {
+		t.Errorf("%d of 1500 decisions found a winner; the cases should mix both outcomes", winners)
+	}
+	t.Logf("%d winners, %d decisions needed quadrature", winners, quads)
+}
+
+// controlledPool returns n participants of generator g whose log evidence
+// favours model g by margin nats over k−1 others, with N(0, sd²) noise.
+func controlledPool(seed uint64, n, k, g int, margin, sd float64) [][]float64 {
+	shift := make([]float64, k)
+	shift[g] = margin
+	return randomEvidence(seed, n, shift, sd)
+}
+
+func numsF(x []Num) []float64 {
+	out := make([]float64, len(x))
+	for i, v := range x {
+		out[i] = float64(v)
+	}
+	return out
+}
+
+func sweepOne(seed uint64, gens []string, pools [][][]float64, r models.Replication, workers int) *GroupReport {
+	dp := designPools{Name: "d"}
+	for _, p := range pools {
+		dp.Pools = append(dp.Pools, newEvidencePool(p, len(gens)))
+	}
+	return sweepGroups(seed, gens, []designPools{dp}, r, workers)[0]
+}
+
+// TestGroupCurvesMonotone: with each participant's evidence favouring its
+// generator by a fixed margin, group recovery can only grow with N; the
+// estimated curves may fall by at most 2 binomial SEs of the difference.
+func TestGroupCurvesMonotone(t *testing.T) {
+	gens := []string{"a", "b", "c", "d"}
+	margins := []float64{3, 2, 1.5, 0.3}
+	var pools [][][]float64
+	for g := range gens {
+		pools = append(pools, controlledPool(uint64(200+g), 150, len(gens), g, margins[g], 2))
+	}
+	r := models.Replication{GroupSizes: []int{5, 10, 20, 40, 80}, Replicates: 400, PXPThreshold: 0.95, TargetRate: 0.8}
+	gr := sweepOne(1, gens, pools, r, 2)
+	reps := float64(r.Replicates)
+	for g, row := range gr.Recovery {
+		for n := 1; n < len(row); n++ {
+			p0, p1 := float64(row[n-1]), float64(row[n])
+			se := math.Sqrt((p0*(1-p0) + p1*(1-p1)) / reps)
+			if p1 < p0-2*se {
+				t.Errorf("%s: rate falls from %v at N=%d to %v at N=%d (2 SE = %v)", gens[g], p0, r.GroupSizes[n-1], p1, r.GroupSizes[n], 2*se)
+			}
+		}
+		for n := range row {
+			c := gr.Confusion[n][g]
+			if c[g] != row[n] || floats.Sum(numsF(c)) > 1+1e-12 {
+				t.Errorf("%s at N=%d: confusion row %v, recovery %v; want the diagonal to be the recovery and a sum ≤ 1", gens[g], r.GroupSizes[n], c, row[n])
+			}
+		}
+		if rise := float64(row[len(row)-1]) - float64(row[0]); g < 3 && rise < 0.3 {
+			t.Errorf("%s: rate rises only %v from N=5 to N=80 (%v)", gens[g], rise, row)
+		}
+	}
+	t.Logf("recovery %v, sample sizes %v, %d quadratures", gr.Recovery, gr.Summary, gr.Quadratures)
+}
+
+// TestSampleSizeNullWhenUnreachable: a generator whose own model is always
+// worse, and one indistinguishable from every candidate, never reach the
+// target rate; their sample size is null and the sentence says so. A
+// generator favoured by 50 nats reaches it at the smallest size.
+func TestSampleSizeNullWhenUnreachable(t *testing.T) {
+	gens := []string{"clear", "worse", "same"}
+	same := make([][]float64, 60)
+	for i := range same {
+		same[i] = []float64{-10 - float64(i), -10 - float64(i), -10 - float64(i)}
+	}
+	pools := [][][]float64{
+		controlledPool(1, 60, 3, 0, 50, 1),
+		controlledPool(2, 60, 3, 1, -3, 1),
+		same,
+	}
+	r := models.Replication{GroupSizes: []int{20, 10, 40}, Replicates: 50, PXPThreshold: 0.95, TargetRate: 0.8}
+	gr := sweepOne(5, gens, pools, r, 2)
+	if !reflect.DeepEqual(gr.GroupSizes, []int{10, 20, 40}) {
+		t.Errorf("group sizes %v, want sorted [10 20 40]", gr.GroupSizes)
+	}
+	if p := gr.SampleSize["clear"]; p == nil || *p != 10 {
+		t.Errorf("sample size of clear = %v, want 10", p)
+	}
+	for g, name := range gens[1:] {
+		if p := gr.SampleSize[name]; p != nil {
+			t.Errorf("sample size of %s = %d, want null", name, *p)
+		}
+		if want := "no group size tried (10, 20, 40) reaches 80% for " + name; !strings.HasPrefix(gr.Summary[g+1], want) {
+			t.Errorf("summary %q, want it to start with %q", gr.Summary[g+1], want)
+		}
+		for n, v := range gr.Recovery[g+1] {
+			if v != 0 {
+				t.Errorf("%s at N=%d: rate %v, want 0", name, gr.GroupSizes[n], v)
+			}
+		}
+	}
+	if !strings.Contains(gr.Summary[1], "; at N = 40 the group analysis names ") || !strings.HasSuffix(gr.Summary[2], "(0% at every size)") {
+		t.Errorf("summaries %q and %q: want a rival named for worse and none for same (tied α has no winner)", gr.Summary[1], gr.Summary[2])
+	}
+	if want := "clear is identified by the group analysis in 100% of replicate studies from N = 10"; gr.Summary[0] != want {
+		t.Errorf("summary %q, want %q", gr.Summary[0], want)
+	}
+	b, err := json.Marshal(gr)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !strings.Contains(string(b), `"sample_size":{"clear":10,"same":null,"worse":null}`) {
+		t.Errorf("JSON sample_size block missing or wrong: %s", b)
+	}
+}
+
+// TestGroupSkipsAndDrops: sizes above the pool are skipped with a note and
+// null rates; participants with a failed fit are left out of their group
+// and counted, at about the pool's share of them (hypergeometric mean).
+func TestGroupSkipsAndDrops(t *testing.T) {
+	gens := []string{"a", "b"}
+	pa := controlledPool(3, 30, 2, 0, 50, 1)
+	for i := 0; i < 30; i += 3 {
+		pa[i][1] = math.NaN() // a third of the pool failed under candidate b
+	}
+	pb := controlledPool(4, 30, 2, 1, 50, 1)
+	r := models.Replication{GroupSizes: []int{20, 40}, Replicates: 200, PXPThreshold: 0.95, TargetRate: 0.8}
+	gr := sweepOne(6, gens, [][][]float64{pa, pb}, r, 1)
+	for g := range gens {
+		if v := float64(gr.Recovery[g][1]); !math.IsNaN(v) {
+			t.Errorf("%s at N=40 from a pool of 30: rate %v, want NaN (skipped)", gens[g], v)
+		}
+		if v := float64(gr.Recovery[g][0]); v != 1 {
+			t.Errorf("%s at N=20: rate %v, want 1 (50 nats per participant)", gens[g], v)
+		}
+	}
+	share := float64(gr.Dropped[0][0]) / float64(20*r.Replicates)
+	if math.Abs(share-1.0/3) > 0.02 || gr.Dropped[1][0] != 0 {
+		t.Errorf("dropped %v, want about a third of a's 4000 draws and none of b's", gr.Dropped)
+	}
+	notes := strings.Join(gr.Notes, "\n")
+	for _, want := range []string{"Group size 40 skipped for a: larger than its pool of 30", "participant draws had a failed or non-finite fit", "no refitting"} {
+		if !strings.Contains(notes, want) {
+			t.Errorf("notes lack %q:\n%s", want, notes)
+		}
+	}
+	b, _ := json.Marshal(gr)
+	if !strings.Contains(string(b), `"recovery":[[1,null],[1,null]]`) {
+		t.Errorf("skipped sizes not null in JSON: %s", b)
+	}
+	if gr.BMSRuns != 2*r.Replicates {
+		t.Errorf("BMS runs %d, want %d", gr.BMSRuns, 2*r.Replicates)
+	}
+}
+
+// TestGroupDeterministic: the same seed gives the same report with 1 and 3
+// workers and on a second run; another seed draws other groups.
+func TestGroupDeterministic(t *testing.T) {
+	gens := []string{"a", "b", "c"}
+	var pools [][][]float64
+	for g := range gens {
+		pools = append(pools, controlledPool(uint64(300+g), 50, 3, g, 0.8, 2))
+	}
+	r := models.Replication{GroupSizes: []int{5, 15, 30}, Replicates: 100, PXPThreshold: 0.9, TargetRate: 0.8}
+	a := sweepOne(7, gens, pools, r, 1)
+	b := sweepOne(7, gens, pools, r, 3)
+	c := sweepOne(7, gens, pools, r, 3)
+	if !reflect.DeepEqual(a, b) || !reflect.DeepEqual(b, c) {
+		t.Errorf("same seed, different group reports:\n%+v\n%+v", a, b)
+	}
+	d := sweepOne(8, gens, pools, r, 3)
+	if reflect.DeepEqual(a.Successes, d.Successes) {
+		t.Errorf("seeds 7 and 8 give identical successes %v", a.Successes)
+	}
+}
+
+func TestCheckReplication(t *testing.T) {
+	ok := models.Replication{GroupSizes: []int{10}, Replicates: 5, PXPThreshold: 0.95, TargetRate: 0.8}
+	if err := checkReplication(ok); err != nil {
+		t.Fatal(err)
+	}
+	for _, c := range []struct {
+		name, field string
+		edit        func(*models.Replication)
+	}{
+		{"no sizes", "replication.group_sizes", func(r *models.Replication) { r.GroupSizes = nil }},
+		{"zero size", "replication.group_sizes[1]", func(r *models.Replication) { r.GroupSizes = []int{5, 0} }},
+		{"no replicates", "replication.replicates", func(r *models.Replication) { r.Replicates = 0 }},
+		{"threshold 1", "replication.pxp_threshold", func(r *models.Replication) { r.PXPThreshold = 1 }},
+		{"target 0", "replication.target_rate", func(r *models.Replication) { r.TargetRate = 0 }},
+	} {
+		t.Run(c.name, func(t *testing.T) {
+			r := ok
+			r.GroupSizes = []int{10}
+			c.edit(&r)
+			if err := checkReplication(r); err == nil || !strings.Contains(err.Error(), c.field) {
+				t.Errorf("error %v, want one naming %s", err, c.field)
+			}
+		})
+	}
+}
+
+func TestExceedanceQuadraturePanics(t *testing.T) {
+	for _, c := range []struct {
+		name string
+		f    func()
+	}{
+		{"one model", func() { ExceedanceQuadrature([]float64{1}, 0) }},
+		{"k out of range", func() { ExceedanceQuadrature([]float64{1, 2, 3}, 3) }},
+		{"zero alpha", func() { ExceedanceQuadrature([]float64{1, 0, 3}, 0) }},
+		{"NaN alpha", func() { ExceedanceQuadrature([]float64{1, math.NaN(), 3}, 0) }},
+		{"BMSQuadrature NaN evidence", func() { BMSQuadrature([][]float64{{1, math.NaN()}}) }},
+		{"BMSQuadrature no participants", func() { BMSQuadrature(nil) }},
+	} {
+		t.Run(c.name, func(t *testing.T) { statsMustPanic(t, c.f) })
+	}
+}
+
+// rankedDesign builds a design report with the given BIC normalised MI,
+// confusion diagonal, parameter r values and cost.
+func rankedDesign(name string, nmi float64, diag []float64, rs []float64, minutes float64, trials int) DesignReport {
+	conf := make([][]Num, len(diag))
+	for i, d := range diag {
+		conf[i] = make([]Num, len(diag))
+		for j := range conf[i] {
+			conf[i][j] = Num((1 - d) / float64(len(diag)-1))
+		}
+		conf[i][i] = Num(d)
+	}
+	var pr []ParamRecoveryReport
+	for _, r := range rs {
+		pr = append(pr, ParamRecoveryReport{R: Num(r)})
+	}
+	return DesignReport{Name: name, MinutesPerSubject: minutes, TrialsPerSubject: trials, ParamRecovery: pr,
+		Criteria: map[string]CriterionReport{"bic": {Confusion: conf, NormalizedMI: Num(nmi)}}}
+}
+
+// TestRankDesigns: the order follows normalised MI, then (within 0.01) the
+// worst diagonal, then mean parameter r (NaN skipped), then fewer minutes,
+// whatever the order the designs are listed in (model.md §8).
+func TestRankDesigns(t *testing.T) {
+	nan := math.NaN()
+	for _, c := range []struct {
+		name    string
+		designs []DesignReport
+		want    []string
+		verdict []string
+	}{
+		{"MI decides", []DesignReport{
+			rankedDesign("behaviour", 0.55, []float64{0.4, 0.9}, []float64{0.8}, 13.3, 160),
+			rankedDesign("behaviour-eeg", 0.71, []float64{0.62, 0.9}, []float64{0.85}, 13.3, 160),
+		}, []string{"behaviour-eeg", "behaviour"}, []string{
+			"Prefer behaviour-eeg over behaviour: it carries more information",
+			"Normalised MI 0.71 vs 0.55, worst-case recovery 0.62 vs 0.40, mean parameter r 0.85 vs 0.80, at the same 13.3 minutes per participant.",
+		}},
+		{"MI tie, worst diagonal decides", []DesignReport{
+			rankedDesign("a", 0.705, []float64{0.40, 0.95}, []float64{0.9}, 10, 100),
+			rankedDesign("b", 0.700, []float64{0.62, 0.80}, []float64{0.5}, 12, 120),
+		}, []string{"b", "a"}, []string{"normalised MI ties within 0.01", "at 12.0 vs 10.0 minutes (120 vs 100 trials) per participant"}},
+		{"MI and diagonal tie, parameter r decides", []DesignReport{
+			rankedDesign("a", 0.70, []float64{0.6, 0.9}, []float64{0.5, nan}, 10, 100),
+			rankedDesign("b", 0.70, []float64{0.6, 0.9}, []float64{0.7, nan, 0.9}, 12, 120),
+		}, []string{"b", "a"}, []string{"parameters are recovered better", "mean parameter r 0.80 vs 0.50"}},
+		{"all tie, fewer minutes", []DesignReport{
+			rankedDesign("long", 0.70, []float64{0.6, 0.9}, []float64{0.8}, 20, 200),
+			rankedDesign("short", 0.705, []float64{0.6, 0.9}, []float64{0.8}, 10, 100),
+		}, []string{"short", "long"}, []string{"in less testing time"}},
+		{"NaN MI last, three designs", []DesignReport{
+			rankedDesign("broken", nan, []float64{nan, nan}, nil, 5, 50),
+			rankedDesign("mid", 0.5, []float64{0.5, 0.5}, []float64{0.5}, 5, 50),
+			rankedDesign("top", 0.9, []float64{0.9, 0.9}, []float64{0.9}, 5, 50),
+		}, []string{"top", "mid", "broken"}, []string{"Prefer top over mid, the runner-up of 3 designs"}},
+		{"one design", []DesignReport{rankedDesign("only", 0.6, []float64{0.5, 0.7}, []float64{0.7}, 13.3, 160)},
+			[]string{"only"}, []string{"Only one design, only: normalised MI 0.60, worst-case recovery 0.50, mean parameter r 0.70, at 13.3 minutes (160 trials) per participant."}},
+	} {
+		t.Run(c.name, func(t *testing.T) {
+			rep := &Report{Designs: c.designs}
+			rankDesigns(rep)
+			var got []string
+			for i, r := range rep.Ranking {
+				got = append(got, r.Design)
+				if r.Rank != i+1 {
+					t.Errorf("row %d has rank %d", i, r.Rank)
+				}
+			}
+			if !reflect.DeepEqual(got, c.want) || rep.Preferred != c.want[0] {
+				t.Errorf("order %v, preferred %q; want %v", got, rep.Preferred, c.want)
+			}
+			for _, w := range c.verdict {
+				if !strings.Contains(rep.Verdict, w) {
+					t.Errorf("verdict %q lacks %q", rep.Verdict, w)
+				}
+			}
+			// The listed order must not matter.
+			rev := &Report{}
+			for i := len(c.designs) - 1; i >= 0; i-- {
+				rev.Designs = append(rev.Designs, c.designs[i])
+			}
+			rankDesigns(rev)
+			a, _ := json.Marshal(rep.Ranking)
+			b, _ := json.Marshal(rev.Ranking)
+			if string(a) != string(b) {
+				t.Errorf("reversed input ranks %+v, want %+v", rev.Ranking, rep.Ranking)
+			}
+		})
+	}
+	rep := &Report{Designs: []DesignReport{rankedDesign("x", 0.6, []float64{0.5, 0.7}, []float64{0.7, nan}, 12, 160)}}
+	rankDesigns(rep)
+	r := rep.Ranking[0]
+	if r.WorstDiagonal != 0.5 || r.ParameterR != 0.7 || r.TrialsPerParticipant != 160 || !scalar.EqualWithinAbs(float64(r.NormalizedMIPerMinute), 0.05, 1e-12) {
+		t.Errorf("row %+v: want worst diagonal 0.5, parameter r 0.7 (NaN skipped), 160 trials, 0.05 MI per minute", r)
+	}
+}
+
+// demoRun runs the demo study once per test binary.
+var demoRun = sync.OnceValues(func() (*Report, error) {
+	data, err := os.ReadFile("../testdata/studies/radio-watch.json")
+	if err != nil {
+		return nil, err
+	}
+	s, err := models.LoadStudy(data)
+	if err != nil {
+		return nil, err
+	}
+	return Run(context.Background(), s, Options{})
+})
+
+// TestDemoGroupAndRanking: the demo study's two designs are ranked with
+// numbers, each has a group report for 6 generators × 3 sizes whose curves
+// are monotone in N up to 2 binomial SEs, and the sweep (timed again on the
+// stored fits) costs under 10% of the run.
+func TestDemoGroupAndRanking(t *testing.T) {
+	if testing.Short() {
+		t.Skip("runs the demo study")
+	}
+	rep, err := demoRun()
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(rep.Ranking) != 2 || rep.Preferred != rep.Ranking[0].Design {
+		t.Fatalf("ranking %+v, preferred %q", rep.Ranking, rep.Preferred)
+	}
+	for _, r := range rep.Ranking {
+		for _, v := range []Num{r.NormalizedMI, r.WorstDiagonal, r.ParameterR} {
+			if math.IsNaN(float64(v)) || v < 0 || v > 1 {
+				t.Errorf("%s: measure %v not in [0, 1]", r.Design, v)
+			}
+		}
+		if r.TrialsPerParticipant != 160 || r.MinutesPerParticipant <= 0 {
+			t.Errorf("%s: %d trials, %v minutes", r.Design, r.TrialsPerParticipant, r.MinutesPerParticipant)
+		}
+		if !strings.Contains(rep.Verdict, f2(r.NormalizedMI)) {
+			t.Errorf("verdict %q lacks normalised MI %s of %s", rep.Verdict, f2(r.NormalizedMI), r.Design)
+		}
+	}
+	t.Logf("ranking: %+v\n%s", rep.Ranking, rep.Verdict)
+	for _, d := range rep.Designs {
+		g := d.Group
+		if g == nil || len(g.Recovery) != 6 || len(g.GroupSizes) != 3 || g.BMSRuns != 6*3*500 {
+			t.Fatalf("%s: group report %+v", d.Name, g)
+		}
+		for gi, row := range g.Recovery {
+			for n := 1; n < len(row); n++ {
+				p0, p1 := float64(row[n-1]), float64(row[n])
+				se := math.Sqrt((p0*(1-p0) + p1*(1-p1)) / float64(g.Replicates))
+				if p1 < p0-2*se {
+					t.Errorf("%s, %s: rate falls from %v to %v (2 SE = %v)", d.Name, g.Generators[gi], p0, p1, 2*se)
+				}
+			}
+		}
+		t.Logf("%s: %v\n%s\n%s", d.Name, g.Recovery, strings.Join(g.Summary, "\n"), strings.Join(g.Notes, "\n"))
+	}
+
+	// Rebuild the per-generator pools from the stored fits and time the
+	// sweep alone; it must also reproduce the report's group sections.
+	s := rep.StudyFile
+	designs, err := s.ExpandedDesigns()
+	if err != nil {
+		t.Fatal(err)
+	}
+	c := &Compiled{Study: s, Designs: designs}
+	byDesign := make([][][]ParticipantResult, len(designs))
+	index := map[string]int{}
+	for i, h := range s.Hypotheses {
+		index[h.Name] = i
+	}
+	for di, rows := range rep.Fits {
+		byDesign[di] = make([][]ParticipantResult, len(s.Hypotheses))
+		for _, r := range rows {
+			g := index[r.Fits[0].Generator]
+			byDesign[di][g] = append(byDesign[di][g], ParticipantResult{Participant: r.Fits[0].Participant, Truth: r.Truth, Fits: r.Fits})
+		}
+	}
+	again := &Report{Designs: make([]DesignReport, len(designs))}
+	start := time.Now()
+	if err := c.groupLevel(again, byDesign); err != nil {
+		t.Fatal(err)
+	}
+	sweep := time.Since(start).Seconds()
+	for di := range designs {
+		if !reflect.DeepEqual(again.Designs[di].Group, rep.Designs[di].Group) {
+			t.Errorf("%s: the sweep on the stored fits differs from the report's", designs[di].Name)
+		}
+	}
+	total := rep.Timing.TotalSeconds
+	t.Logf("group sweep %.3f s of a %.1f s run (%.1f%%)", sweep, total, 100*sweep/total)
+	if sweep > 0.1*total {
+		t.Errorf("group sweep took %.3f s, over 10%% of the run's %.1f s", sweep, total)
+	}
+	js, err := rep.JSON()
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, key := range []string{`"design_ranking"`, `"preferred_design"`, `"sample_size"`, `"group_sizes"`, `"ci_low"`} {
+		if !strings.Contains(string(js), key) {
+			t.Errorf("report.json lacks %s", key)
+		}
+	}
+}
+
+// BenchmarkGroupSweep: one design, 6 generators × 100 participants × 6
+// candidates, 3 sizes × 500 replicates (9,000 group analyses), all cores.
+//
+//	go test ./recovery -run XXX -bench GroupSweep
+func BenchmarkGroupSweep(b *testing.B) {
+	gens := []string{"g0", "g1", "g2", "g3", "g4", "g5"}
+	dp := designPools{Name: "bench"}
+	for g := range gens {
+		dp.Pools = append(dp.Pools, newEvidencePool(controlledPool(uint64(400+g), 100, 6, g, 1+0.5*float64(g), 3), 6))
+	}
+	r := models.Replication{GroupSizes: []int{10, 20, 40}, Replicates: 500, PXPThreshold: 0.95, TargetRate: 0.8}
+	for b.Loop() {
+		sweepGroups(1, gens, []designPools{dp}, r, runtime.GOMAXPROCS(0))
+	}
+}
+
+// TestVaryDesignsRanked: a vary block expands one design into variants
+// (models.Study.ExpandedDesigns); each is run, gets a group report and a
+// row of the ranking, and the verdict names the preferred variant.
+func TestVaryDesignsRanked(t *testing.T) {
+	if testing.Short() {
+		t.Skip("runs a study")
+	}
+	s := mustStudy(t, `{
+	  "name": "vary trials (invented)", "seed": 13,
+	  "designs": [{"name": "watch", "cti_ms": [300, 600, 900, 1200], "participants": 12, "measures": ["rt", "accuracy"],
+	               "vary": [{"field": "trials_per_cti", "values": [8, 80], "labels": ["short", "long"]}]}],
+	  "hypotheses": [
+	    {"name": "flat", "family": "constant", "params": {"level": {"min": 0.3, "max": 1.5}}},
+	    {"name": "ramp", "family": "linear", "params": {"slope": {"min": 0.5, "max": 3}}}
+	  ],
+	  "replication": {"group_sizes": [4, 12], "replicates": 50}
+	}`)
+	rep, err := Run(context.Background(), s, Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(rep.Designs) != 2 || len(rep.Ranking) != 2 {
+		t.Fatalf("%d designs, %d ranking rows; want 2 variants", len(rep.Designs), len(rep.Ranking))
+	}
+	names := map[string]int{}
+	for _, r := range rep.Ranking {
+		names[r.Design] = r.TrialsPerParticipant
+	}
+	if names["watch/short"] != 32 || names["watch/long"] != 320 {
+		t.Errorf("ranking rows %+v, want watch/short (32 trials) and watch/long (320 trials)", rep.Ranking)
+	}
+	for _, d := range rep.Designs {
+		if d.Group == nil || len(d.Group.Recovery) != 2 || !reflect.DeepEqual(d.Group.GroupSizes, []int{4, 12}) {
+			t.Errorf("%s: group report %+v", d.Name, d.Group)
+		}
+	}
+	if !strings.HasPrefix(rep.Verdict, "Prefer "+rep.Preferred+" over ") {
+		t.Errorf("verdict %q does not start with the preferred design %q", rep.Verdict, rep.Preferred)
+	}
+	t.Logf("%+v\n%s", rep.Ranking, rep.Verdict)
+}

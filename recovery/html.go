@@ -1,0 +1,520 @@
+package recovery
+
+import (
+	"bytes"
+	_ "embed"
+	"fmt"
+	"html/template"
+	"math"
+	"sort"
+	"strconv"
+	"strings"
+
+	"gonum.org/v1/plot/vg/draw"
+
+	"discrimen/models"
+)
+
+//go:embed templates/report.html.tmpl
+var reportTemplateText string
+
+var reportTemplate = template.Must(template.New("report").Funcs(template.FuncMap{
+	"prob": func(v Num) string { return fmtProb(float64(v)) },
+	"g3":   func(v Num) string { return fmtG(float64(v), 3) },
+	"pct":  func(v Num) string { return fmtPct(float64(v)) },
+	"f1":   func(v float64) string { return strconv.FormatFloat(v, 'f', 1, 64) },
+	"f2":   func(v float64) string { return strconv.FormatFloat(v, 'f', 2, 64) },
+	"g3f":  func(v float64) string { return fmtG(v, 3) },
+	"join": strings.Join,
+	"css":  func(s string) template.CSS { return template.CSS(s) },
+}).Parse(reportTemplateText))
+
+// fmtProb prints a probability with two decimals, as in the heat maps.
+func fmtProb(v float64) string {
+	if !finite(v) {
+		return "—"
+	}
+	return strings.Replace(strconv.FormatFloat(v, 'f', 2, 64), "-", "−", 1)
+}
+
+// fmtG prints v with the given significant digits, or a dash when it is
+// not a number.
+func fmtG(v float64, digits int) string {
+	if !finite(v) {
+		return "—"
+	}
+	if v == 0 {
+		return "0"
+	}
+	// A typographic minus sign, as in print.
+	return strings.Replace(strconv.FormatFloat(v, 'g', digits, 64), "-", "−", 1)
+}
+
+func fmtPct(v float64) string {
+	if !finite(v) {
+		return "—"
+	}
+	return strconv.FormatFloat(100*v, 'f', 0, 64) + "%"
+}
+
+// fmtCount prints a win count: whole unless ties split a dataset.
+func fmtCount(v float64) string {
+	if !finite(v) {
+		return "—"
+	}
+	if math.Abs(v-math.Round(v)) < 1e-9 {
+		return strconv.FormatFloat(math.Round(v), 'f', 0, 64)
+	}
+	return strconv.FormatFloat(v, 'f', 1, 64)
+}
+
+// The view types below are what the template sees: every number already
+// formatted, every chart already drawn.
+
+type htmlView struct {
+	R          *Report
+	Hypotheses []hypView
+	Designs    []designView
+	Ranking    []DesignRank
+	HasGroup   bool
+	Sections   []sectionLink
+	Timing     string
+}
+
+type sectionLink struct{ ID, Title string }
+
+type hypView struct {
+	Name, Family, Colour, Params string
+}
+
+type designView struct {
+	Name         string
+	Measures     string
+	Participants int
+	Trials       int
+	Minutes      float64
+	CTIs         string
+	Validity     string
+	Verdict      []string
+	Confusion    template.HTML
+	Inversion    template.HTML
+	Criteria     []criterionRow
+	Scatters     []scatterView
+	Tradeoffs    []TradeoffReport
+	Mimicry      []MimicryReport
+	Group        *groupView
+	PredRT       template.HTML
+	PredAcc      template.HTML
+	PredNeural   template.HTML
+	LongestCTI   int
+	Health       FitFailures
+	PerGenerator []generatorHealth
+	Surrogate    []SurrogateError
+	Ranked       bool
+}
+
+type criterionRow struct {
+	Name                 string
+	Rate, MIBits, NormMI Num
+	Datasets             int
+}
+
+type scatterView struct {
+	Chart template.HTML
+	P     ParamRecoveryReport
+	Fails int
+}
+
+type groupView struct {
+	Chart        template.HTML
+	Confusion    template.HTML
+	ConfusionN   int
+	Replicates   int
+	Sizes        string
+	Rows         []sampleRow
+	Target       string
+	Threshold    string
+	Summary      []string
+	Notes        []string
+	BMSRuns      int
+	Quadratures  int
+	NotConverged int
+}
+
+type sampleRow struct {
+	Hypothesis, Colour, N string
+}
+
+type generatorHealth struct {
+	Hypothesis string
+	Datasets   int
+	NoWinner   int
+}
+
+// HTML renders the report as one self-contained page: inline CSS and SVG,
+// no scripts, no external references. Every string from the study is
+// escaped by html/template (in the page) or by vgsvg (in the charts).
+func (r *Report) HTML() ([]byte, error) {
+	v := htmlView{R: r, Ranking: append([]DesignRank(nil), r.Ranking...)}
+	sort.SliceStable(v.Ranking, func(a, b int) bool { return v.Ranking[a].Rank < v.Ranking[b].Rank })
+	hypIndex := map[string]int{}
+	specs := map[string]models.Hypothesis{}
+	if r.StudyFile != nil {
+		for _, h := range r.StudyFile.Hypotheses {
+			specs[h.Name] = h
+		}
+	}
+	for i, name := range r.Hypotheses {
+		hypIndex[name] = i
+		fam := ""
+		if i < len(r.Families) {
+			fam = r.Families[i]
+		}
+		v.Hypotheses = append(v.Hypotheses, hypView{Name: name, Family: fam, Colour: hexColour(hypColour(i)), Params: paramSummary(specs[name])})
+	}
+	for di := range r.Designs {
+		dv, err := r.designView(di, hypIndex, specs)
+		if err != nil {
+			return nil, err
+		}
+		v.HasGroup = v.HasGroup || dv.Group != nil
+		v.Designs = append(v.Designs, dv)
+	}
+	v.Sections = []sectionLink{{"study", "Study"}, {"verdict", "Verdict"}, {"who-wins", "Who wins"}, {"who-generated", "Who generated"},
+		{"parameters", "Recovering parameters"}, {"look-alikes", "Look-alikes"}}
+	if v.HasGroup {
+		v.Sections = append(v.Sections, sectionLink{"group", "Group analysis"})
+	}
+	v.Sections = append(v.Sections, sectionLink{"predictions", "What each hypothesis predicts"}, sectionLink{"fit-health", "Fit health"},
+		sectionLink{"method", "Method notes"}, sectionLink{"limits", "What a simulation can and cannot promise"})
+	if r.Timing.TotalSeconds > 0 {
+		v.Timing = fmt.Sprintf("%d fits in %.1f s on %d workers", r.Timing.Fits, r.Timing.TotalSeconds, r.Timing.Workers)
+	}
+	var buf bytes.Buffer
+	if err := reportTemplate.Execute(&buf, v); err != nil {
+		return nil, fmt.Errorf("recovery: rendering report.html: %w", err)
+	}
+	return buf.Bytes(), nil
+}
+
+// paramSummary lists a hypothesis's parameters: free ones with range and
+// generating distribution, fixed ones with their value.
+func paramSummary(h models.Hypothesis) string {
+	if h.Params == nil {
+		return ""
+	}
+	names := make([]string, 0, len(h.Params))
+	for n := range h.Params {
+		names = append(names, n)
+	}
+	sort.Strings(names)
+	var parts []string
+	for _, n := range names {
+		p := h.Params[n]
+		switch {
+		case p.Value != nil:
+			parts = append(parts, fmt.Sprintf("%s = %s", n, fmtG(*p.Value, 4)))
+		case p.Min != nil && p.Max != nil:
+			dist := "uniform"
+			if p.Generate != nil && p.Generate.Dist != "" {
+				dist = p.Generate.Dist
+			}
+			parts = append(parts, fmt.Sprintf("%s ∈ [%s, %s], %s", n, fmtG(*p.Min, 4), fmtG(*p.Max, 4), dist))
+		}
+	}
+	return strings.Join(parts, "; ")
+}
+
+func (r *Report) findDesign(name string) *models.Design {
+	if r.StudyFile == nil {
+		return nil
+	}
+	for i := range r.StudyFile.Designs {
+		if r.StudyFile.Designs[i].Name == name {
+			return &r.StudyFile.Designs[i]
+		}
+	}
+	return nil
+}
+
+func (r *Report) designView(di int, hypIndex map[string]int, specs map[string]models.Hypothesis) (designView, error) {
+	d := &r.Designs[di]
+	dv := designView{
+		Name: d.Name, Measures: strings.Join(d.Measures, ", "), Participants: d.Participants, Trials: d.TrialsPerSubject,
+		Minutes: d.MinutesPerSubject, Verdict: d.Verdict, Tradeoffs: d.Tradeoffs, Mimicry: d.Mimicry,
+		Health: d.FitFailures, Surrogate: d.Surrogate,
+	}
+	if sd := r.findDesign(d.Name); sd != nil {
+		dv.CTIs = joinInts(sd.CTIms)
+		if sd.Validity > 0 {
+			dv.Validity = fmtG(sd.Validity, 3)
+		}
+	} else if len(d.Predictions) > 0 {
+		dv.CTIs = joinInts(d.Predictions[0].CTIms)
+	}
+	for _, rk := range r.Ranking {
+		dv.Ranked = dv.Ranked || rk.Design == d.Name
+	}
+	names := r.Hypotheses
+	for _, crit := range Criteria {
+		cr, ok := d.Criteria[crit]
+		if !ok {
+			continue
+		}
+		n := 0
+		for _, x := range cr.Datasets {
+			n += x
+		}
+		dv.Criteria = append(dv.Criteria, criterionRow{Name: criterionLabel[crit], Rate: cr.RecoveryRate, MIBits: cr.MIBits, NormMI: cr.NormalizedMI, Datasets: n})
+	}
+	if cr, ok := d.Criteria["bic"]; ok && len(cr.Confusion) == len(names) && len(names) > 0 {
+		var err error
+		dv.Confusion, err = heatmapChart(heatmapSpec{
+			Label: "Confusion matrix under BIC for design " + d.Name, Names: names, P: cr.Confusion, Counts: cr.Counts, N: cr.Datasets,
+			Lo: cr.CILow, Hi: cr.CIHigh, XLabel: "winning candidate", YLabel: "generating hypothesis",
+		})
+		if err != nil {
+			return dv, err
+		}
+		if len(cr.Inversion) == len(names) {
+			dv.Inversion, err = heatmapChart(heatmapSpec{
+				Label: "Inversion matrix under BIC for design " + d.Name, Names: names, P: cr.Inversion,
+				XLabel: "winning candidate", YLabel: "generating hypothesis",
+			})
+			if err != nil {
+				return dv, err
+			}
+		}
+		for g, name := range names {
+			gh := generatorHealth{Hypothesis: name}
+			if g < len(cr.Datasets) {
+				gh.Datasets = cr.Datasets[g]
+			}
+			if g < len(cr.Failures) {
+				gh.NoWinner = cr.Failures[g]
+			}
+			dv.PerGenerator = append(dv.PerGenerator, gh)
+		}
+	}
+	// Parameter recovery: one scatter per (hypothesis, parameter), in the
+	// order of the summary table.
+	points := map[[2]string]RecoveryPoints{}
+	for _, rp := range d.Recovery {
+		points[[2]string{rp.Hypothesis, rp.Parameter}] = rp
+	}
+	for _, pr := range d.ParamRecovery {
+		rp, ok := points[[2]string{pr.Hypothesis, pr.Parameter}]
+		sv := scatterView{P: pr}
+		if ok {
+			log := false
+			if h, ok := specs[pr.Hypothesis]; ok {
+				if p, ok := h.Params[pr.Parameter]; ok && p.Generate != nil && p.Generate.Dist == "loguniform" {
+					log = true
+				}
+			}
+			for _, e := range rp.Estimate {
+				if !finite(float64(e)) {
+					sv.Fails++
+				}
+			}
+			chart, err := scatterChart(scatterSpec{
+				Label: fmt.Sprintf("%s: %s, true against estimated", pr.Hypothesis, pr.Parameter),
+				Title: shortName(pr.Hypothesis, 24) + " · " + pr.Parameter,
+				Truth: rp.Truth, Estimate: rp.Estimate, Min: float64(rp.Min), Max: float64(rp.Max), Log: log, Flat: pr.Flat,
+				Colour: hypColour(hypIndex[pr.Hypothesis]),
+			})
+			if err != nil {
+				return dv, err
+			}
+			sv.Chart = chart
+		}
+		dv.Scatters = append(dv.Scatters, sv)
+	}
+	if d.Group != nil {
+		gv, err := r.groupView(d, names)
+		if err != nil {
+			return dv, err
+		}
+		dv.Group = gv
+	}
+	if err := predictionCharts(&dv, d.Predictions, hypIndex); err != nil {
+		return dv, err
+	}
+	return dv, nil
+}
+
+// criterionLabel is how each criterion is written in the page.
+var criterionLabel = map[string]string{"bic": "BIC", "aic": "AIC", "aicc": "AICc"}
+
+func joinInts(x []int) string {
+	s := make([]string, len(x))
+	for i, v := range x {
+		s[i] = strconv.Itoa(v)
+	}
+	return strings.Join(s, ", ")
+}
+
+// groupView draws the group recovery curves: Recovery[g][k] is the share
+// of replicate groups of size GroupSizes[k] recovering generator g.
+func (r *Report) groupView(d *DesignReport, names []string) (*groupView, error) {
+	g := d.Group
+	gv := &groupView{Replicates: g.Replicates, Sizes: joinInts(g.GroupSizes), Summary: g.Summary, Notes: g.Notes,
+		BMSRuns: g.BMSRuns, Quadratures: g.Quadratures, NotConverged: g.NotConverged}
+	rows := g.Generators
+	if len(rows) == 0 {
+		rows = names
+	}
+	colour := map[string]int{}
+	for i, n := range names {
+		colour[n] = i
+	}
+	target, threshold := g.TargetRate, g.PXPThreshold
+	if r.StudyFile != nil {
+		if target <= 0 {
+			target = r.StudyFile.Replication.TargetRate
+		}
+		if threshold <= 0 {
+			threshold = r.StudyFile.Replication.PXPThreshold
+		}
+	}
+	var hline *float64
+	if target > 0 {
+		hline = &target
+		gv.Target = fmtPct(target)
+	}
+	if threshold > 0 {
+		gv.Threshold = fmtG(threshold, 3)
+	}
+	xs := make([]float64, len(g.GroupSizes))
+	for k, n := range g.GroupSizes {
+		xs[k] = float64(n)
+	}
+	// Shift each generator's points a little sideways so that interval
+	// bars at the same group size stay apart.
+	span := 1.0
+	if len(xs) > 1 {
+		span = xs[len(xs)-1] - xs[0]
+	}
+	var series []lineSeries
+	for gi := range g.Recovery {
+		if gi >= len(rows) {
+			break
+		}
+		sr := lineSeries{Colour: hypColour(colour[rows[gi]]), Markers: true}
+		off := (float64(gi) - float64(len(g.Recovery)-1)/2) * 0.012 * span
+		for k := range g.Recovery[gi] {
+			if k >= len(xs) {
+				break
+			}
+			sr.X = append(sr.X, xs[k]+off)
+			sr.Y = append(sr.Y, float64(g.Recovery[gi][k]))
+			lo, hi := math.NaN(), math.NaN()
+			if gi < len(g.CILow) && k < len(g.CILow[gi]) {
+				lo = float64(g.CILow[gi][k])
+			}
+			if gi < len(g.CIHigh) && k < len(g.CIHigh[gi]) {
+				hi = float64(g.CIHigh[gi][k])
+			}
+			sr.Lo, sr.Hi = append(sr.Lo, lo), append(sr.Hi, hi)
+		}
+		series = append(series, sr)
+	}
+	zero, one := 0.0, 1.0
+	chart, err := lineChart(lineSpec{
+		Label: "Group recovery against group size for design " + d.Name, XLabel: "participants per group",
+		YLabel: "share of groups recovering the generator", Series: series, YMin: &zero, YMax: &one, XTicks: xs, HLine: hline, W: 380, H: 250,
+	})
+	if err != nil {
+		return nil, err
+	}
+	gv.Chart = chart
+	// The group-level confusion at the largest size that was run.
+	for k := len(g.Confusion) - 1; k >= 0 && k < len(g.GroupSizes); k-- {
+		m := g.Confusion[k]
+		if len(m) != len(rows) || len(rows) == 0 || !finite(float64(m[0][0])) {
+			continue
+		}
+		gv.ConfusionN = g.GroupSizes[k]
+		gv.Confusion, err = heatmapChart(heatmapSpec{
+			Label: fmt.Sprintf("Group-level confusion at %d participants for design %s", g.GroupSizes[k], d.Name), Names: rows, P: m,
+			XLabel: "winning candidate (protected exceedance)", YLabel: "generating hypothesis",
+		})
+		if err != nil {
+			return nil, err
+		}
+		break
+	}
+	maxN := 0
+	for _, n := range g.GroupSizes {
+		maxN = max(maxN, n)
+	}
+	for _, name := range rows {
+		row := sampleRow{Hypothesis: name, Colour: hexColour(hypColour(colour[name])), N: "—"}
+		if n, ok := g.SampleSize[name]; ok {
+			if n != nil {
+				row.N = strconv.Itoa(*n)
+			} else {
+				row.N = fmt.Sprintf("not reached by %d", maxN)
+			}
+		}
+		gv.Rows = append(gv.Rows, row)
+	}
+	return gv, nil
+}
+
+// predictionCharts draws RT and accuracy by CTI (valid solid, invalid
+// dashed) and the neural signal before the longest CTI's target.
+func predictionCharts(dv *designView, preds []models.HypothesisPrediction, hypIndex map[string]int) error {
+	if len(preds) == 0 {
+		return nil
+	}
+	var rt, acc, neural []lineSeries
+	var ctis []float64
+	longest, binMs := 0, 0
+	for _, hp := range preds {
+		c := hypColour(hypIndex[hp.Name])
+		x := make([]float64, len(hp.CTIms))
+		for i, v := range hp.CTIms {
+			x[i] = float64(v)
+			longest = max(longest, v)
+		}
+		if len(ctis) < len(x) {
+			ctis = x
+		}
+		rt = append(rt,
+			lineSeries{X: x, Y: hp.Valid.RTms, Hollow: hp.Censored.Valid, Colour: c, Markers: true},
+			lineSeries{X: x, Y: hp.Invalid.RTms, Hollow: hp.Censored.Invalid, Colour: c, Dashed: true, Markers: true, Glyph: draw.TriangleGlyph{}})
+		acc = append(acc,
+			lineSeries{X: x, Y: hp.Valid.Accuracy, Colour: c, Markers: true},
+			lineSeries{X: x, Y: hp.Invalid.Accuracy, Colour: c, Dashed: true, Markers: true, Glyph: draw.TriangleGlyph{}})
+		if n := len(hp.Neural.ByCTI); n > 0 && len(hp.Neural.ByCTI[n-1]) > 0 {
+			binMs = hp.Neural.BinMs
+			bins := hp.Neural.ByCTI[n-1]
+			t := make([]float64, len(bins))
+			for b := range bins {
+				// Bin b covers [b·B, (b+1)·B) ms after cue onset.
+				t[b] = (float64(b) + 0.5) * float64(hp.Neural.BinMs)
+			}
+			neural = append(neural, lineSeries{X: t, Y: bins, Colour: c, Markers: len(bins) <= 12})
+		}
+	}
+	dv.LongestCTI = longest
+	var err error
+	if dv.PredRT, err = lineChart(lineSpec{Label: "Predicted RT by CTI for design " + dv.Name, Title: "response time",
+		XLabel: "cue–target interval (ms)", YLabel: "RT from target onset (ms)", Series: rt, XTicks: ctis}); err != nil {
+		return err
+	}
+	zero, one := 0.0, 1.0
+	if dv.PredAcc, err = lineChart(lineSpec{Label: "Predicted accuracy by CTI for design " + dv.Name, Title: "accuracy",
+		XLabel: "cue–target interval (ms)", YLabel: "P(correct report)", Series: acc, XTicks: ctis, YMin: &zero, YMax: &one}); err != nil {
+		return err
+	}
+	if len(neural) > 0 && binMs > 0 {
+		if dv.PredNeural, err = lineChart(lineSpec{Label: "Predicted neural signal before the longest CTI for design " + dv.Name,
+			Title: fmt.Sprintf("neural signal, CTI %d ms", longest), XLabel: "time from cue onset (ms)",
+			YLabel: "expected precision − baseline", Series: neural}); err != nil {
+			return err
+		}
+	}
+	return nil
+}

@@ -1,0 +1,567 @@
+package recovery
+
+import (
+	"bytes"
+	"context"
+	"encoding/xml"
+	"fmt"
+	"image/color"
+	"io"
+	"math"
+	"regexp"
+	"strings"
+	"testing"
+
+	"gonum.org/v1/gonum/floats/scalar"
+
+	"discrimen/models"
+)
+
+// htmlScript is a hypothesis name that must come out escaped everywhere.
+const htmlScript = `switch<script>alert(1)</script>`
+
+// htmlSections are the ids and headings every full report has, in order.
+var htmlSections = []struct{ id, title string }{
+	{"study", "Study"},
+	{"verdict", "Verdict"},
+	{"who-wins", "Who wins"},
+	{"who-generated", "Who generated"},
+	{"parameters", "Recovering parameters"},
+	{"look-alikes", "Look-alikes"},
+	{"group", "Group analysis"},
+	{"predictions", "What each hypothesis predicts"},
+	{"fit-health", "Fit health"},
+	{"method", "Method notes"},
+	{"limits", "What a simulation can and cannot promise"},
+}
+
+func htmlMatrix(rows ...[]float64) [][]Num { return numMatrix(rows) }
+
+func ptr[T any](v T) *T { return &v }
+
+// htmlDesign is one hand-made design report over the hypotheses flat,
+// ramp and htmlScript, with 6 synthetic participants per generator.
+func htmlDesign(name string, measures []string, group bool) DesignReport {
+	names := []string{"flat", "ramp", htmlScript}
+	conf := htmlMatrix([]float64{1, 0, 0}, []float64{0, 5.0 / 6, 1.0 / 6}, []float64{0, 2.0 / 6, 4.0 / 6})
+	counts := htmlMatrix([]float64{6, 0, 0}, []float64{0, 5, 1}, []float64{0, 2, 4})
+	lo, hi := make([][]float64, 3), make([][]float64, 3)
+	for i := range lo {
+		lo[i], hi[i] = make([]float64, 3), make([]float64, 3)
+		for j := range lo[i] {
+			lo[i][j], hi[i][j] = WilsonInterval(float64(counts[i][j]), 6)
+		}
+	}
+	inv := htmlMatrix([]float64{1, 0, 0}, []float64{0, 5.0 / 7, 0.2}, []float64{0, 2.0 / 7, 0.8})
+	crit := CriterionReport{Confusion: conf, Counts: counts, CILow: numMatrix(lo), CIHigh: numMatrix(hi), Inversion: inv,
+		RecoveryRate: Num((1 + 5.0/6 + 4.0/6) / 3), MIBits: 0.98, NormalizedMI: 0.62, Datasets: []int{6, 6, 6}, Failures: []int{0, 0, 0}}
+	aic := crit
+	aic.RecoveryRate = 0.83
+	truth := []Num{0.5, 1, 1.5, 2, 2.5, 3}
+	est := []Num{0.6, 0.9, 1.7, 2.1, Num(math.NaN()), 2.8}
+	d := DesignReport{
+		Name: name, Measures: measures, Participants: 6, TrialsPerSubject: 90, MinutesPerSubject: 4.65,
+		Criteria: map[string]CriterionReport{"bic": crit, "aic": aic, "aicc": crit},
+		ParamRecovery: []ParamRecoveryReport{
+			{Hypothesis: "flat", Parameter: "level", N: 6, R: 0.6, Bias: 0.094, RMSE: 0.335, Slope: 0.75, Coverage: 1, MedianSE: 0.16, ReliableSEs: 3},
+			{Hypothesis: "ramp", Parameter: "slope", N: 5, R: 0.95, Bias: -0.04, RMSE: 0.26, Slope: 1.25, Coverage: 0.25, MedianSE: 0.1, ReliableSEs: 4},
+			{Hypothesis: htmlScript, Parameter: "width", N: 6, R: -0.09, Bias: 0.002, RMSE: 0.07, Slope: -0.12, Coverage: 1, Flat: true, MedianSE: 0.03, ReliableSEs: 1},
+		},
+		Recovery: []RecoveryPoints{
+			{Hypothesis: "flat", Parameter: "level", Min: 0.3, Max: 1.5, Truth: []Num{0.4, 0.7, 0.9, 1.1, 1.3, 1.45}, Estimate: []Num{0.5, 0.6, 1.0, 1.0, 1.2, 1.5}},
+			{Hypothesis: "ramp", Parameter: "slope", Min: 0.5, Max: 3, Truth: truth, Estimate: est},
+			{Hypothesis: htmlScript, Parameter: "width", Min: 0.05, Max: 0.3, Truth: []Num{0.06, 0.1, 0.15, 0.2, 0.25, 0.29}, Estimate: []Num{0.2, 0.1, 0.28, 0.07, 0.15, 0.2}},
+		},
+		Tradeoffs: []TradeoffReport{{Hypothesis: htmlScript, A: "midpoint", B: "width", R: 0.72, N: 6}},
+		Mimicry: []MimicryReport{
+			{A: "flat", B: "ramp", WhenA: QuantilesReport{N: 6, Mean: -6, Q05: -11.1, Q25: -8.8, Q50: -5.81, Q75: -1.5, Q95: -0.76}, WhenB: QuantilesReport{N: 6, Mean: 40, Q05: 21.7, Q25: 34.2, Q50: 40.1, Q75: 52.6, Q95: 53.2}},
+			{A: "ramp", B: htmlScript, WhenA: QuantilesReport{N: 6, Mean: -8, Q05: -9.6, Q25: -8.9, Q50: -8.03, Q75: -4.7, Q95: -2.6}, WhenB: QuantilesReport{N: 6, Mean: -3, Q05: -8.7, Q25: -4.4, Q50: -3.14, Q75: -1.9, Q95: 1.6}},
+		},
+		FitFailures: FitFailures{Failed: 1, NotConverged: 2, Total: 54},
+		Surrogate:   []SurrogateError{{Hypothesis: "ramp", Points: 40, GridNodes: 129, MaxRTms: 1.66, MedianRTms: 0.058, MaxAccuracy: 0.001, MaxNeural: 2e-4, MedianNeural: 1e-5}},
+		Verdict:     []string{"Under BIC this design recovers the generating hypothesis in 83% of synthetic participants.", "It cannot reliably tell apart ramp and " + htmlScript + "."},
+	}
+	for i, n := range names {
+		hp := models.HypothesisPrediction{Name: n, CTIms: []int{300, 600, 900},
+			Valid:    models.ClassOut{RTms: []float64{110 - 10*float64(i), 60, 50}, Accuracy: []float64{0.9, 0.9, 0.9}},
+			Invalid:  models.ClassOut{RTms: []float64{130, 110 + float64(i), 1500}, Accuracy: []float64{0.9, 0.5, 0.05}},
+			Neural:   models.NeuralOut{BinMs: 100, ByCTI: [][]float64{{0, 0.1, 0.2}, {0, 0.1, 0.2, 0.3, 0.4, 0.5}, {0, 0.1 * float64(i), 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8}}},
+			Censored: models.CensoredOut{Valid: []bool{false, false, false}, Invalid: []bool{false, false, true}},
+		}
+		d.Predictions = append(d.Predictions, hp)
+	}
+	if group {
+		d.Group = &GroupReport{
+			Generators: names, GroupSizes: []int{3, 6, 12}, Replicates: 20, PXPThreshold: 0.95, TargetRate: 0.8,
+			Recovery: htmlMatrix([]float64{0.5, 0.85, 0.95}, []float64{0.2, 0.4, 0.7}, []float64{0.1, 0.3, 0.45}),
+			CILow:    htmlMatrix([]float64{0.3, 0.64, 0.76}, []float64{0.08, 0.22, 0.48}, []float64{0.03, 0.15, 0.26}),
+			CIHigh:   htmlMatrix([]float64{0.7, 0.95, 0.99}, []float64{0.42, 0.61, 0.85}, []float64{0.3, 0.52, 0.65}),
+			Confusion: [][][]Num{
+				htmlMatrix([]float64{0.5, 0, 0}, []float64{0, 0.2, 0.1}, []float64{0, 0.2, 0.1}),
+				htmlMatrix([]float64{0.85, 0, 0}, []float64{0, 0.4, 0.1}, []float64{0, 0.3, 0.3}),
+				htmlMatrix([]float64{0.95, 0, 0}, []float64{0, 0.7, 0.1}, []float64{0, 0.35, 0.45}),
+			},
+			SampleSize: map[string]*int{"flat": ptr(6), "ramp": nil, htmlScript: nil},
+			Summary:    []string{"6 participants suffice for flat", "no group size tried (3, 6, 12) reaches 80% for ramp"},
+			Notes:      []string{"Replicates draw participants without replacement."},
+			BMSRuns:    180, Quadratures: 3,
+		}
+	}
+	return d
+}
+
+// htmlReport is a hand-made report: 3 hypotheses, 2 designs, group
+// analysis on the first, and a ranking.
+func htmlReport(group bool) *Report {
+	lo, hi, v := 0.05, 0.3, 0.2
+	study := &models.Study{Name: "radio watch <b>(invented)</b>", Seed: 7,
+		Designs: []models.Design{{Name: "behaviour", CTIms: []int{300, 600, 900}, Validity: 0.75}},
+		Hypotheses: []models.Hypothesis{
+			{Name: "flat", Family: "constant", Params: map[string]models.Param{"level": {Min: ptr(0.3), Max: ptr(1.5)}}},
+			{Name: "ramp", Family: "linear", Params: map[string]models.Param{"slope": {Min: ptr(0.5), Max: ptr(3.0), Generate: &models.Generate{Dist: "loguniform"}}}},
+			{Name: htmlScript, Family: "logistic", Params: map[string]models.Param{"width": {Min: &lo, Max: &hi}, "midpoint": {Value: &v}}},
+		},
+		Replication: models.Replication{GroupSizes: []int{3, 6, 12}, Replicates: 20, PXPThreshold: 0.95, TargetRate: 0.8},
+	}
+	r := &Report{Study: study.Name, Seed: 7, Version: Version, Hypotheses: []string{"flat", "ramp", htmlScript},
+		Families: []string{"constant", "linear", "logistic"}, StudyFile: study,
+		Designs: []DesignReport{htmlDesign("behaviour", []string{"rt", "accuracy"}, group), htmlDesign("behaviour+eeg", []string{"rt", "accuracy", "eeg"}, false)},
+	}
+	if group {
+		r.Ranking = []DesignRank{
+			{Design: "behaviour+eeg", Rank: 2, NormalizedMI: 0.55, WorstDiagonal: 0.6, ParameterR: 0.7, TrialsPerParticipant: 90, MinutesPerParticipant: 4.65, NormalizedMIPerMinute: 0.118},
+			{Design: "behaviour", Rank: 1, NormalizedMI: 0.62, WorstDiagonal: 0.67, ParameterR: 0.8, TrialsPerParticipant: 90, MinutesPerParticipant: 4.65, NormalizedMIPerMinute: 0.133},
+		}
+		r.Preferred = "behaviour"
+		r.Verdict = "behaviour tells the hypotheses apart best for the same testing time."
+	}
+	return r
+}
+
+func renderHTML(t *testing.T, r *Report) string {
+	t.Helper()
+	b, err := r.HTML()
+	if err != nil {
+		t.Fatal(err)
+	}
+	return string(b)
+}
+
+// sectionBody returns the text of the section with the given id.
+func sectionBody(t *testing.T, page, id string) string {
+	t.Helper()
+	start := strings.Index(page, `<section id="`+id+`">`)
+	if start < 0 {
+		t.Fatalf("no section %q", id)
+	}
+	end := strings.Index(page[start:], "</section>")
+	if end < 0 {
+		t.Fatalf("section %q is not closed", id)
+	}
+	return page[start : start+end]
+}
+
+// htmlVoid lists the HTML elements that have no end tag.
+var htmlVoid = map[string]bool{"meta": true, "br": true, "link": true, "img": true, "hr": true, "input": true}
+
+// checkWellNested reads the page with encoding/xml in its lenient mode and
+// checks that every element is closed by its own end tag.
+func checkWellNested(t *testing.T, page string) {
+	t.Helper()
+	dec := xml.NewDecoder(strings.NewReader(page))
+	dec.Strict = false
+	dec.Entity = xml.HTMLEntity
+	var stack []string
+	elements := 0
+	for {
+		tok, err := dec.RawToken()
+		if err == io.EOF {
+			break
+		}
+		if err != nil {
+			t.Fatalf("page does not parse: %v", err)
+		}
+		switch e := tok.(type) {
+		case xml.StartElement:
+			elements++
+			if !htmlVoid[e.Name.Local] {
+				stack = append(stack, e.Name.Local)
+			}
+		case xml.EndElement:
+			if htmlVoid[e.Name.Local] {
+				continue
+			}
+			if len(stack) == 0 || stack[len(stack)-1] != e.Name.Local {
+				t.Fatalf("</%s> closes %v (line %d)", e.Name.Local, stack, lineOf(dec, page))
+			}
+			stack = stack[:len(stack)-1]
+		}
+	}
+	if len(stack) != 0 {
+		t.Fatalf("unclosed elements %v", stack)
+	}
+	if elements < 200 {
+		t.Fatalf("only %d elements: the page is nearly empty", elements)
+	}
+}
+
+func lineOf(dec *xml.Decoder, page string) int {
+	return strings.Count(page[:min(int(dec.InputOffset()), len(page))], "\n") + 1
+}
+
+var svgFragment = regexp.MustCompile(`(?s)<svg .*?</svg>`)
+
+// checkSVGs parses every inline SVG strictly as XML and returns how many
+// there are and their text content.
+func checkSVGs(t *testing.T, page string) (int, string) {
+	t.Helper()
+	frags := svgFragment.FindAllString(page, -1)
+	var text strings.Builder
+	for i, f := range frags {
+		dec := xml.NewDecoder(strings.NewReader(f))
+		root := ""
+		for {
+			tok, err := dec.Token()
+			if err == io.EOF {
+				break
+			}
+			if err != nil {
+				t.Fatalf("SVG %d does not parse as XML: %v", i, err)
+			}
+			switch e := tok.(type) {
+			case xml.StartElement:
+				if root == "" {
+					root = e.Name.Local
+					if e.Name.Space != "http://www.w3.org/2000/svg" {
+						t.Errorf("SVG %d namespace %q", i, e.Name.Space)
+					}
+					vb := false
+					for _, a := range e.Attr {
+						vb = vb || a.Name.Local == "viewBox"
+					}
+					if !vb {
+						t.Errorf("SVG %d has no viewBox", i)
+					}
+				}
+			case xml.CharData:
+				text.Write(e)
+				text.WriteByte('\n')
+			}
+		}
+		if root != "svg" {
+			t.Fatalf("fragment %d has root %q", i, root)
+		}
+	}
+	return len(frags), text.String()
+}
+
+func TestHTMLReport(t *testing.T) {
+	page := renderHTML(t, htmlReport(true))
+	if !strings.HasPrefix(page, "<!DOCTYPE html>") || !strings.HasSuffix(strings.TrimSpace(page), "</html>") {
+		t.Fatal("page is not a whole HTML document")
+	}
+	checkWellNested(t, page)
+
+	// Every section, in order, with its heading.
+	last := -1
+	for _, s := range htmlSections {
+		at := strings.Index(page, `<section id="`+s.id+`">`)
+		if at < 0 {
+			t.Fatalf("no section id %q", s.id)
+		}
+		if at < last {
+			t.Errorf("section %q out of order", s.id)
+		}
+		last = at
+		if !strings.Contains(sectionBody(t, page, s.id), "<h2>"+s.title+"</h2>") {
+			t.Errorf("section %q lacks <h2>%s</h2>", s.id, s.title)
+		}
+	}
+
+	// Charts: 2 designs × (confusion, inversion, 3 scatters, RT, accuracy,
+	// neural) + the first design's group curves and group confusion.
+	n, svgText := checkSVGs(t, page)
+	if want := 2*8 + 2; n != want {
+		t.Errorf("%d inline SVGs, want %d", n, want)
+	}
+	// A confusion cell as printed: P = 1/6 → 0.17 with 1 of 6 wins and its
+	// Wilson interval.
+	wins := sectionBody(t, page, "who-wins")
+	loW, hiW := WilsonInterval(1, 6)
+	for _, want := range []string{">0.17</text>", ">1/6</text>", fmt.Sprintf(">%.2f–%.2f</text>", loW, hiW), ">0.83</text>"} {
+		if !strings.Contains(wins, want) {
+			t.Errorf("who-wins lacks %q", want)
+		}
+	}
+	// The criterion table: BIC recovery rate (1 + 5/6 + 4/6)/3 = 0.83, AIC's.
+	if !regexp.MustCompile(`<td>AIC</td><td class="num">0.83</td>`).MatchString(wins) {
+		t.Error("criterion table lacks AIC's recovery rate")
+	}
+	if !strings.Contains(sectionBody(t, page, "who-generated"), ">0.71</text>") {
+		t.Error("inversion matrix lacks 5/7 = 0.71")
+	}
+
+	// No reference leaves the page, except namespace names.
+	for _, m := range regexp.MustCompile(`https?://[^\s"'<>)]*`).FindAllString(page, -1) {
+		if m != "http://www.w3.org/2000/svg" && m != "http://www.w3.org/1999/xhtml" {
+			t.Errorf("external reference %q", m)
+		}
+	}
+	for _, bad := range []string{"<script", "<link", "<img", "@import", "url("} {
+		if strings.Contains(strings.ToLower(page), bad) {
+			t.Errorf("page contains %q", bad)
+		}
+	}
+	// The hostile name is escaped in the page and in the charts.
+	if !strings.Contains(page, "switch&lt;script&gt;alert(1)&lt;/script&gt;") {
+		t.Error("escaped hypothesis name missing from the page")
+	}
+	// Charts shorten long names; the decoded SVG text holds the name.
+	if !strings.Contains(svgText, shortName(htmlScript, 22)) || !strings.Contains(svgText, "switch<script>") {
+		t.Error("hypothesis name missing from the charts' text")
+	}
+	if strings.Contains(page, "<b>(invented)</b>") || !strings.Contains(page, "&lt;b&gt;(invented)&lt;/b&gt;") {
+		t.Error("study name not escaped")
+	}
+
+	// Group analysis and ranking are rendered.
+	grp := sectionBody(t, page, "group")
+	for _, want := range []string{"not reached by 12", `<td class="num">6</td>`, "180 group analyses", "6 participants suffice for flat"} {
+		if !strings.Contains(grp, want) {
+			t.Errorf("group section lacks %q", want)
+		}
+	}
+	verdict := sectionBody(t, page, "verdict")
+	if !strings.Contains(verdict, `<tr class="best"><td class="num">1</td><td>behaviour</td>`) {
+		t.Error("ranking table does not list the preferred design first")
+	}
+	if !strings.Contains(verdict, "Preferred design: behaviour.") {
+		t.Error("preferred design missing")
+	}
+	// Parameter summaries, a failed fit, the flat flag and the method notes.
+	params := sectionBody(t, page, "parameters")
+	for _, want := range []string{"r = 0.95", "coverage = 25%", "1 failed", "poorly identified", "bias = −0.04"} {
+		if !strings.Contains(params, want) {
+			t.Errorf("parameters section lacks %q", want)
+		}
+	}
+	method := sectionBody(t, page, "method")
+	for _, want := range []string{"Akaike 1974", "Schwarz 1978", "eLife 8:e49547", "J. Math. Psychol. 48:28", "NeuroImage 46:1004", "NeuroImage 84:971", "inter-trial interval of 1 s"} {
+		if !strings.Contains(method, want) {
+			t.Errorf("method notes lack %q", want)
+		}
+	}
+	// A median ΔBIC that favours the non-generator is highlighted: when
+	// htmlScript generates, ΔBIC(ramp − it) has median −3.14 < 0.
+	if !strings.Contains(sectionBody(t, page, "look-alikes"), `<td class="num swap">−3.14</td>`) {
+		t.Error("look-alike swap not highlighted")
+	}
+	if !strings.Contains(sectionBody(t, page, "study"), "width ∈ [0.05, 0.3], uniform; midpoint") &&
+		!strings.Contains(sectionBody(t, page, "study"), "midpoint = 0.2; width ∈ [0.05, 0.3], uniform") {
+		t.Error("parameter summary missing")
+	}
+}
+
+// TestHTMLSkipsAbsentParts: without a group analysis or ranking those
+// parts are left out, and the rest still renders.
+func TestHTMLSkipsAbsentParts(t *testing.T) {
+	page := renderHTML(t, htmlReport(false))
+	checkWellNested(t, page)
+	if strings.Contains(page, `id="group"`) || strings.Contains(page, "#group") {
+		t.Error("group section rendered without a group report")
+	}
+	if strings.Contains(page, "Designs ranked") || strings.Contains(page, "Preferred design") {
+		t.Error("ranking rendered without a ranking")
+	}
+	n, _ := checkSVGs(t, page)
+	if n != 2*8 {
+		t.Errorf("%d SVGs, want 16", n)
+	}
+	// A report without predictions or recovery points still renders.
+	r := htmlReport(false)
+	r.StudyFile = nil
+	for i := range r.Designs {
+		r.Designs[i].Predictions = nil
+		r.Designs[i].Recovery = nil
+		r.Designs[i].Criteria = map[string]CriterionReport{}
+	}
+	page = renderHTML(t, r)
+	checkWellNested(t, page)
+	if n, _ := checkSVGs(t, page); n != 0 {
+		t.Errorf("%d SVGs from a report without data", n)
+	}
+}
+
+func TestHTMLDeterministic(t *testing.T) {
+	a, b := renderHTML(t, htmlReport(true)), renderHTML(t, htmlReport(true))
+	if a != b {
+		t.Fatal("two renderings of the same report differ")
+	}
+}
+
+// TestHTMLFromRun renders a report from a tiny real run, so that the page
+// is checked against what the engine produces (NaNs, nulls and all).
+func TestHTMLFromRun(t *testing.T) {
+	if testing.Short() {
+		t.Skip("runs a small study")
+	}
+	s, err := models.LoadStudy([]byte(htmlTinyStudy))
+	if err != nil {
+		t.Fatal(err)
+	}
+	r, err := Run(context.Background(), s, Options{Workers: 2})
+	if err != nil {
+		t.Fatal(err)
+	}
+	page := renderHTML(t, r)
+	checkWellNested(t, page)
+	for _, sct := range htmlSections {
+		if sct.id == "group" && r.Designs[0].Group == nil {
+			continue
+		}
+		sectionBody(t, page, sct.id)
+	}
+	if _, err := checkSVGsCount(page); err != nil {
+		t.Fatal(err)
+	}
+	// Each BIC confusion probability is printed in a cell.
+	wins := sectionBody(t, page, "who-wins")
+	for i, row := range r.Designs[0].Criteria["bic"].Confusion {
+		for j, p := range row {
+			if want := ">" + fmtProb(float64(p)) + "</text>"; !strings.Contains(wins, want) {
+				t.Errorf("cell (%d, %d) = %s missing", i, j, want)
+			}
+		}
+	}
+}
+
+func checkSVGsCount(page string) (int, error) {
+	n := len(svgFragment.FindAllString(page, -1))
+	if n == 0 {
+		return 0, fmt.Errorf("no charts")
+	}
+	return n, nil
+}
+
+// htmlTinyStudy is an invented study small enough to run in seconds.
+const htmlTinyStudy = `{
+  "name": "berth numbers, tiny (invented)", "seed": 11,
+  "designs": [{"name": "lamp", "cti_ms": [300, 600, 900], "trials_per_cti": 24, "participants": 6,
+               "measures": ["rt", "accuracy", "eeg"]}],
+  "hypotheses": [
+    {"name": "steady", "family": "constant", "params": {"level": {"min": 0.3, "max": 1.5}}},
+    {"name": "ramp", "family": "linear", "params": {"slope": {"min": 0.5, "max": 3, "generate": {"dist": "loguniform"}}}},
+    {"name": "expect", "family": "hazard", "params": {"weber": {"min": 0.05, "max": 0.5}, "window": {"value": 0.2}}}
+  ],
+  "replication": {"group_sizes": [3, 6], "replicates": 10}
+}`
+
+func TestHeatColourAndContrast(t *testing.T) {
+	// WCAG 2.1: black on white has contrast ratio 21, a colour with itself 1.
+	if got := contrastRatio(color.RGBA{0, 0, 0, 255}, color.RGBA{255, 255, 255, 255}); !scalar.EqualWithinAbsOrRel(got, 21, 1e-12, 1e-12) {
+		t.Errorf("contrast black/white = %v, want 21", got)
+	}
+	if got := contrastRatio(heatColour(0.3), heatColour(0.3)); !scalar.EqualWithinAbsOrRel(got, 1, 1e-12, 1e-12) {
+		t.Errorf("contrast of a colour with itself = %v, want 1", got)
+	}
+	cases := []struct {
+		name string
+		v    float64
+		want color.RGBA
+	}{
+		{"sand end takes dark text", 0, textDark},
+		{"teal end takes white text", 1, textLight},
+		{"pale sage at 0.4 takes dark text", 0.4, textDark},
+		{"teal at 0.8 takes white text", 0.8, textLight},
+	}
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			bg := heatColour(c.v)
+			got := textOn(bg)
+			if got != c.want {
+				t.Errorf("textOn(%v) = %v, want %v", bg, got, c.want)
+			}
+			// WCAG AA asks 4.5 for small text; every cell clears it.
+			if r := contrastRatio(bg, got); r < 4.5 {
+				t.Errorf("contrast %v < 4.5", r)
+			}
+		})
+	}
+	// The scale darkens monotonically, so higher probability reads darker.
+	prev := math.Inf(1)
+	for i := 0; i <= 100; i++ {
+		l := relativeLuminance(heatColour(float64(i) / 100))
+		if l > prev+1e-12 {
+			t.Fatalf("luminance rises at %d%%", i)
+		}
+		prev = l
+	}
+	// Every cell text colour clears 4.5 across the whole scale.
+	for i := 0; i <= 100; i++ {
+		bg := heatColour(float64(i) / 100)
+		if r := contrastRatio(bg, textOn(bg)); r < 4.5 {
+			t.Errorf("at %d%%: contrast %v < 4.5", i, r)
+		}
+	}
+	// The 12 hypothesis colours are distinct.
+	seen := map[color.RGBA]bool{}
+	for i := range 12 {
+		if seen[hypColour(i)] {
+			t.Errorf("colour %d repeats", i)
+		}
+		seen[hypColour(i)] = true
+	}
+}
+
+func TestNiceTicks(t *testing.T) {
+	cases := []struct {
+		name   string
+		lo, hi float64
+		want   []string
+	}{
+		{"unit probability", 0, 1, []string{"0.0", "0.2", "0.4", "0.6", "0.8", "1.0"}},
+		{"neural range", -0.05, 1.6, []string{"0.0", "0.5", "1.0", "1.5"}},
+		{"milliseconds", 40, 310, []string{"100", "200", "300"}},
+		{"quarter steps", 0, 1.2, []string{"0.00", "0.25", "0.50", "0.75", "1.00"}},
+		{"negative", -12, 3, []string{"−10", "−5", "0"}},
+	}
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			var got []string
+			for _, tk := range (niceTicks{}).Ticks(c.lo, c.hi) {
+				if tk.Label != "" {
+					got = append(got, tk.Label)
+				}
+			}
+			if strings.Join(got, " ") != strings.Join(c.want, " ") {
+				t.Errorf("labels %v, want %v", got, c.want)
+			}
+		})
+	}
+	if tk := (niceTicks{}).Ticks(1, 1); tk != nil {
+		t.Errorf("empty range gave ticks %v", tk)
+	}
+}
+
+func TestRenderSVGHeader(t *testing.T) {
+	h, err := heatmapChart(heatmapSpec{Label: `a "quoted" <label>`, Names: []string{"a", "b"},
+		P: htmlMatrix([]float64{1, 0}, []float64{0.25, 0.75})})
+	if err != nil {
+		t.Fatal(err)
+	}
+	s := string(h)
+	if !strings.HasPrefix(s, `<svg class="chart" role="img" aria-label="a &#34;quoted&#34; &lt;label&gt;" width="`) {
+		t.Errorf("header %q", s[:min(120, len(s))])
+	}
+	for _, bad := range []string{"<?xml", "<!--", "xlink"} {
+		if strings.Contains(s, bad) {
+			t.Errorf("chart contains %q", bad)
+		}
+	}
+	if !bytes.Contains([]byte(s), []byte("'Liberation Sans',Arial")) {
+		t.Error("chart font has no fallbacks")
+	}
+	if _, err := heatmapChart(heatmapSpec{Label: "ragged", Names: []string{"a", "b"}, P: htmlMatrix([]float64{1, 0}, []float64{1})}); err == nil {
+		t.Error("ragged matrix accepted")
+	}
+}
