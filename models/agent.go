@@ -220,9 +220,11 @@ func (l *Listener) NewPrediction() *Prediction {
 //
 //	ε = ln softmax(target) − v;  v ← v + ε/κ;  v ← ln softmax(v);  s = softmax(v)
 //
-// ln softmax(target) differs from target by a constant, and a constant
-// added to v vanishes in the renormalisation that follows, so the step
-// uses target itself: v ← ln softmax((1 − 1/κ)·v + target/κ).
+// Both normalisations only add constants to v, and a constant added to v
+// changes neither s nor any later step (the update is affine in v with
+// weights summing to 1), so the step keeps v unnormalised and computes
+// v ← (1 − 1/κ)·v + target/κ,  s = softmax(v). v stays bounded because the
+// update is a contraction towards target.
 func softStep(v, s, target []float64, invKappa float64) {
 	keep := 1 - invKappa
 	m := math.Inf(-1)
@@ -239,10 +241,8 @@ func softStep(v, s, target []float64, invKappa float64) {
 		s[i] = e
 		sum += e
 	}
-	ls := m + math.Log(sum)
 	inv := 1 / sum
-	for i := range v {
-		v[i] -= ls
+	for i := range s {
 		s[i] *= inv
 	}
 }

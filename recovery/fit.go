@@ -239,10 +239,15 @@ func (f *fitter) fit(s *summary, withSE bool) Fit {
 	converged := false
 	status := "no search (nothing free)"
 	evals := 0
+	type run struct {
+		theta     []float64
+		f         float64
+		status    string
+		converged bool
+	}
+	var runs []run
 	if sp.totalDims == 0 {
-		bestTheta = theta
 		best = f.negLogLik(s, sp, theta, false, nil)
-		converged = true
 	}
 	for _, start := range f.starts(s, sp) {
 		if sp.totalDims == 0 {
@@ -266,22 +271,42 @@ func (f *fitter) fit(s *summary, withSE bool) Fit {
 			continue
 		}
 		evals += res.Stats.FuncEvaluations
-		if res.F < best {
-			best = res.F
-			bestTheta = make([]float64, sp.totalDims)
-			sp.toNatural(res.X, bestTheta)
-			status = res.Status.String()
-			converged = err == nil && (res.Status == optimize.FunctionConvergence || res.Status == optimize.MethodConverge)
+		if math.IsInf(res.F, 0) || math.IsNaN(res.F) {
+			continue
+		}
+		th := make([]float64, sp.totalDims)
+		sp.toNatural(res.X, th)
+		runs = append(runs, run{theta: th, f: res.F, status: res.Status.String(),
+			converged: err == nil && (res.Status == optimize.FunctionConvergence || res.Status == optimize.MethodConverge)})
+		best = math.Min(best, res.F)
+	}
+	if sp.totalDims == 0 && !math.IsInf(best, 0) {
+		runs = append(runs, run{theta: theta, f: best, status: status, converged: true})
+	}
+	// The grid is only a surrogate: near a jump in the predictions (an
+	// invalid trial switching between recovered and misdirected) its
+	// optimum can sit on the wrong side. Every run that ends within 5 of
+	// the best surrogate value is re-scored with exact predictions and the
+	// best exact value wins.
+	var est Measurement
+	nll := math.Inf(1)
+	for _, r := range runs {
+		if r.f > best+5 {
+			continue
+		}
+		var e Measurement
+		v := f.negLogLik(s, sp, r.theta, true, &e)
+		if v < nll {
+			nll, est, bestTheta = v, e, r.theta
+			status, converged = r.status, r.converged
 		}
 	}
 	out.Status, out.Converged, out.Evaluations = status, converged, evals
-	if bestTheta == nil || math.IsInf(best, 0) {
+	if len(runs) == 0 {
 		out.Failed, out.Error = true, "no finite likelihood found: "+status
 		out.LogL, out.AIC, out.AICc, out.BIC = math.NaN(), math.NaN(), math.NaN(), math.NaN()
 		return out
 	}
-	var est Measurement
-	nll := f.negLogLik(s, sp, bestTheta, true, &est)
 	if math.IsNaN(nll) || math.IsInf(nll, 0) {
 		out.Failed, out.Error = true, "exact likelihood not finite at the optimum"
 		out.LogL, out.AIC, out.AICc, out.BIC = math.NaN(), math.NaN(), math.NaN(), math.NaN()
@@ -306,8 +331,9 @@ func (f *fitter) fit(s *summary, withSE bool) Fit {
 // numerical Hessian of −ln L (exact predictions, profiled linear terms) in
 // natural units. The exact likelihood has small kinks wherever a criterion
 // crossing moves across an iteration, so a tiny step measures the kinks,
-// not the curvature: a first pass with steps of 1% of each range gives
-// rough SEs, and the second pass uses steps of half those SEs (the scale
+// not the curvature: a first pass with steps of 1% of each range on the
+// grid surrogate gives rough SEs, and the second pass, on exact
+// predictions, uses steps of half those SEs (the scale
 // on which a 95% interval is read), checked against twice the step by
 // HessianSE. Parameters within 0.1% of a bound of their range are held
 // fixed (the Hessian of a boundary optimum is not an information matrix);
@@ -354,7 +380,18 @@ func (f *fitter) standardErrors(s *summary, sp space, theta []float64) ([]float6
 		x[k] = theta[i]
 		steps[k] = clampStep(k, 0.01*(sp.hi[i]-sp.lo[i]))
 	}
-	rough, _, _, why := HessianSE(nll, x, steps)
+	// The rough pass runs on the grid surrogate (no exact predictions):
+	// its steps span more than one grid cell, so the piecewise-linear
+	// surrogate's curvature is a fair first guess of the scale.
+	roughNLL := func(t []float64) float64 {
+		for k, i := range active {
+			full[i] = t[k]
+		}
+		hyp, lapse, ar := sp.split(full)
+		f.cache.Interpolate(hyp, f.pred, f.ws)
+		return logLik(s, f.cache.lay, f.pred, lapse, ar, nil)
+	}
+	rough, _, _, why := HessianSE(roughNLL, x, steps)
 	for k := range steps {
 		if math.IsNaN(rough[k]) || math.IsInf(rough[k], 0) {
 			return se, false, "rough pass: " + why

@@ -237,3 +237,47 @@ func TestAssembleCountsFailures(t *testing.T) {
 		t.Error("Assemble with a missing shard: want an error")
 	}
 }
+
+// TestBoxLS2 checks the bounded least squares against a brute-force search
+// over a fine grid of (b, s) ≥ 0 on cases whose unconstrained optimum lies
+// inside, beyond b = 0 and beyond s = 0.
+func TestBoxLS2(t *testing.T) {
+	cases := []struct {
+		name string
+		x, y []float64
+	}{
+		{"interior", []float64{1, 2, 3, 4}, []float64{3.1, 4.9, 7.2, 8.8}},
+		{"negative intercept", []float64{1, 2, 3, 4}, []float64{0.5, 3.1, 5.4, 8.2}},
+		{"negative slope", []float64{1, 2, 3, 4}, []float64{5, 4.2, 3.1, 2.2}},
+	}
+	for _, c := range cases {
+		var s11, s12, s22, s1y, s2y, syy float64
+		for i := range c.x {
+			s11++
+			s12 += c.x[i]
+			s22 += c.x[i] * c.x[i]
+			s1y += c.y[i]
+			s2y += c.x[i] * c.y[i]
+			syy += c.y[i] * c.y[i]
+		}
+		b, s, red := boxLS2(s11, s12, s22, s1y, s2y)
+		bestRSS := math.Inf(1)
+		for bi := 0; bi <= 2000; bi++ {
+			for si := 0; si <= 1000; si++ {
+				bb, ss := float64(bi)*0.005, float64(si)*0.005
+				rss := 0.0
+				for i := range c.x {
+					r := c.y[i] - bb - ss*c.x[i]
+					rss += r * r
+				}
+				bestRSS = math.Min(bestRSS, rss)
+			}
+		}
+		if b < 0 || s < 0 {
+			t.Errorf("%s: b = %g, s = %g outside the box", c.name, b, s)
+		}
+		if got := syy - red; got > bestRSS+1e-9 || got < bestRSS-0.01 {
+			t.Errorf("%s: RSS %.6f, brute force %.6f", c.name, got, bestRSS)
+		}
+	}
+}

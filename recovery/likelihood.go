@@ -168,6 +168,36 @@ func nonnegLS2(s11, s12, s22, s1y, s2y float64) (b, s, reduction float64) {
 	return b, 0, b * s1y
 }
 
+// boxLS2 solves least squares with intercept b ≥ 0 and slope s ≥ 0 from
+// the normal-equation sums (as nonnegLS2). Used for RT: rt_base is a
+// non-decision time and cannot be negative; without the bound a candidate
+// with slow predictions fits any RT pattern by a negative base and a large
+// scale. The problem is a convex quadratic, so its minimum over the box is
+// the best of the interior solution, the optimum on each edge and the
+// corner that are feasible.
+func boxLS2(s11, s12, s22, s1y, s2y float64) (b, s, reduction float64) {
+	red := func(b, s float64) float64 { return 2*(b*s1y+s*s2y) - (b*b*s11 + 2*b*s*s12 + s*s*s22) }
+	best := 0.0 // the corner b = s = 0
+	if s11 > 0 {
+		if bb := s1y / s11; bb > 0 && red(bb, 0) > best {
+			b, s, best = bb, 0, red(bb, 0)
+		}
+	}
+	if s22 > 0 {
+		if ss := s2y / s22; ss > 0 && red(0, ss) > best {
+			b, s, best = 0, ss, red(0, ss)
+		}
+	}
+	if det := s11*s22 - s12*s12; det > 1e-12*s11*s22 {
+		bb := (s22*s1y - s12*s2y) / det
+		ss := (s11*s2y - s12*s1y) / det
+		if bb >= 0 && ss >= 0 && red(bb, ss) > best {
+			b, s, best = bb, ss, red(bb, ss)
+		}
+	}
+	return b, s, best
+}
+
 // logLik is −ln L of model.md §5 for predictions pred (flat, layout lay),
 // with lapse and the EEG AR coefficient given and the linear measurement
 // parameters profiled out. It fills est with every measurement estimate.
@@ -197,19 +227,14 @@ func logLik(s *summary, lay layout, pred []float64, lapse, ar float64, est *Meas
 				wyy += n * y * y
 			}
 		}
-		// Centre y on its weighted mean so the between-cell SS does not
-		// lose digits to cancellation.
-		ybar := wy / w
-		wyyC := wyy - 2*ybar*wy + w*ybar*ybar
-		wmyC := wmy - ybar*wm
-		b, sc, red := nonnegLS2(w, wm, wmm, 0, wmyC)
-		rss := s.rtSSWithin + wyyC - red
+		b, sc, red := boxLS2(w, wm, wmm, wy, wmy)
+		rss := s.rtSSWithin + wyy - red
 		n := float64(s.nRT)
 		rss = math.Max(rss, 1e-9*n)
 		v := rss / n
 		ll += -0.5 * n * (ln2pi + math.Log(v) + 1)
 		if est != nil {
-			est.RTBase, est.RTScale, est.RTSD = b+ybar, sc, math.Sqrt(v)
+			est.RTBase, est.RTScale, est.RTSD = b, sc, math.Sqrt(v)
 		}
 	}
 	if s.measAcc {
