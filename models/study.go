@@ -4,7 +4,6 @@ import (
 	"bytes"
 	"encoding/json"
 	"fmt"
-	"math"
 	"sort"
 )
 
@@ -324,22 +323,6 @@ func (h Hypothesis) FreeParams() []string {
 	return names
 }
 
-// Median returns the median of a free parameter's generating distribution.
-func (p Param) Median() float64 {
-	if !p.Free() {
-		return *p.Value
-	}
-	lo, hi := *p.Min, *p.Max
-	dist := "uniform"
-	if p.Generate != nil && p.Generate.Dist != "" {
-		dist = p.Generate.Dist
-	}
-	switch dist {
-	case "loguniform":
-		return math.Sqrt(lo * hi)
-	case "normal":
-		return truncNormalQuantile(0.5, p.Generate.Mean, p.Generate.SD, lo, hi)
-	default:
-		return (lo + hi) / 2
-	}
-}
+// Median returns the median of a free parameter's generating distribution
+// (the value of a fixed one).
+func (p Param) Median() float64 { return p.Quantile(0.5) }

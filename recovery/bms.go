@@ -92,24 +92,7 @@ type BMSResult struct {
 // or, for K > 2, a nil rng or samples < 1. The same rng state gives the same
 // result.
 func BMS(logEvidence [][]float64, rng *rand.Rand, samples int) BMSResult {
-	nPart := len(logEvidence)
-	if nPart == 0 {
-		panic("recovery: BMS: no participants in logEvidence")
-	}
-	k := len(logEvidence[0])
-	if k < 2 {
-		panic(fmt.Sprintf("recovery: BMS: %d models, want at least 2", k))
-	}
-	for n, row := range logEvidence {
-		if len(row) != k {
-			panic(fmt.Sprintf("recovery: BMS: logEvidence[%d] has %d models, want %d", n, len(row), k))
-		}
-		for j, v := range row {
-			if math.IsNaN(v) || math.IsInf(v, 0) {
-				panic(fmt.Sprintf("recovery: BMS: logEvidence[%d][%d] = %v, want a finite value (drop failed fits before BMS)", n, j, v))
-			}
-		}
-	}
+	nPart, k := checkEvidence("BMS", logEvidence)
 	if k > 2 {
 		if rng == nil {
 			panic("recovery: BMS: nil rng, needed for Monte Carlo exceedance with more than 2 models")
@@ -258,4 +241,29 @@ func logSumExpRow(x []float64) float64 {
 		s += math.Exp(v - m)
 	}
 	return m + math.Log(s)
+}
+
+// checkEvidence panics unless logEvidence is a non-empty, rectangular,
+// finite participants × models matrix with at least 2 models; it returns
+// its dimensions.
+func checkEvidence(fn string, logEvidence [][]float64) (nPart, k int) {
+	nPart = len(logEvidence)
+	if nPart == 0 {
+		panic("recovery: " + fn + ": no participants in logEvidence")
+	}
+	k = len(logEvidence[0])
+	if k < 2 {
+		panic(fmt.Sprintf("recovery: %s: %d models, want at least 2", fn, k))
+	}
+	for n, row := range logEvidence {
+		if len(row) != k {
+			panic(fmt.Sprintf("recovery: %s: logEvidence[%d] has %d models, want %d", fn, n, len(row), k))
+		}
+		for j, v := range row {
+			if math.IsNaN(v) || math.IsInf(v, 0) {
+				panic(fmt.Sprintf("recovery: %s: logEvidence[%d][%d] = %v, want a finite value (drop failed fits before BMS)", fn, n, j, v))
+			}
+		}
+	}
+	return nPart, k
 }

@@ -297,24 +297,7 @@ func lgamma(x float64) float64 { v, _ := math.Lgamma(x); return v }
 // rounding. It panics on the same caller bugs as BMS (no participant, fewer
 // than 2 models, a ragged row, a non-finite log evidence).
 func BMSQuadrature(logEvidence [][]float64) BMSResult {
-	nPart := len(logEvidence)
-	if nPart == 0 {
-		panic("recovery: BMSQuadrature: no participants in logEvidence")
-	}
-	k := len(logEvidence[0])
-	if k < 2 {
-		panic(fmt.Sprintf("recovery: BMSQuadrature: %d models, want at least 2", k))
-	}
-	for n, row := range logEvidence {
-		if len(row) != k {
-			panic(fmt.Sprintf("recovery: BMSQuadrature: logEvidence[%d] has %d models, want %d", n, len(row), k))
-		}
-		for j, v := range row {
-			if math.IsNaN(v) || math.IsInf(v, 0) {
-				panic(fmt.Sprintf("recovery: BMSQuadrature: logEvidence[%d][%d] = %v, want a finite value (drop failed fits first)", n, j, v))
-			}
-		}
-	}
+	nPart, k := checkEvidence("BMSQuadrature", logEvidence)
 	p := newEvidencePool(logEvidence, k)
 	rows := make([]int, nPart)
 	for i := range rows {
