@@ -15,6 +15,9 @@ const (
 	lapseMax = 0.5
 	arMax    = 0.99
 	nStarts  = 3
+	// rescoreWindow: every run whose grid −ln L ends within this of the
+	// best run's is re-scored with exact predictions.
+	rescoreWindow = 5
 )
 
 // Fit is one candidate fitted to one dataset by maximum likelihood
@@ -285,13 +288,13 @@ func (f *fitter) fit(s *summary, withSE bool) Fit {
 	}
 	// The grid is only a surrogate: near a jump in the predictions (an
 	// invalid trial switching between recovered and misdirected) its
-	// optimum can sit on the wrong side. Every run that ends within 5 of
-	// the best surrogate value is re-scored with exact predictions and the
+	// optimum can sit on the wrong side. Every run that ends within
+	// rescoreWindow of the best surrogate value is re-scored with exact predictions and the
 	// best exact value wins.
 	var est Measurement
 	nll := math.Inf(1)
 	for _, r := range runs {
-		if r.f > best+5 {
+		if r.f > best+rescoreWindow {
 			continue
 		}
 		var e Measurement

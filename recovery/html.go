@@ -5,6 +5,7 @@ import (
 	_ "embed"
 	"fmt"
 	"html/template"
+	"image/color"
 	"math"
 	"sort"
 	"strconv"
@@ -18,7 +19,14 @@ import (
 //go:embed templates/report.html.tmpl
 var reportTemplateText string
 
-var reportTemplate = template.Must(template.New("report").Funcs(template.FuncMap{
+// styleTemplateText defines "style", the CSS that report.html and the
+// predictions page share.
+//
+//go:embed templates/style.html.tmpl
+var styleTemplateText string
+
+// pageFuncs are the formatting functions every page template may call.
+var pageFuncs = template.FuncMap{
 	"prob": func(v Num) string { return fmtProb(float64(v)) },
 	"g3":   func(v Num) string { return fmtG(float64(v), 3) },
 	"pct":  func(v Num) string { return fmtPct(float64(v)) },
@@ -27,7 +35,15 @@ var reportTemplate = template.Must(template.New("report").Funcs(template.FuncMap
 	"g3f":  func(v float64) string { return fmtG(v, 3) },
 	"join": strings.Join,
 	"css":  func(s string) template.CSS { return template.CSS(s) },
-}).Parse(reportTemplateText))
+}
+
+// newPageTemplate parses a page with the shared style template beside it.
+func newPageTemplate(name, text string) *template.Template {
+	t := template.Must(template.New(name).Funcs(pageFuncs).Parse(text))
+	return template.Must(t.Parse(styleTemplateText))
+}
+
+var reportTemplate = newPageTemplate("report", reportTemplateText)
 
 // fmtProb prints a probability with two decimals, as in the heat maps.
 func fmtProb(v float64) string {
@@ -79,6 +95,16 @@ type htmlView struct {
 	HasGroup   bool
 	Sections   []sectionLink
 	Timing     string
+	Method     methodView
+}
+
+// methodView holds the fitting constants the method notes quote, taken
+// from the code so that the notes cannot drift from it.
+type methodView struct {
+	Starts   int
+	SEChange string
+	LapseMax string
+	ARMax    string
 }
 
 type sectionLink struct{ ID, Title string }
@@ -155,7 +181,8 @@ type generatorHealth struct {
 // no scripts, no external references. Every string from the study is
 // escaped by html/template (in the page) or by vgsvg (in the charts).
 func (r *Report) HTML() ([]byte, error) {
-	v := htmlView{R: r, Ranking: append([]DesignRank(nil), r.Ranking...)}
+	v := htmlView{R: r, Ranking: append([]DesignRank(nil), r.Ranking...), Method: methodView{
+		Starts: nStarts, SEChange: fmtPct(hessianMaxSEChange), LapseMax: fmtG(lapseMax, 3), ARMax: fmtG(arMax, 3)}}
 	sort.SliceStable(v.Ranking, func(a, b int) bool { return v.Ranking[a].Rank < v.Ranking[b].Rank })
 	hypIndex := map[string]int{}
 	specs := map[string]models.Hypothesis{}
@@ -462,56 +489,127 @@ func (r *Report) groupView(d *DesignReport, names []string) (*groupView, error) 
 	return gv, nil
 }
 
+// predictionSeries holds every hypothesis's prediction curves, in the
+// styles all pages share: valid cue solid with circles, invalid cue dashed
+// with triangles, censored points ringed.
+type predictionSeries struct {
+	RT, Acc, Mis []lineSeries
+	CTIs         []float64 // every CTI of the design, ascending (the x ticks)
+	Longest      int       // the longest CTI in ms
+	LongestIndex int       // its index in cti_ms
+	BinMs        int
+}
+
+// newPredictionSeries builds the curves; colour gives hypothesis i's colour.
+func newPredictionSeries(preds []models.HypothesisPrediction, colour func(i int, name string) color.RGBA) predictionSeries {
+	var ps predictionSeries
+	seen := map[int]bool{}
+	for i, hp := range preds {
+		c := colour(i, hp.Name)
+		x := make([]float64, len(hp.CTIms))
+		for j, v := range hp.CTIms {
+			x[j] = float64(v)
+			if !seen[v] {
+				seen[v] = true
+				ps.CTIs = append(ps.CTIs, float64(v))
+			}
+			if v > ps.Longest {
+				ps.Longest, ps.LongestIndex = v, j
+			}
+		}
+		if hp.Neural.BinMs > 0 {
+			ps.BinMs = hp.Neural.BinMs
+		}
+		// cti_ms need not be ascending; a line joins its points by CTI.
+		ord := ascendingOrder(hp.CTIms)
+		pick := func(v []float64) []float64 { return permuteFloats(v, ord) }
+		pickB := func(v []bool) []bool { return permuteBools(v, ord) }
+		xs := pick(x)
+		ps.RT = append(ps.RT,
+			lineSeries{X: xs, Y: pick(hp.Valid.RTms), Hollow: pickB(hp.Censored.Valid), Colour: c, Markers: true},
+			lineSeries{X: xs, Y: pick(hp.Invalid.RTms), Hollow: pickB(hp.Censored.Invalid), Colour: c, Dashed: true, Markers: true, Glyph: draw.TriangleGlyph{}})
+		ps.Acc = append(ps.Acc,
+			lineSeries{X: xs, Y: pick(hp.Valid.Accuracy), Colour: c, Markers: true},
+			lineSeries{X: xs, Y: pick(hp.Invalid.Accuracy), Colour: c, Dashed: true, Markers: true, Glyph: draw.TriangleGlyph{}})
+		ps.Mis = append(ps.Mis,
+			lineSeries{X: xs, Y: pick(hp.Invalid.Misdirected), Colour: c, Dashed: true, Markers: true, Glyph: draw.TriangleGlyph{}})
+	}
+	sort.Float64s(ps.CTIs)
+	return ps
+}
+
+// neuralAt returns every hypothesis's neural signal before the target at CTI
+// index c: bin b covers [b·B, (b+1)·B) ms after cue onset and is drawn at
+// its middle.
+func neuralAt(preds []models.HypothesisPrediction, c int, colour func(i int, name string) color.RGBA) []lineSeries {
+	var out []lineSeries
+	for i, hp := range preds {
+		if c >= len(hp.Neural.ByCTI) || len(hp.Neural.ByCTI[c]) == 0 || hp.Neural.BinMs <= 0 {
+			continue
+		}
+		bins := hp.Neural.ByCTI[c]
+		t := make([]float64, len(bins))
+		for b := range bins {
+			t[b] = (float64(b) + 0.5) * float64(hp.Neural.BinMs)
+		}
+		out = append(out, lineSeries{X: t, Y: bins, Colour: colour(i, hp.Name), Markers: len(bins) <= 12})
+	}
+	return out
+}
+
+// ascendingOrder returns the indices of v sorted by value.
+func ascendingOrder(v []int) []int {
+	ord := make([]int, len(v))
+	for i := range ord {
+		ord[i] = i
+	}
+	sort.SliceStable(ord, func(a, b int) bool { return v[ord[a]] < v[ord[b]] })
+	return ord
+}
+
+func permuteFloats(v []float64, ord []int) []float64 {
+	out := make([]float64, 0, len(ord))
+	for _, i := range ord {
+		if i < len(v) {
+			out = append(out, v[i])
+		}
+	}
+	return out
+}
+
+func permuteBools(v []bool, ord []int) []bool {
+	if v == nil {
+		return nil
+	}
+	out := make([]bool, len(ord))
+	for k, i := range ord {
+		out[k] = i < len(v) && v[i]
+	}
+	return out
+}
+
 // predictionCharts draws RT and accuracy by CTI (valid solid, invalid
 // dashed) and the neural signal before the longest CTI's target.
 func predictionCharts(dv *designView, preds []models.HypothesisPrediction, hypIndex map[string]int) error {
 	if len(preds) == 0 {
 		return nil
 	}
-	var rt, acc, neural []lineSeries
-	var ctis []float64
-	longest, binMs := 0, 0
-	for _, hp := range preds {
-		c := hypColour(hypIndex[hp.Name])
-		x := make([]float64, len(hp.CTIms))
-		for i, v := range hp.CTIms {
-			x[i] = float64(v)
-			longest = max(longest, v)
-		}
-		if len(ctis) < len(x) {
-			ctis = x
-		}
-		rt = append(rt,
-			lineSeries{X: x, Y: hp.Valid.RTms, Hollow: hp.Censored.Valid, Colour: c, Markers: true},
-			lineSeries{X: x, Y: hp.Invalid.RTms, Hollow: hp.Censored.Invalid, Colour: c, Dashed: true, Markers: true, Glyph: draw.TriangleGlyph{}})
-		acc = append(acc,
-			lineSeries{X: x, Y: hp.Valid.Accuracy, Colour: c, Markers: true},
-			lineSeries{X: x, Y: hp.Invalid.Accuracy, Colour: c, Dashed: true, Markers: true, Glyph: draw.TriangleGlyph{}})
-		if n := len(hp.Neural.ByCTI); n > 0 && len(hp.Neural.ByCTI[n-1]) > 0 {
-			binMs = hp.Neural.BinMs
-			bins := hp.Neural.ByCTI[n-1]
-			t := make([]float64, len(bins))
-			for b := range bins {
-				// Bin b covers [b·B, (b+1)·B) ms after cue onset.
-				t[b] = (float64(b) + 0.5) * float64(hp.Neural.BinMs)
-			}
-			neural = append(neural, lineSeries{X: t, Y: bins, Colour: c, Markers: len(bins) <= 12})
-		}
-	}
-	dv.LongestCTI = longest
+	ps := newPredictionSeries(preds, func(_ int, name string) color.RGBA { return hypColour(hypIndex[name]) })
+	dv.LongestCTI = ps.Longest
 	var err error
 	if dv.PredRT, err = lineChart(lineSpec{Label: "Predicted RT by CTI for design " + dv.Name, Title: "response time",
-		XLabel: "cue–target interval (ms)", YLabel: "RT from target onset (ms)", Series: rt, XTicks: ctis}); err != nil {
+		XLabel: "cue–target interval (ms)", YLabel: "RT from target onset (ms)", Series: ps.RT, XTicks: ps.CTIs}); err != nil {
 		return err
 	}
 	zero, one := 0.0, 1.0
 	if dv.PredAcc, err = lineChart(lineSpec{Label: "Predicted accuracy by CTI for design " + dv.Name, Title: "accuracy",
-		XLabel: "cue–target interval (ms)", YLabel: "P(correct report)", Series: acc, XTicks: ctis, YMin: &zero, YMax: &one}); err != nil {
+		XLabel: "cue–target interval (ms)", YLabel: "P(correct report)", Series: ps.Acc, XTicks: ps.CTIs, YMin: &zero, YMax: &one}); err != nil {
 		return err
 	}
-	if len(neural) > 0 && binMs > 0 {
+	neural := neuralAt(preds, ps.LongestIndex, func(_ int, name string) color.RGBA { return hypColour(hypIndex[name]) })
+	if len(neural) > 0 && ps.BinMs > 0 {
 		if dv.PredNeural, err = lineChart(lineSpec{Label: "Predicted neural signal before the longest CTI for design " + dv.Name,
-			Title: fmt.Sprintf("neural signal, CTI %d ms", longest), XLabel: "time from cue onset (ms)",
+			Title: fmt.Sprintf("neural signal, CTI %d ms", ps.Longest), XLabel: "time from cue onset (ms)",
 			YLabel: "expected precision − baseline", Series: neural}); err != nil {
 			return err
 		}

@@ -527,8 +527,10 @@ type lineSpec struct {
 	XLabel, YLabel string
 	Series         []lineSeries
 	YMin, YMax     *float64 // fixed y range when set
+	XMin, XMax     *float64 // fixed x range when set
 	XTicks         []float64
 	HLine          *float64 // a dashed reference level
+	VLine          *float64 // a dotted reference time (for example target onset)
 	W, H           float64  // points
 }
 
@@ -618,6 +620,12 @@ func lineChart(s lineSpec) (template.HTML, error) {
 	if s.YMax != nil {
 		p.Y.Max = *s.YMax
 	}
+	if s.XMin != nil {
+		p.X.Min = *s.XMin
+	}
+	if s.XMax != nil {
+		p.X.Max = *s.XMax
+	}
 	if p.Y.Max <= p.Y.Min {
 		// A flat curve (for example a constant hypothesis's neural
 		// signal) still needs an axis range.
@@ -642,6 +650,15 @@ func lineChart(s lineSpec) (template.HTML, error) {
 			ref.Color = muted
 			ref.Width = vg.Points(0.8)
 			ref.Dashes = []vg.Length{vg.Points(2), vg.Points(2)}
+			p.Add(ref)
+		}
+	}
+	if s.VLine != nil {
+		ref, err := plotter.NewLine(plotter.XYs{{X: *s.VLine, Y: p.Y.Min}, {X: *s.VLine, Y: p.Y.Max}})
+		if err == nil {
+			ref.Color = muted
+			ref.Width = vg.Points(0.8)
+			ref.Dashes = []vg.Length{vg.Points(1), vg.Points(2)}
 			p.Add(ref)
 		}
 	}

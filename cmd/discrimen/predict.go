@@ -5,6 +5,7 @@ import (
 	"flag"
 	"fmt"
 	"io"
+	"math"
 	"os"
 	"sort"
 	"strconv"
@@ -13,6 +14,7 @@ import (
 
 	"discrimen"
 	"discrimen/models"
+	"discrimen/recovery"
 )
 
 // setFlags collects repeated --set HYPOTHESIS.PARAM=VALUE flags.
@@ -27,8 +29,9 @@ func (s setFlags) Set(v string) error {
 		return fmt.Errorf("want HYPOTHESIS.PARAM=VALUE, got %q", v)
 	}
 	x, err := strconv.ParseFloat(rhs, 64)
-	if err != nil {
-		return fmt.Errorf("value of %s must be a number, got %q", lhs, rhs)
+	// ParseFloat accepts "NaN" and "Inf"; no parameter can take them.
+	if err != nil || math.IsNaN(x) || math.IsInf(x, 0) {
+		return fmt.Errorf("value of %s must be a finite number, got %q", lhs, rhs)
 	}
 	if s[hyp] == nil {
 		s[hyp] = map[string]float64{}
@@ -42,10 +45,11 @@ func cmdPredict(args []string, stdout, stderr io.Writer) int {
 	fs.SetOutput(stderr)
 	design := fs.String("design", "", "design `NAME` (default: the first)")
 	format := fs.String("format", "table", "output format: table or json")
+	htmlOut := fs.String("html", "", "also write the predictions as a self-contained page with charts to `FILE`")
 	set := setFlags{}
 	fs.Var(set, "set", "override a parameter, `HYPOTHESIS.PARAM=VALUE` (repeatable)")
 	fs.Usage = func() {
-		fmt.Fprintln(stderr, "usage: discrimen predict [STUDY.json] (default: the embedded demo study) [--design NAME] [--set H.P=V ...] [--format table|json]")
+		fmt.Fprintln(stderr, "usage: discrimen predict [STUDY.json] (default: the embedded demo study) [--design NAME] [--set H.P=V ...] [--format table|json] [--html FILE]")
 		fs.PrintDefaults()
 	}
 	path, rest := splitPath(args)
@@ -62,6 +66,13 @@ func cmdPredict(args []string, stdout, stderr io.Writer) int {
 	study, code := loadStudyFile(path, stderr)
 	if study == nil {
 		return code
+	}
+	if problems := setProblems(study, set); len(problems) > 0 {
+		fmt.Fprintln(stderr, "discrimen predict: --set makes the study invalid:")
+		for _, p := range problems {
+			fmt.Fprintln(stderr, "  "+p)
+		}
+		return 2
 	}
 	designs, err := study.ExpandedDesigns()
 	if err != nil {
@@ -88,6 +99,17 @@ func cmdPredict(args []string, stdout, stderr io.Writer) int {
 		fmt.Fprintln(stderr, "discrimen predict:", err)
 		return 1
 	}
+	if *htmlOut != "" {
+		page, err := recovery.PredictionsHTML(study.Name, d, preds)
+		if err != nil {
+			fmt.Fprintln(stderr, "discrimen predict:", err)
+			return 1
+		}
+		if err := os.WriteFile(*htmlOut, page, 0o644); err != nil {
+			fmt.Fprintln(stderr, "discrimen predict: --html:", err)
+			return 1
+		}
+	}
 	if *format == "json" {
 		out := struct {
 			Design     string                        `json:"design"`
@@ -103,6 +125,56 @@ func cmdPredict(args []string, stdout, stderr io.Writer) int {
 	}
 	writePredictTable(stdout, d, preds)
 	return 0
+}
+
+// setProblems checks the --set overrides as if they were written into the
+// study file as fixed values: the same rules (the family's parameters, their
+// signs, the gain bounds) and the same messages as discrimen validate.
+func setProblems(s *models.Study, set setFlags) []string {
+	if len(set) == 0 {
+		return nil
+	}
+	names := make([]string, len(s.Hypotheses))
+	index := map[string]int{}
+	for i, h := range s.Hypotheses {
+		names[i] = h.Name
+		index[h.Name] = i
+	}
+	var out []string
+	trial := *s
+	trial.Hypotheses = append([]models.Hypothesis(nil), s.Hypotheses...)
+	hyps := make([]string, 0, len(set))
+	for h := range set {
+		hyps = append(hyps, h)
+	}
+	sort.Strings(hyps)
+	touched := map[int]bool{}
+	for _, h := range hyps {
+		i, ok := index[h]
+		if !ok {
+			out = append(out, fmt.Sprintf("--set %s.*: the study has no hypothesis %q; hypotheses: %s", h, h, strings.Join(names, ", ")))
+			continue
+		}
+		touched[i] = true
+		params := make(map[string]models.Param, len(trial.Hypotheses[i].Params)+len(set[h]))
+		for k, v := range trial.Hypotheses[i].Params {
+			params[k] = v
+		}
+		for k, v := range set[h] {
+			params[k] = models.Param{Value: &v}
+		}
+		trial.Hypotheses[i].Params = params
+	}
+	for _, p := range trial.Validate() {
+		// Only the hypotheses --set changed: the file itself passed.
+		for i := range touched {
+			if prefix := fmt.Sprintf("hypotheses[%d]", i); p.Path == prefix || strings.HasPrefix(p.Path, prefix+".") {
+				out = append(out, fmt.Sprintf("--set %s: %s", s.Hypotheses[i].Name, p))
+				break
+			}
+		}
+	}
+	return out
 }
 
 // splitPath takes the first non-flag argument as the study path so that
