@@ -21,8 +21,9 @@ const usage = `usage: discrimen COMMAND [flags]
 
 commands:
   validate STUDY.json            list every problem in a study file
-  predict  STUDY.json            predicted RT, accuracy and neural signal per hypothesis
-  run      STUDY.json --out DIR  run a study here and write report.json, report.html, fits.csv
+  predict  [STUDY.json]          predicted RT, accuracy and neural signal per hypothesis (--html FILE for plots)
+  run      [STUDY.json] --out DIR  run a study here and write report.json, report.html, fits.csv
+                                 (no STUDY.json: the embedded demo study)
   serve                          HTTP API and workers in one process
   api                            HTTP API against a shared Redis
   worker                         queue worker against a shared Redis
