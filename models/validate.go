@@ -35,6 +35,10 @@ func (p Problem) String() string {
 // ValidationError carries every problem found in a study file.
 type ValidationError struct {
 	Problems []Problem
+	// OverBudget is true when the study's one fault is its compute budget
+	// (MaxFits): the file is well formed but asks for too many fits, which
+	// a service reports as over its cap rather than as a malformed file.
+	OverBudget bool
 }
 
 // Error lists the problems one per line.
@@ -861,7 +865,9 @@ func LoadStudy(data []byte) (*Study, error) {
 	}
 	if len(all) > 0 {
 		sortProblems(all)
-		return nil, &ValidationError{Problems: plain(all)}
+		ve := &ValidationError{Problems: plain(all)}
+		ve.OverBudget = len(all) == 1 && all[0].Path == "" && s.TotalFits() > MaxFits
+		return nil, ve
 	}
 	return s, nil
 }

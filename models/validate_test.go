@@ -1,6 +1,7 @@
 package models
 
 import (
+	"bytes"
 	"encoding/json"
 	"errors"
 	"math"
@@ -690,5 +691,23 @@ func TestStudyRoundTrip(t *testing.T) {
 	enc2, _ := json.Marshal(s2)
 	if string(enc) != string(enc2) {
 		t.Errorf("round trip changed the study:\n%s\n%s", enc, enc2)
+	}
+}
+
+// TestOverBudgetFlag: a study whose one fault is its compute budget is
+// flagged as such; a study with another fault besides is not.
+func TestOverBudgetFlag(t *testing.T) {
+	data, err := os.ReadFile(filepath.Join(invalidDir, "budget-over-limit.json"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	_, err = LoadStudy(data)
+	var ve *ValidationError
+	if !errors.As(err, &ve) || !ve.OverBudget {
+		t.Fatalf("budget-over-limit: err = %v, want a ValidationError with OverBudget", err)
+	}
+	_, err = LoadStudy(bytes.Replace(data, []byte(`"seed"`), []byte(`"seed": 1, "bogus"`), 1))
+	if errors.As(err, &ve) && ve.OverBudget {
+		t.Errorf("a study with an unknown field is flagged over budget: %v", err)
 	}
 }

@@ -104,14 +104,26 @@ func (s ShardSpec) Fits(h int) int { return (s.To - s.From) * h }
 
 // Plan splits the study into shards of at most size participants, in a
 // fixed order (design, generator, participant).
-func (c *Compiled) Plan(size int) []ShardSpec {
+func (c *Compiled) Plan(size int) []ShardSpec { return planShards(c.Study, c.Designs, size) }
+
+// PlanStudy is Plan without compiling the study (no prediction grids): it
+// expands the designs and splits them, so a planner need not build grids.
+func PlanStudy(s *models.Study, size int) ([]ShardSpec, error) {
+	designs, err := s.ExpandedDesigns()
+	if err != nil {
+		return nil, err
+	}
+	return planShards(s, designs, size), nil
+}
+
+func planShards(s *models.Study, designs []models.Design, size int) []ShardSpec {
 	if size < 1 {
 		size = 1
 	}
 	var out []ShardSpec
-	for di := range c.Designs {
-		for gi := range c.Study.Hypotheses {
-			n := c.Designs[di].Participants
+	for di := range designs {
+		for gi := range s.Hypotheses {
+			n := designs[di].Participants
 			for from := 0; from < n; from += size {
 				out = append(out, ShardSpec{Index: len(out), Design: di, Generator: gi, From: from, To: min(n, from+size)})
 			}

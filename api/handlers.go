@@ -1,0 +1,286 @@
+package api
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"io"
+	"mime"
+	"net/http"
+	"strconv"
+	"time"
+
+	"discrimen/models"
+	"discrimen/worker"
+)
+
+// statusBody is the JSON of GET /v1/studies/{id}.
+type statusBody struct {
+	ID         string       `json:"id"`
+	Name       string       `json:"name"`
+	Status     worker.State `json:"status"`
+	Progress   progress     `json:"progress"`
+	ETASeconds *float64     `json:"eta_seconds"`
+	Created    time.Time    `json:"created"`
+	Finished   *time.Time   `json:"finished"`
+	Error      *string      `json:"error"`
+	StatusURL  string       `json:"status_url"`
+	ReportURL  string       `json:"report_url"`
+}
+
+// progress counts fits.
+type progress struct {
+	Done  int `json:"done"`
+	Total int `json:"total"`
+}
+
+func statusURL(id string) string { return "/v1/studies/" + id }
+func reportURL(id string) string { return "/v1/studies/" + id + "/report" }
+
+func toBody(s worker.Status) statusBody {
+	b := statusBody{
+		ID: s.ID, Name: s.Name, Status: s.State, Progress: progress{Done: s.Done, Total: s.Total},
+		Created: s.Created, StatusURL: statusURL(s.ID), ReportURL: reportURL(s.ID),
+	}
+	if s.ETA != nil {
+		// Whole tenths of a second: finer is noise.
+		v := float64(s.ETA.Milliseconds()/100) / 10
+		b.ETASeconds = &v
+	}
+	if !s.Finished.IsZero() {
+		f := s.Finished
+		b.Finished = &f
+	}
+	if s.Error != "" {
+		e := s.Error
+		b.Error = &e
+	}
+	return b
+}
+
+// submitBody is the 202 answer to POST /v1/studies.
+type submitBody struct {
+	ID        string       `json:"id"`
+	Status    worker.State `json:"status"`
+	StatusURL string       `json:"status_url"`
+	ReportURL string       `json:"report_url"`
+}
+
+func (s *Server) submit(w http.ResponseWriter, r *http.Request) {
+	if ct := r.Header.Get("Content-Type"); ct != "" {
+		mt, _, err := mime.ParseMediaType(ct)
+		if err != nil || mt != "application/json" {
+			writeError(w, newError(http.StatusUnsupportedMediaType, codeUnsupportedMedia,
+				fmt.Sprintf("send the study as application/json, not %q", ct)))
+			return
+		}
+	}
+	body, err := io.ReadAll(http.MaxBytesReader(w, r.Body, s.cfg.MaxBodyBytes))
+	if err != nil {
+		var mb *http.MaxBytesError
+		if errors.As(err, &mb) {
+			writeError(w, newError(http.StatusRequestEntityTooLarge, codeBodyTooLarge,
+				fmt.Sprintf("the body is over the limit of %d bytes", mb.Limit)))
+			return
+		}
+		writeError(w, newError(http.StatusBadRequest, codeInvalidStudy, "could not read the body: "+err.Error()))
+		return
+	}
+	study, err := models.LoadStudy(body)
+	if err != nil {
+		var ve *models.ValidationError
+		if errors.As(err, &ve) {
+			writeError(w, fromProblems(ve))
+			return
+		}
+		writeError(w, newError(http.StatusBadRequest, codeInvalidStudy, err.Error(), Field{Problem: err.Error()}))
+		return
+	}
+	if fits := study.TotalFits(); fits > s.cfg.MaxFits {
+		msg := fmt.Sprintf("the study needs %d fits (participants × hypotheses² summed over designs); this server's cap is %d fits per study", fits, s.cfg.MaxFits)
+		writeError(w, newError(http.StatusUnprocessableEntity, codeOverBudget, msg, budgetFields(study)...))
+		return
+	}
+	st, err := s.cfg.Backend.Submit(r.Context(), owner(r), body, study)
+	if err != nil {
+		s.fail(w, r, err)
+		return
+	}
+	w.Header().Set("Location", statusURL(st.ID))
+	writeJSON(w, http.StatusAccepted, submitBody{ID: st.ID, Status: st.State, StatusURL: statusURL(st.ID), ReportURL: reportURL(st.ID)})
+}
+
+// budgetFields names each design's share of the fits, so the caller sees
+// where to cut.
+func budgetFields(st *models.Study) []Field {
+	h := len(st.Hypotheses)
+	var out []Field
+	for i, d := range st.Designs {
+		ds, err := d.Expand()
+		if err != nil {
+			ds = []models.Design{d}
+		}
+		fits := 0
+		for _, x := range ds {
+			fits += x.Participants * h * h
+		}
+		out = append(out, Field{
+			Path:    "designs[" + itoa(i) + "].participants",
+			Problem: fmt.Sprintf("this design needs %d fits (%d variant(s), participants × %d² hypotheses each)", fits, len(ds), h),
+		})
+	}
+	return out
+}
+
+// fail answers a backend error, logging the ones that are ours.
+func (s *Server) fail(w http.ResponseWriter, r *http.Request, err error) {
+	e := fromBackend(err)
+	if e.Status >= 500 {
+		s.log.Error("backend", "route", r.Pattern, "err", err)
+	}
+	writeError(w, e)
+}
+
+func (s *Server) status(w http.ResponseWriter, r *http.Request) {
+	st, err := s.cfg.Backend.Status(r.Context(), owner(r), r.PathValue("id"))
+	if err != nil {
+		s.fail(w, r, err)
+		return
+	}
+	w.Header().Set("Cache-Control", "no-store")
+	writeJSON(w, http.StatusOK, toBody(st))
+}
+
+// List paging: the default and largest page sizes.
+const (
+	defaultPage = 20
+	maxPage     = 100
+)
+
+// listBody is the JSON of GET /v1/studies.
+type listBody struct {
+	Studies    []statusBody `json:"studies"`
+	NextCursor *string      `json:"next_cursor"`
+}
+
+func (s *Server) list(w http.ResponseWriter, r *http.Request) {
+	q := r.URL.Query()
+	limit := defaultPage
+	var fields []Field
+	if v := q.Get("limit"); v != "" {
+		n, err := strconv.Atoi(v)
+		if err != nil || n < 1 || n > maxPage {
+			fields = append(fields, Field{Path: "limit", Problem: fmt.Sprintf("limit must be a whole number from 1 to %d, got %q", maxPage, v)})
+		}
+		limit = n
+	}
+	cursor := q.Get("cursor")
+	if cursor != "" && !worker.ValidID(cursor) {
+		fields = append(fields, Field{Path: "cursor", Problem: "cursor must be the next_cursor of a previous page"})
+	}
+	if len(fields) > 0 {
+		writeError(w, newError(http.StatusBadRequest, codeInvalidQuery, "bad query parameters", fields...))
+		return
+	}
+	page, next, err := s.cfg.Backend.List(r.Context(), owner(r), cursor, limit)
+	if err != nil {
+		s.fail(w, r, err)
+		return
+	}
+	out := listBody{Studies: []statusBody{}}
+	for _, st := range page {
+		out.Studies = append(out.Studies, toBody(st))
+	}
+	if next != "" {
+		out.NextCursor = &next
+	}
+	w.Header().Set("Cache-Control", "no-store")
+	writeJSON(w, http.StatusOK, out)
+}
+
+func (s *Server) cancel(w http.ResponseWriter, r *http.Request) {
+	st, err := s.cfg.Backend.Cancel(r.Context(), owner(r), r.PathValue("id"))
+	if err != nil {
+		s.fail(w, r, err)
+		return
+	}
+	writeJSON(w, http.StatusOK, toBody(st))
+}
+
+// The media types of the report files.
+const (
+	mediaJSON = "application/json"
+	mediaHTML = "text/html"
+	mediaCSV  = "text/csv"
+)
+
+// report serves report.json or report.html by the Accept header.
+func (s *Server) report(w http.ResponseWriter, r *http.Request) {
+	w.Header().Add("Vary", "Accept")
+	switch negotiate(r.Header.Get("Accept"), []string{mediaJSON, mediaHTML}) {
+	case mediaJSON:
+		s.serveReport(w, r, worker.ReportJSON)
+	case mediaHTML:
+		s.serveReport(w, r, worker.ReportHTML)
+	default:
+		writeError(w, newError(http.StatusNotAcceptable, codeNotAcceptable, "the report is available as application/json or text/html"))
+	}
+}
+
+func (s *Server) reportHTML(w http.ResponseWriter, r *http.Request) {
+	s.serveReport(w, r, worker.ReportHTML)
+}
+
+func (s *Server) fitsCSV(w http.ResponseWriter, r *http.Request) {
+	s.serveReport(w, r, worker.FitsCSV)
+}
+
+func (s *Server) serveReport(w http.ResponseWriter, r *http.Request, k worker.ReportKind) {
+	id := r.PathValue("id")
+	b, err := s.cfg.Backend.Report(r.Context(), owner(r), id, k)
+	if err != nil {
+		if errors.Is(err, worker.ErrNotDone) {
+			// Say where the study is, so the caller knows when to come back.
+			if st, err := s.cfg.Backend.Status(r.Context(), owner(r), id); err == nil {
+				writeError(w, newError(http.StatusConflict, codeNotFinished,
+					fmt.Sprintf("the study is %s (%d of %d fits); the report is served once it is done", st.State, st.Done, st.Total)))
+				return
+			}
+		}
+		s.fail(w, r, err)
+		return
+	}
+	switch k {
+	case worker.ReportJSON:
+		w.Header().Set("Content-Type", mediaJSON)
+	case worker.ReportHTML:
+		w.Header().Set("Content-Type", mediaHTML+"; charset=utf-8")
+		// The report is self-contained: inline styles and SVG, no scripts.
+		w.Header().Set("Content-Security-Policy", "default-src 'none'; style-src 'unsafe-inline'; img-src data:")
+	case worker.FitsCSV:
+		w.Header().Set("Content-Type", mediaCSV+"; charset=utf-8")
+		w.Header().Set("Content-Disposition", `attachment; filename="`+id+`-fits.csv"`)
+	}
+	w.Header().Set("Content-Length", strconv.Itoa(len(b)))
+	w.Write(b)
+}
+
+func (s *Server) healthz(w http.ResponseWriter, r *http.Request) {
+	writeJSON(w, http.StatusOK, map[string]string{"status": "ok"})
+}
+
+// readyz answers 200 when Redis does, within 2 s.
+func (s *Server) readyz(w http.ResponseWriter, r *http.Request) {
+	ctx, cancel := context.WithTimeout(r.Context(), 2*time.Second)
+	defer cancel()
+	if err := s.cfg.Backend.Ping(ctx); err != nil {
+		writeError(w, newError(http.StatusServiceUnavailable, codeNotReady, "redis is not reachable"))
+		return
+	}
+	writeJSON(w, http.StatusOK, map[string]string{"status": "ready"})
+}
+
+func (s *Server) serveOpenAPI(w http.ResponseWriter, r *http.Request) {
+	w.Header().Set("Content-Type", "application/json")
+	w.Write(s.openapi)
+}

@@ -1,0 +1,207 @@
+package main
+
+import (
+	"bytes"
+	"context"
+	"fmt"
+	"path/filepath"
+	"regexp"
+	"strings"
+	"syscall"
+	"testing"
+	"time"
+
+	"discrimen/api"
+	"discrimen/models"
+	"discrimen/worker"
+	"discrimen/worker/workertest"
+)
+
+// killStudy: 3 hypotheses × 30 participants (270 fits) in shards of 10
+// participants, so a worker killed after two shards dies mid-study.
+const killStudy = `{
+  "name": "berth-watch crash (invented)", "seed": 21,
+  "designs": [{"name": "three-channels", "cti_ms": [300, 600, 900], "trials_per_cti": 30, "participants": 30}],
+  "hypotheses": [
+    {"name": "steady-lamp", "family": "constant", "params": {"level": {"min": 0.2, "max": 1.8}}},
+    {"name": "rising-watch", "family": "linear", "params": {"slope": {"min": 0, "max": 2}}},
+    {"name": "late-switch", "family": "logistic", "params": {"midpoint": {"min": 0.2, "max": 0.8}, "width": {"min": 0.05, "max": 0.3}}}
+  ],
+  "replication": {"group_sizes": [5, 10], "replicates": 20}
+}`
+
+// TestWorkerKilled: a worker process killed with SIGKILL mid-study loses
+// nothing. asynq gives the killed shard back once its lease has expired
+// (30 s lease + 30 s grace, checked by the recoverer each minute and at
+// start), so this test takes about a minute.
+func TestWorkerKilled(t *testing.T) {
+	if testing.Short() {
+		t.Skip("waits a minute for asynq's lease to expire")
+	}
+	r := workertest.New(t, dbOffset)
+	ctx := context.Background()
+	client, err := worker.NewClient(worker.Config{Redis: r.Opt})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer client.Close()
+	workerArgs := []string{"worker", "--redis", r.URL, "--concurrency", "1", "--shard-fits", "30", "--metrics-listen", ""}
+	a := startChild(t, "worker A", workerArgs...)
+	a.waitFor(t, regexpMust(`msg="worker ready"`), 30*time.Second)
+	study, err := models.LoadStudy([]byte(killStudy))
+	if err != nil {
+		t.Fatal(err)
+	}
+	st, err := client.Submit(ctx, "harbour", []byte(killStudy), study)
+	if err != nil {
+		t.Fatal(err)
+	}
+	// Kill A once it has stored two shards and is into its third.
+	deadline := time.Now().Add(time.Minute)
+	for {
+		s, err := client.Status(ctx, "harbour", st.ID)
+		if err != nil {
+			t.Fatal(err)
+		}
+		runs, _ := client.Runs(ctx, st.ID)
+		if s.ShardsDone >= 2 && len(runs) > s.ShardsDone {
+			break
+		}
+		if s.State.Final() || time.Now().After(deadline) {
+			t.Fatalf("study %s with %d/%d shards before the kill", s.State, s.ShardsDone, s.Shards)
+		}
+		time.Sleep(5 * time.Millisecond)
+	}
+	if err := a.cmd.Process.Signal(syscall.SIGKILL); err != nil {
+		t.Fatal(err)
+	}
+	<-a.done
+	killed, err := client.Status(ctx, "harbour", st.ID)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Logf("killed worker A at %d/%d shards", killed.ShardsDone, killed.Shards)
+	b := startChild(t, "worker B", workerArgs...)
+	deadline = time.Now().Add(150 * time.Second)
+	for {
+		s, err := client.Status(ctx, "harbour", st.ID)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if s.State.Final() {
+			st = s
+			break
+		}
+		if time.Now().After(deadline) {
+			t.Fatalf("study still %s at %d/%d shards %v after the kill", s.State, s.ShardsDone, s.Shards, 150*time.Second)
+		}
+		time.Sleep(100 * time.Millisecond)
+	}
+	if st.State != worker.Done || st.Assemblies != 1 {
+		t.Fatalf("after the kill: %s (%s), %d assemblies", st.State, st.Error, st.Assemblies)
+	}
+	// No shard counted twice: one stored entry per shard, and their fits add
+	// up to the study's exactly.
+	if st.ShardsDone != st.Shards || st.Done != st.Total || st.Total != 270 {
+		t.Fatalf("stored %d of %d shards holding %d fits, want %d", st.ShardsDone, st.Shards, st.Done, st.Total)
+	}
+	runs, err := client.Runs(ctx, st.ID)
+	if err != nil {
+		t.Fatal(err)
+	}
+	again := 0
+	for _, n := range runs {
+		if n > 1 {
+			again++
+		}
+	}
+	if again == 0 {
+		t.Fatalf("no shard ran twice, so the kill did not land mid-shard (runs %v)", runs)
+	}
+	wantJSON, wantCSV := expectedReport(t, killStudy)
+	gotJSON, err := client.Report(ctx, "harbour", st.ID, worker.ReportJSON)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !bytes.Equal(wantJSON, stripTiming(t, gotJSON)) {
+		t.Fatal("report.json after the kill differs from discrimen run's")
+	}
+	gotCSV, err := client.Report(ctx, "harbour", st.ID, worker.FitsCSV)
+	if err != nil || !bytes.Equal(wantCSV, gotCSV) {
+		t.Fatalf("fits.csv after the kill differs from discrimen run's (%v)", err)
+	}
+	if code := b.stop(t, 40*time.Second); code != 0 {
+		t.Fatalf("worker B exited %d after SIGTERM, want 0", code)
+	}
+}
+
+// speedStudy: 3 hypotheses × 200 participants, 1800 fits in 15 shards.
+const speedStudy = `{
+  "name": "berth-watch throughput (invented)", "seed": 8,
+  "designs": [{"name": "three-channels", "cti_ms": [300, 600, 900], "trials_per_cti": 30, "participants": 200}],
+  "hypotheses": [
+    {"name": "steady-lamp", "family": "constant", "params": {"level": {"min": 0.2, "max": 1.8}}},
+    {"name": "rising-watch", "family": "linear", "params": {"slope": {"min": 0, "max": 2}}},
+    {"name": "late-switch", "family": "logistic", "params": {"midpoint": {"min": 0.2, "max": 0.8}, "width": {"min": 0.05, "max": 0.3}}}
+  ],
+  "replication": {"group_sizes": [5, 10], "replicates": 20}
+}`
+
+// TestTwoWorkersFaster: through an `api` process and `worker` processes of
+// one slot each, two workers finish the study sooner than one, and both
+// give discrimen run's report. Each worker runs with GOMAXPROCS=1, as if on
+// a machine of its own core, so a lone worker cannot borrow the second core
+// for its compile and garbage collector.
+func TestTwoWorkersFaster(t *testing.T) {
+	if testing.Short() {
+		t.Skip("times two runs of a 1800-fit study")
+	}
+	r := workertest.New(t, dbOffset)
+	keys := filepath.Join(t.TempDir(), "keys")
+	key, hash := api.NewKey()
+	if err := api.AppendKey(keys, "harbour", hash); err != nil {
+		t.Fatal(err)
+	}
+	srv := startChild(t, "api", "api", "--redis", r.URL, "--keys", keys, "--listen", "127.0.0.1:0", "--rate", "100")
+	base := srv.waitFor(t, listeningRE, 30*time.Second)[1]
+	wantJSON, wantCSV := expectedReport(t, speedStudy)
+	elapsed := map[int]time.Duration{}
+	for _, n := range []int{1, 2} {
+		var ws []*child
+		for i := 0; i < n; i++ {
+			w := startChildEnv(t, fmt.Sprintf("worker %d/%d", i+1, n), []string{"GOMAXPROCS=1"},
+				"worker", "--redis", r.URL, "--concurrency", "1", "--metrics-listen", "")
+			w.waitFor(t, regexpMust(`msg="worker ready"`), 30*time.Second)
+			ws = append(ws, w)
+		}
+		st, d := submitAndWait(t, base, key, speedStudy, 3*time.Minute)
+		if st.Status != "done" {
+			t.Fatalf("%d worker(s): study ended %s: %v", n, st.Status, st.Error)
+		}
+		elapsed[n] = d
+		code, body := httpDo(t, "GET", base+"/v1/studies/"+st.ID+"/report", key, nil)
+		if code != 200 || !bytes.Equal(wantJSON, stripTiming(t, body)) {
+			t.Fatalf("%d worker(s): report.json differs from discrimen run's (%d)", n, code)
+		}
+		if code, body := httpDo(t, "GET", base+"/v1/studies/"+st.ID+"/fits.csv", key, nil); code != 200 || !bytes.Equal(wantCSV, body) {
+			t.Fatalf("%d worker(s): fits.csv differs from discrimen run's (%d)", n, code)
+		}
+		if !strings.Contains(string(body), fmt.Sprintf(`"workers": %d`, n)) {
+			t.Errorf("%d worker(s): timing block does not count %d workers", n, n)
+		}
+		for _, w := range ws {
+			if code := w.stop(t, 40*time.Second); code != 0 {
+				t.Fatalf("%s exited %d after SIGTERM", w.name, code)
+			}
+		}
+	}
+	t.Logf("1800 fits: one worker %.2f s, two workers %.2f s (speed-up %.2f×)", elapsed[1].Seconds(), elapsed[2].Seconds(), elapsed[1].Seconds()/elapsed[2].Seconds())
+	if elapsed[2] >= elapsed[1] {
+		t.Fatalf("two workers took %v, one took %v: no faster", elapsed[2], elapsed[1])
+	}
+	if code := srv.stop(t, 20*time.Second); code != 0 {
+		t.Fatalf("api exited %d after SIGTERM", code)
+	}
+}
+
+func regexpMust(s string) *regexp.Regexp { return regexp.MustCompile(s) }

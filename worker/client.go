@@ -1,0 +1,202 @@
+package worker
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"time"
+
+	"github.com/hibiken/asynq"
+	"github.com/redis/go-redis/v9"
+
+	"discrimen/models"
+)
+
+// Client submits studies and reads their status and reports. It is what
+// the API holds; it runs no fits.
+type Client struct {
+	cfg       Config
+	rdb       redis.UniversalClient
+	st        *store
+	queue     *asynq.Client
+	inspector *asynq.Inspector
+	now       func() time.Time
+}
+
+// NewClient connects to Redis. The connection is made lazily; call Ping to
+// check it.
+func NewClient(cfg Config) (*Client, error) {
+	cfg, err := cfg.withDefaults()
+	if err != nil {
+		return nil, err
+	}
+	rdb, ok := cfg.Redis.MakeRedisClient().(redis.UniversalClient)
+	if !ok {
+		return nil, fmt.Errorf("worker: Config.Redis made %T, not a go-redis client", cfg.Redis.MakeRedisClient())
+	}
+	c := &Client{
+		cfg: cfg, rdb: rdb, st: &store{rdb: rdb, retention: cfg.Retention},
+		queue:     asynq.NewClientFromRedisClient(rdb),
+		inspector: asynq.NewInspectorFromRedisClient(rdb),
+		now:       time.Now,
+	}
+	if cfg.Registerer != nil {
+		if err := registerClientMetrics(cfg.Registerer, c); err != nil {
+			return nil, err
+		}
+	}
+	return c, nil
+}
+
+// Close closes the Redis connection.
+func (c *Client) Close() error { return c.rdb.Close() }
+
+// Ping checks that Redis answers.
+func (c *Client) Ping(ctx context.Context) error { return c.rdb.Ping(ctx).Err() }
+
+// Submit stores a validated study, owned by owner, and enqueues its plan.
+// input is the study file as submitted: workers decode it again with
+// models.LoadStudy, as `discrimen run` does, so both see the same study.
+func (c *Client) Submit(ctx context.Context, owner string, input []byte, s *models.Study) (Status, error) {
+	now := c.now()
+	id := newStudyID(now)
+	if err := c.st.create(ctx, id, owner, s.Name, input, s.TotalFits(), now); err != nil {
+		return Status{}, err
+	}
+	if _, err := c.queue.EnqueueContext(ctx, c.cfg.planTask(id)); err != nil {
+		c.st.setStatus(ctx, id, []State{Queued}, Failed, "", "error", "could not enqueue the plan", "finished", now.UnixNano())
+		return Status{}, fmt.Errorf("worker: enqueueing the plan of %s: %w", id, err)
+	}
+	return c.st.status(ctx, id, now)
+}
+
+// Status reads a study of owner. Another owner's study is ErrNotFound.
+func (c *Client) Status(ctx context.Context, owner, id string) (Status, error) {
+	if !ValidID(id) {
+		return Status{}, ErrNotFound
+	}
+	s, err := c.st.status(ctx, id, c.now())
+	if err != nil {
+		return Status{}, err
+	}
+	if s.Owner != owner {
+		return Status{}, ErrNotFound
+	}
+	return s, nil
+}
+
+// List returns up to limit of owner's studies, newest first, starting
+// after cursor (an id from a previous page; "" for the first page), and the
+// cursor of the next page ("" when this is the last).
+func (c *Client) List(ctx context.Context, owner, cursor string, limit int) ([]Status, string, error) {
+	if limit < 1 {
+		panic("worker: List limit must be at least 1")
+	}
+	var out []Status
+	now := c.now()
+	for {
+		want := limit + 1 - len(out)
+		ids, err := c.st.list(ctx, owner, cursor, want)
+		if err != nil {
+			return nil, "", err
+		}
+		for _, id := range ids {
+			s, err := c.st.status(ctx, id, now)
+			if errors.Is(err, ErrNotFound) {
+				c.st.unindex(ctx, owner, id) // expired
+				continue
+			}
+			if err != nil {
+				return nil, "", err
+			}
+			out = append(out, s)
+		}
+		if len(ids) < want || len(out) > limit {
+			break
+		}
+		cursor = ids[len(ids)-1]
+	}
+	if len(out) > limit {
+		return out[:limit], out[limit-1].ID, nil
+	}
+	return out, "", nil
+}
+
+// Cancel stops a study: its status becomes canceled, its pending tasks are
+// deleted from the queue and running shards stop at their next check.
+// Canceling a canceled study is not an error; a done or failed one is
+// ErrFinished.
+func (c *Client) Cancel(ctx context.Context, owner, id string) (Status, error) {
+	s, err := c.Status(ctx, owner, id)
+	if err != nil {
+		return Status{}, err
+	}
+	now := c.now()
+	ok, err := c.st.setStatus(ctx, id, []State{Queued, Running}, Canceled, "", "finished", now.UnixNano())
+	if err != nil {
+		return Status{}, err
+	}
+	if !ok {
+		s, err = c.Status(ctx, owner, id)
+		if err != nil {
+			return Status{}, err
+		}
+		if s.State == Canceled {
+			return s, nil
+		}
+		return s, ErrFinished
+	}
+	dropTasks(ctx, c.inspector, c.cfg, id, s.Shards)
+	if err := c.st.finish(ctx, id, owner); err != nil {
+		return Status{}, err
+	}
+	return c.st.status(ctx, id, now)
+}
+
+// dropTasks deletes a study's tasks that wait in the queues. Running tasks
+// cannot be deleted; they see the final status at their next check.
+func dropTasks(ctx context.Context, in *asynq.Inspector, cfg Config, id string, shards int) {
+	in.DeleteTask(cfg.controlQueue(), planTaskID(id))
+	for i := 0; i < shards && ctx.Err() == nil; i++ {
+		in.DeleteTask(cfg.Queue, shardTaskID(id, i))
+	}
+}
+
+// Report returns a finished study's report file; ErrNotDone before then.
+func (c *Client) Report(ctx context.Context, owner, id string, k ReportKind) ([]byte, error) {
+	s, err := c.Status(ctx, owner, id)
+	if err != nil {
+		return nil, err
+	}
+	if s.State != Done {
+		return nil, ErrNotDone
+	}
+	return c.st.report(ctx, id, k)
+}
+
+// Runs returns how many times each shard of a study was started (a shard
+// retried after a crash shows 2 or more). It is for tests and operators.
+func (c *Client) Runs(ctx context.Context, id string) (map[int]int, error) {
+	return c.st.runs(ctx, id)
+}
+
+// QueueSizes returns the number of tasks waiting or running in the shard
+// queue and the control queue.
+func (c *Client) QueueSizes() (shards, control int, err error) {
+	for i, q := range []string{c.cfg.Queue, c.cfg.controlQueue()} {
+		info, err := c.inspector.GetQueueInfo(q)
+		if err != nil {
+			if errors.Is(err, asynq.ErrQueueNotFound) {
+				continue
+			}
+			return 0, 0, err
+		}
+		n := info.Pending + info.Active + info.Scheduled + info.Retry
+		if i == 0 {
+			shards = n
+		} else {
+			control = n
+		}
+	}
+	return shards, control, nil
+}

@@ -1,0 +1,115 @@
+package worker
+
+import (
+	"fmt"
+	"io"
+	"log/slog"
+	"runtime"
+	"time"
+
+	"github.com/hibiken/asynq"
+	"github.com/prometheus/client_golang/prometheus"
+)
+
+// Config configures a Client and a Server. A zero field means the default
+// named beside it.
+type Config struct {
+	// Redis is the connection: asynq.RedisClientOpt, RedisFailoverClientOpt
+	// (Sentinel) or RedisClusterClientOpt. Required.
+	Redis asynq.RedisConnOpt
+	// Queue names the asynq queue of shard tasks (default "discrimen"); plan
+	// and assemble tasks go to Queue+".control", served first.
+	Queue string
+	// Concurrency is the number of shards a Server runs at once (default
+	// GOMAXPROCS). Each shard runs on one goroutine.
+	Concurrency int
+	// ShardFits is the target number of fits per shard (default
+	// DefaultShardFits); a shard holds ceil(ShardFits / hypotheses)
+	// participants.
+	ShardFits int
+	// Retention is how long a study, its shards and its report are kept
+	// after the last change (default 7 days).
+	Retention time.Duration
+	// TaskRetention is how long asynq keeps a finished assemble task, which
+	// keeps its task ID taken (default 24 h).
+	TaskRetention time.Duration
+	// MaxRetry is the number of retries of a failing task (default 5).
+	MaxRetry int
+	// ShardTimeout bounds one shard's run (default 1 h).
+	ShardTimeout time.Duration
+	// ShutdownTimeout is how long Shutdown waits for running shards before
+	// they are put back on the queue (default 30 s).
+	ShutdownTimeout time.Duration
+	// PollInterval is how often a running shard reports progress and checks
+	// whether its study was canceled (default 500 ms).
+	PollInterval time.Duration
+	// CompiledCache is the number of compiled studies a Server keeps
+	// (default 4).
+	CompiledCache int
+	// CompileWorkers is the number of goroutines that build a study's
+	// prediction grids (default GOMAXPROCS).
+	CompileWorkers int
+	// Identity names this worker process in a study's record (default
+	// host:pid).
+	Identity string
+	// Logger receives structured logs (default: discard).
+	Logger *slog.Logger
+	// Registerer receives the worker's metrics (default: none).
+	Registerer prometheus.Registerer
+}
+
+// DefaultShardFits is the default target of fits per shard. A fit of a small
+// study takes 3-10 ms on one core and a shard's queue overhead (dequeue,
+// gob-encode, store, count) about 2-4 ms (BenchmarkShardOverhead), so 120
+// fits keep the overhead near 1% of compute, below the 5% goal, while a
+// study of a few thousand fits still splits into enough shards to spread
+// over several workers.
+const DefaultShardFits = 120
+
+func (c Config) withDefaults() (Config, error) {
+	if c.Redis == nil {
+		return c, fmt.Errorf("worker: Config.Redis is required")
+	}
+	if c.Queue == "" {
+		c.Queue = "discrimen"
+	}
+	if c.Concurrency <= 0 {
+		c.Concurrency = runtime.GOMAXPROCS(0)
+	}
+	if c.ShardFits <= 0 {
+		c.ShardFits = DefaultShardFits
+	}
+	if c.Retention <= 0 {
+		c.Retention = 7 * 24 * time.Hour
+	}
+	if c.TaskRetention <= 0 {
+		c.TaskRetention = 24 * time.Hour
+	}
+	if c.MaxRetry <= 0 {
+		c.MaxRetry = 5
+	}
+	if c.ShardTimeout <= 0 {
+		c.ShardTimeout = time.Hour
+	}
+	if c.ShutdownTimeout <= 0 {
+		c.ShutdownTimeout = 30 * time.Second
+	}
+	if c.PollInterval <= 0 {
+		c.PollInterval = 500 * time.Millisecond
+	}
+	if c.CompiledCache <= 0 {
+		c.CompiledCache = 4
+	}
+	if c.CompileWorkers <= 0 {
+		c.CompileWorkers = runtime.GOMAXPROCS(0)
+	}
+	if c.Identity == "" {
+		c.Identity = defaultIdentity()
+	}
+	if c.Logger == nil {
+		c.Logger = slog.New(slog.NewTextHandler(io.Discard, nil))
+	}
+	return c, nil
+}
+
+func (c Config) controlQueue() string { return c.Queue + ".control" }

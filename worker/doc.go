@@ -1,0 +1,16 @@
+// Package worker runs studies on an asynq queue backed by Redis.
+//
+// A study flows through three task types: study:plan compiles the study and
+// splits it into shards (a block of synthetic participants of one design
+// and generator, fitted by every candidate), study:shard runs one shard and
+// stores its result under its index, and study:assemble builds the report
+// once every shard is stored. A retried shard overwrites its own entry and
+// completion is counted from the stored entries, so no shard counts twice;
+// asynq task IDs make each task unique, so exactly one assembly runs. The
+// report depends only on the study and its seed (recovery's seeds derive
+// from design, generator and participant), never on which worker ran what.
+//
+// Client is the API's side: submit, status, list, cancel, report. Server is
+// a worker process. Every Redis key is built in keys.go, which documents
+// the layout.
+package worker

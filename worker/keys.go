@@ -1,0 +1,83 @@
+package worker
+
+// The Redis key layout. Every key the service writes is built in this file.
+//
+// All keys start with the prefix "discrimen:" followed by a hash tag in
+// braces. A study's keys share the tag {<study id>}, so Redis Cluster puts
+// them in one slot and the multi-key transactions and scripts below (which
+// only ever touch one study) stay legal there. The two index keys carry
+// their own tags; they are never written in the same transaction as a
+// study's keys.
+//
+// asynq keeps its own keys under "asynq:{<queue>}:..."; those are asynq's
+// layout, not ours, and are only touched through asynq's client and
+// inspector.
+//
+//	key                               Redis type  contents
+//	discrimen:{ID}:study              hash        the study's record (fields below)
+//	discrimen:{ID}:input              string      the study file exactly as submitted
+//	discrimen:{ID}:results            hash        shard index → gob-encoded recovery.ShardResult
+//	discrimen:{ID}:done               hash        shard index → fits in that shard (completion is HLEN/sum of this)
+//	discrimen:{ID}:partial            hash        shard index → fits finished so far by a running shard
+//	discrimen:{ID}:runs               hash        shard index → times a worker started the shard
+//	discrimen:{ID}:workers            set         identities of the worker processes that stored shards
+//	discrimen:{ID}:report.json        string      report.json bytes
+//	discrimen:{ID}:report.html        string      report.html bytes
+//	discrimen:{ID}:fits.csv           string      fits.csv bytes
+//	discrimen:{owner:NAME}:studies    sorted set  the study ids of one API key, all score 0 (ids sort by time)
+//	discrimen:{index}:studies         sorted set  every study id, all score 0, for metrics
+//
+// Fields of discrimen:{ID}:study:
+//
+//	owner        API key name that submitted the study
+//	name         the study's name
+//	status       queued | running | done | failed | canceled
+//	created      submission time, Unix nanoseconds
+//	started      time the plan finished (shards enqueued), Unix nanoseconds
+//	finished     time the study reached a final status, Unix nanoseconds
+//	error        the failure message of a failed study
+//	total        fits the study runs (models.Study.TotalFits)
+//	shards       number of shards in the plan (absent until planned)
+//	shard_size   participants per shard
+//	grid_seconds wall time of the plan's compile
+//	last_shard   time the latest shard was stored, Unix nanoseconds
+//	assemblies   times an assembly stored a report (1 for a finished study)
+//
+// Every study key expires after the configured retention; a running study's
+// keys are refreshed each time a shard is stored. The index keys expire
+// after twice the retention, refreshed when a study is submitted or
+// finishes; index entries whose study has expired are removed when they are
+// next read.
+
+const keyPrefix = "discrimen:"
+
+func studyKey(id string) string   { return keyPrefix + "{" + id + "}:study" }
+func inputKey(id string) string   { return keyPrefix + "{" + id + "}:input" }
+func resultsKey(id string) string { return keyPrefix + "{" + id + "}:results" }
+func doneKey(id string) string    { return keyPrefix + "{" + id + "}:done" }
+func partialKey(id string) string { return keyPrefix + "{" + id + "}:partial" }
+func runsKey(id string) string    { return keyPrefix + "{" + id + "}:runs" }
+func workersKey(id string) string { return keyPrefix + "{" + id + "}:workers" }
+
+// reportKey holds one rendered report file of a study.
+func reportKey(id string, k ReportKind) string {
+	return keyPrefix + "{" + id + "}:" + k.fileName()
+}
+
+// studyKeys lists every key of a study, for expiry and deletion.
+func studyKeys(id string) []string {
+	return []string{
+		studyKey(id), inputKey(id), resultsKey(id), doneKey(id), partialKey(id), runsKey(id),
+		workersKey(id), reportKey(id, ReportJSON), reportKey(id, ReportHTML), reportKey(id, FitsCSV),
+	}
+}
+
+func ownerKey(owner string) string { return keyPrefix + "{owner:" + owner + "}:studies" }
+
+const indexKey = keyPrefix + "{index}:studies"
+
+// Task IDs: asynq refuses a second task with the same ID while the first is
+// kept, which makes each plan, shard and assembly unique per study.
+func planTaskID(id string) string             { return "plan:" + id }
+func shardTaskID(id string, index int) string { return "shard:" + id + ":" + itoa(index) }
+func assembleTaskID(id string) string         { return "assemble:" + id }

@@ -1,0 +1,468 @@
+package worker
+
+import (
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"log/slog"
+	"os"
+	"strconv"
+	"strings"
+	"sync"
+	"sync/atomic"
+	"time"
+
+	"github.com/hibiken/asynq"
+	"github.com/redis/go-redis/v9"
+
+	"discrimen/models"
+	"discrimen/recovery"
+)
+
+// Server runs the plan, shard and assemble tasks of every study.
+type Server struct {
+	cfg       Config
+	rdb       redis.UniversalClient
+	st        *store
+	srv       *asynq.Server
+	queue     *asynq.Client
+	inspector *asynq.Inspector
+	cache     *compiledCache
+	m         *serverMetrics
+	log       *slog.Logger
+}
+
+// NewServer prepares a worker; Start begins taking tasks.
+func NewServer(cfg Config) (*Server, error) {
+	cfg, err := cfg.withDefaults()
+	if err != nil {
+		return nil, err
+	}
+	rdb, ok := cfg.Redis.MakeRedisClient().(redis.UniversalClient)
+	if !ok {
+		return nil, fmt.Errorf("worker: Config.Redis made %T, not a go-redis client", cfg.Redis.MakeRedisClient())
+	}
+	s := &Server{
+		cfg: cfg, rdb: rdb, st: &store{rdb: rdb, retention: cfg.Retention},
+		queue:     asynq.NewClientFromRedisClient(rdb),
+		inspector: asynq.NewInspectorFromRedisClient(rdb),
+		cache:     newCompiledCache(cfg.CompiledCache),
+		m:         newServerMetrics(),
+		log:       cfg.Logger.With("identity", cfg.Identity),
+	}
+	if cfg.Registerer != nil {
+		if err := s.m.register(cfg.Registerer); err != nil {
+			return nil, err
+		}
+	}
+	s.srv = asynq.NewServerFromRedisClient(rdb, asynq.Config{
+		Concurrency: cfg.Concurrency,
+		// Plans and assemblies are short and unblock whole studies, so they
+		// go before any shard.
+		Queues:                   map[string]int{cfg.controlQueue(): 2, cfg.Queue: 1},
+		StrictPriority:           true,
+		RetryDelayFunc:           retryDelay,
+		ErrorHandler:             asynq.ErrorHandlerFunc(s.handleError),
+		Logger:                   asynqLogger{s.log},
+		LogLevel:                 asynq.WarnLevel,
+		ShutdownTimeout:          cfg.ShutdownTimeout,
+		TaskCheckInterval:        250 * time.Millisecond,
+		DelayedTaskCheckInterval: time.Second,
+	})
+	return s, nil
+}
+
+// retryDelay retries a task whose worker died at once (its lease has
+// already run out) and backs off exponentially otherwise: 2^n s, at most
+// 5 minutes.
+func retryDelay(n int, err error, _ *asynq.Task) time.Duration {
+	if errors.Is(err, asynq.ErrLeaseExpired) {
+		return 0
+	}
+	return min(time.Second<<min(n, 9), 5*time.Minute)
+}
+
+// Start begins taking tasks; it returns at once.
+func (s *Server) Start() error {
+	mux := asynq.NewServeMux()
+	mux.HandleFunc(TypePlan, s.handlePlan)
+	mux.HandleFunc(TypeShard, s.handleShard)
+	mux.HandleFunc(TypeAssemble, s.handleAssemble)
+	s.log.Info("worker starting", "concurrency", s.cfg.Concurrency, "queue", s.cfg.Queue)
+	return s.srv.Start(mux)
+}
+
+// Shutdown stops taking tasks, waits up to ShutdownTimeout for running
+// shards to finish and puts the others back on the queue, then closes the
+// Redis connection.
+func (s *Server) Shutdown() {
+	s.srv.Shutdown()
+	s.rdb.Close()
+	s.log.Info("worker stopped")
+}
+
+// permanent marks a failure that a retry cannot fix (a study that does not
+// load or compile, a fit that errors): the task is not retried and the
+// study fails with this message.
+func permanent(format string, args ...any) error {
+	return fmt.Errorf("%w: %s", asynq.SkipRetry, fmt.Sprintf(format, args...))
+}
+
+// study loads a study's file as submitted.
+func (s *Server) study(ctx context.Context, id string) (*models.Study, error) {
+	input, err := s.st.input(ctx, id)
+	if errors.Is(err, ErrNotFound) {
+		return nil, permanent("the study file has expired")
+	}
+	if err != nil {
+		return nil, err
+	}
+	study, err := models.LoadStudy(input)
+	if err != nil {
+		return nil, permanent("the study no longer loads: %v", err)
+	}
+	return study, nil
+}
+
+// compiled returns the study's compiled form from the process cache; the
+// first compile of a study in any worker records its wall time.
+func (s *Server) compiled(ctx context.Context, id string) (*recovery.Compiled, error) {
+	c, secs, fresh, err := s.cache.get(ctx, id, func(ctx context.Context) (*recovery.Compiled, error) {
+		study, err := s.study(ctx, id)
+		if err != nil {
+			return nil, err
+		}
+		c, err := recovery.Compile(ctx, study, s.cfg.CompileWorkers)
+		if err != nil {
+			return nil, permanent("compiling the study: %v", err)
+		}
+		return c, nil
+	})
+	if fresh && err == nil {
+		s.m.compileSeconds.Observe(secs)
+		s.rdb.HSetNX(ctx, studyKey(id), "grid_seconds", strconv.FormatFloat(secs, 'g', -1, 64))
+		s.log.Info("study compiled", "study", id, "seconds", secs)
+	}
+	return c, err
+}
+
+// plan splits a study into shards of size participants. Planning needs
+// only the expanded designs and the hypotheses, not the prediction grids,
+// so the plan task does not compile: each worker compiles a study once,
+// when its first shard of that study arrives.
+func plan(study *models.Study, size int) ([]recovery.ShardSpec, error) {
+	return recovery.PlanStudy(study, size)
+}
+
+// handlePlan stores the study's plan and enqueues every shard not yet
+// stored. A retried plan enqueues again; existing task IDs conflict
+// and are skipped.
+func (s *Server) handlePlan(ctx context.Context, t *asynq.Task) error {
+	var p planPayload
+	if err := json.Unmarshal(t.Payload(), &p); err != nil {
+		return permanent("bad plan payload: %v", err)
+	}
+	id := p.Study
+	rec, err := s.st.record(ctx, id)
+	if errors.Is(err, ErrNotFound) {
+		return nil
+	}
+	if err != nil {
+		return err
+	}
+	if State(rec["status"]).Final() {
+		return nil
+	}
+	study, err := s.study(ctx, id)
+	if err != nil {
+		return err
+	}
+	h := len(study.Hypotheses)
+	size := max(1, (s.cfg.ShardFits+h-1)/h)
+	specs, err := plan(study, size)
+	if err != nil {
+		return permanent("planning the study: %v", err)
+	}
+	if err := s.rdb.HSet(ctx, studyKey(id), "shards", len(specs), "shard_size", size).Err(); err != nil {
+		return err
+	}
+	if _, err := s.st.setStatus(ctx, id, []State{Queued}, Running, "", "started", time.Now().UnixNano()); err != nil {
+		return err
+	}
+	for _, spec := range specs {
+		stored, err := s.st.shardStored(ctx, id, spec.Index)
+		if err != nil {
+			return err
+		}
+		if stored {
+			continue
+		}
+		if _, err := s.queue.EnqueueContext(ctx, s.cfg.shardTask(id, spec)); err != nil && !errors.Is(err, asynq.ErrTaskIDConflict) {
+			return err
+		}
+	}
+	// A cancel that landed while the shards were being enqueued could not
+	// see them; drop them now.
+	if rec, err := s.st.record(ctx, id); err == nil && State(rec["status"]).Final() {
+		dropTasks(ctx, s.inspector, s.cfg, id, len(specs))
+		return nil
+	}
+	s.log.Info("study planned", "study", id, "shards", len(specs), "shard_size", size, "fits", study.TotalFits())
+	return s.maybeAssemble(ctx, id, len(specs))
+}
+
+// handleShard runs one shard and stores its result under its index.
+func (s *Server) handleShard(ctx context.Context, t *asynq.Task) error {
+	var p shardPayload
+	if err := json.Unmarshal(t.Payload(), &p); err != nil {
+		return permanent("bad shard payload: %v", err)
+	}
+	id, spec := p.Study, p.Spec
+	rec, err := s.st.record(ctx, id)
+	if errors.Is(err, ErrNotFound) {
+		s.m.shards[shardDropped].Inc()
+		return nil
+	}
+	if err != nil {
+		return err
+	}
+	shards := atoi(rec["shards"])
+	if State(rec["status"]).Final() {
+		s.m.shards[shardDropped].Inc()
+		return nil
+	}
+	if stored, err := s.st.shardStored(ctx, id, spec.Index); err != nil {
+		return err
+	} else if stored {
+		// A duplicate or a retry after the result was stored: nothing to
+		// add, but the assembly may still be owed.
+		s.m.shards[shardDuplicate].Inc()
+		return s.maybeAssemble(ctx, id, shards)
+	}
+	if err := s.st.countRun(ctx, id, spec.Index); err != nil {
+		return err
+	}
+	c, err := s.compiled(ctx, id)
+	if err != nil {
+		return err
+	}
+	h := len(c.Study.Hypotheses)
+
+	runCtx, cancel := context.WithCancel(ctx)
+	defer cancel()
+	var fits atomic.Int64
+	var stopped atomic.Bool // the study reached a final state while running
+	stop := make(chan struct{})
+	var wg sync.WaitGroup
+	wg.Add(1)
+	go func() {
+		defer wg.Done()
+		tick := time.NewTicker(s.cfg.PollInterval)
+		defer tick.Stop()
+		for {
+			select {
+			case <-stop:
+				return
+			case <-runCtx.Done():
+				return
+			case <-tick.C:
+			}
+			s.st.setPartial(runCtx, id, spec.Index, int(fits.Load()))
+			if st, err := s.rdb.HGet(runCtx, studyKey(id), "status").Result(); (err == nil && State(st).Final()) || errors.Is(err, redis.Nil) {
+				stopped.Store(true)
+				cancel()
+				return
+			}
+		}
+	}()
+	last := time.Now()
+	res, err := c.RunShard(runCtx, spec, func(n int) {
+		now := time.Now()
+		// The engine reports per participant; each of its n fits is
+		// counted at the participant's mean fit time.
+		per := now.Sub(last).Seconds() / float64(n)
+		for range n {
+			s.m.fitSeconds.Observe(per)
+		}
+		last = now
+		fits.Add(int64(n))
+		s.m.fits.Add(float64(n))
+	})
+	close(stop)
+	wg.Wait()
+	if err != nil {
+		if errors.Is(err, recovery.ErrCanceled) {
+			if stopped.Load() {
+				s.m.shards[shardCanceled].Inc()
+				s.log.Info("shard stopped: study canceled", "study", id, "shard", spec.Index)
+				return nil
+			}
+			// Shutdown or timeout: asynq puts the task back or retries it.
+			return err
+		}
+		return permanent("shard %d (design %d, generator %d, participants %d-%d): %v", spec.Index, spec.Design, spec.Generator, spec.From, spec.To-1, err)
+	}
+	blob, err := encodeResult(res)
+	if err != nil {
+		return permanent("encoding shard %d: %v", spec.Index, err)
+	}
+	n, err := s.st.storeShard(ctx, id, spec.Index, spec.Fits(h), blob, s.cfg.Identity)
+	if err != nil {
+		return err
+	}
+	s.m.shards[shardStored].Inc()
+	s.m.shardSeconds.Observe(res.Seconds)
+	s.log.Debug("shard stored", "study", id, "shard", spec.Index, "seconds", res.Seconds, "stored", n, "of", shards)
+	return s.maybeAssemble(ctx, id, shards)
+}
+
+// maybeAssemble enqueues the assembly once every shard is stored. The
+// unique task ID lets only one through however many shards see the count.
+func (s *Server) maybeAssemble(ctx context.Context, id string, shards int) error {
+	n, err := s.st.storedShards(ctx, id)
+	if err != nil {
+		return err
+	}
+	if shards == 0 || n < shards {
+		return nil
+	}
+	if _, err := s.queue.EnqueueContext(ctx, s.cfg.assembleTask(id)); err != nil && !errors.Is(err, asynq.ErrTaskIDConflict) {
+		return err
+	}
+	return nil
+}
+
+// handleAssemble builds the report from every stored shard, renders and
+// stores its files, and marks the study done.
+func (s *Server) handleAssemble(ctx context.Context, t *asynq.Task) error {
+	var p assemblePayload
+	if err := json.Unmarshal(t.Payload(), &p); err != nil {
+		return permanent("bad assemble payload: %v", err)
+	}
+	id := p.Study
+	rec, err := s.st.record(ctx, id)
+	if errors.Is(err, ErrNotFound) {
+		return nil
+	}
+	if err != nil {
+		return err
+	}
+	if State(rec["status"]).Final() {
+		return nil
+	}
+	c, err := s.compiled(ctx, id)
+	if err != nil {
+		return err
+	}
+	results, err := s.st.results(ctx, id)
+	if err != nil {
+		return err
+	}
+	if shards := atoi(rec["shards"]); len(results) < shards {
+		return fmt.Errorf("worker: study %s: %d of %d shards stored at assembly", id, len(results), shards)
+	}
+	start := time.Now()
+	rep, err := c.Assemble(results)
+	if err != nil {
+		return permanent("assembling the report: %v", err)
+	}
+	assembleSeconds := time.Since(start).Seconds()
+	workers, err := s.st.workerCount(ctx, id)
+	if err != nil {
+		return err
+	}
+	var shardSeconds float64
+	for _, r := range results {
+		shardSeconds += r.Seconds
+	}
+	finished := time.Now()
+	grid, _ := strconv.ParseFloat(rec["grid_seconds"], 64)
+	// Timing is the one part of a report that differs from `discrimen
+	// run`'s: here it is measured across the queue. Total runs from
+	// submission to assembly; Workers counts worker processes.
+	rep.Timing = recovery.Timing{
+		TotalSeconds:    finished.Sub(unixNano(rec["created"])).Seconds(),
+		GridSeconds:     grid,
+		ShardSeconds:    shardSeconds,
+		AssembleSeconds: assembleSeconds,
+		Fits:            c.TotalFits(),
+		Workers:         workers,
+	}
+	if rep.Timing.TotalSeconds > 0 {
+		rep.Timing.FitsPerSecond = float64(rep.Timing.Fits) / rep.Timing.TotalSeconds
+	}
+	files := map[ReportKind][]byte{}
+	if files[ReportJSON], err = rep.JSON(); err != nil {
+		return permanent("rendering report.json: %v", err)
+	}
+	if files[ReportHTML], err = rep.HTML(); err != nil {
+		return permanent("rendering report.html: %v", err)
+	}
+	if files[FitsCSV], err = rep.FitsCSV(); err != nil {
+		return permanent("rendering fits.csv: %v", err)
+	}
+	if err := s.st.storeReports(ctx, id, files); err != nil {
+		return err
+	}
+	ok, err := s.st.setStatus(ctx, id, []State{Queued, Running}, Done, "assemblies", "finished", finished.UnixNano())
+	if err != nil {
+		return err
+	}
+	if !ok {
+		return nil // canceled while assembling
+	}
+	s.m.assemblies.Inc()
+	s.cache.forget(id)
+	if err := s.st.finish(ctx, id, rec["owner"]); err != nil {
+		s.log.Warn("dropping shard results", "study", id, "err", err)
+	}
+	s.log.Info("study done", "study", id, "fits", rep.Timing.Fits, "seconds", rep.Timing.TotalSeconds, "workers", workers)
+	return nil
+}
+
+// handleError fails the study when a task will not be retried again.
+func (s *Server) handleError(ctx context.Context, t *asynq.Task, err error) {
+	retried, _ := asynq.GetRetryCount(ctx)
+	maxRetry, _ := asynq.GetMaxRetry(ctx)
+	var p struct {
+		Study string `json:"study"`
+	}
+	json.Unmarshal(t.Payload(), &p)
+	s.log.Warn("task failed", "type", t.Type(), "study", p.Study, "retried", retried, "max_retry", maxRetry, "err", err)
+	if p.Study == "" || (!errors.Is(err, asynq.SkipRetry) && retried < maxRetry) {
+		return
+	}
+	msg := strings.TrimPrefix(err.Error(), asynq.SkipRetry.Error()+": ")
+	ctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), 10*time.Second)
+	defer cancel()
+	s.fail(ctx, p.Study, msg)
+}
+
+// fail marks a study failed and drops its remaining tasks.
+func (s *Server) fail(ctx context.Context, id, msg string) {
+	ok, err := s.st.setStatus(ctx, id, []State{Queued, Running}, Failed, "", "error", msg, "finished", time.Now().UnixNano())
+	if err != nil || !ok {
+		return
+	}
+	if rec, err := s.st.record(ctx, id); err == nil {
+		dropTasks(ctx, s.inspector, s.cfg, id, atoi(rec["shards"]))
+		s.st.finish(ctx, id, rec["owner"])
+	}
+	s.cache.forget(id)
+	s.log.Error("study failed", "study", id, "err", msg)
+}
+
+// asynqLogger sends asynq's logs to slog.
+type asynqLogger struct{ l *slog.Logger }
+
+func (a asynqLogger) Debug(args ...any) { a.l.Debug(fmt.Sprint(args...), "component", "asynq") }
+func (a asynqLogger) Info(args ...any)  { a.l.Info(fmt.Sprint(args...), "component", "asynq") }
+func (a asynqLogger) Warn(args ...any)  { a.l.Warn(fmt.Sprint(args...), "component", "asynq") }
+func (a asynqLogger) Error(args ...any) { a.l.Error(fmt.Sprint(args...), "component", "asynq") }
+
+// Fatal follows asynq's contract: log and exit.
+func (a asynqLogger) Fatal(args ...any) {
+	a.l.Error(fmt.Sprint(args...), "component", "asynq")
+	os.Exit(1)
+}

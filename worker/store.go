@@ -1,0 +1,444 @@
+package worker
+
+import (
+	"bytes"
+	"context"
+	"crypto/rand"
+	"encoding/gob"
+	"encoding/hex"
+	"errors"
+	"fmt"
+	"os"
+	"strconv"
+	"strings"
+	"time"
+
+	"github.com/redis/go-redis/v9"
+
+	"discrimen/recovery"
+)
+
+// State is a study's place in its life.
+type State string
+
+// The states of a study. Done, Failed and Canceled are final.
+const (
+	Queued   State = "queued"
+	Running  State = "running"
+	Done     State = "done"
+	Failed   State = "failed"
+	Canceled State = "canceled"
+)
+
+// States lists every state in life order.
+var States = []State{Queued, Running, Done, Failed, Canceled}
+
+// Final reports whether the study can no longer change.
+func (s State) Final() bool { return s == Done || s == Failed || s == Canceled }
+
+// ReportKind names one of a finished study's report files.
+type ReportKind int
+
+// The report files of a study.
+const (
+	ReportJSON ReportKind = iota
+	ReportHTML
+	FitsCSV
+)
+
+func (k ReportKind) fileName() string {
+	switch k {
+	case ReportJSON:
+		return "report.json"
+	case ReportHTML:
+		return "report.html"
+	case FitsCSV:
+		return "fits.csv"
+	}
+	panic(fmt.Sprintf("worker: unknown report kind %d", int(k)))
+}
+
+// Sentinel errors callers act on; the api maps them to HTTP codes.
+var (
+	// ErrNotFound: no such study for this owner (or it has expired).
+	ErrNotFound = errors.New("worker: study not found")
+	// ErrNotDone: the report was asked for before the study finished.
+	ErrNotDone = errors.New("worker: study has not finished")
+	// ErrFinished: the study already finished, so it cannot be canceled.
+	ErrFinished = errors.New("worker: study already finished")
+)
+
+// Status is what a caller can read about a study at any time.
+type Status struct {
+	ID    string
+	Owner string
+	Name  string
+	State State
+	// Done and Total count fits. Done includes the finished participants
+	// of running shards, so it moves smoothly.
+	Done, Total int
+	// ShardsDone and Shards count shards (Shards is 0 until planned).
+	ShardsDone, Shards int
+	// ETA estimates the time left from the fit rate since the plan
+	// finished; nil when unknown.
+	ETA                        *time.Duration
+	Created, Started, Finished time.Time
+	Error                      string
+	// Assemblies counts stored reports (1 once done).
+	Assemblies int
+}
+
+// store holds the Redis operations on the key layout of keys.go.
+type store struct {
+	rdb       redis.UniversalClient
+	retention time.Duration
+}
+
+// setStatusScript changes a study's status only when its current status is
+// one of ARGV[1] (comma-separated), then sets the field pairs from ARGV[3]
+// on and, when ARGV[2] is not empty, increments that field. It returns 1
+// when applied, 0 when the status did not match, -1 when the study is gone.
+var setStatusScript = redis.NewScript(`
+local cur = redis.call('HGET', KEYS[1], 'status')
+if not cur then return -1 end
+for s in string.gmatch(ARGV[1], '[^,]+') do
+  if s == cur then
+    if #ARGV > 2 then redis.call('HSET', KEYS[1], unpack(ARGV, 3)) end
+    if ARGV[2] ~= '' then redis.call('HINCRBY', KEYS[1], ARGV[2], 1) end
+    return 1
+  end
+end
+return 0
+`)
+
+// newStudyID returns 12 hex digits of Unix milliseconds then 16 random hex
+// digits: ids sort by submission time, which the owner index relies on.
+func newStudyID(now time.Time) string {
+	var b [8]byte
+	if _, err := rand.Read(b[:]); err != nil {
+		panic("worker: crypto/rand: " + err.Error())
+	}
+	return fmt.Sprintf("%012x%s", now.UnixMilli()&(1<<48-1), hex.EncodeToString(b[:]))
+}
+
+// ValidID reports whether s has the form of a study id, so that callers can
+// answer "not found" without asking Redis.
+func ValidID(s string) bool {
+	if len(s) != 28 {
+		return false
+	}
+	for _, r := range s {
+		if !(r >= '0' && r <= '9' || r >= 'a' && r <= 'f') {
+			return false
+		}
+	}
+	return true
+}
+
+func (st *store) create(ctx context.Context, id, owner, name string, input []byte, total int, now time.Time) error {
+	_, err := st.rdb.TxPipelined(ctx, func(p redis.Pipeliner) error {
+		p.HSet(ctx, studyKey(id), "owner", owner, "name", name, "status", string(Queued),
+			"created", now.UnixNano(), "total", total)
+		p.Set(ctx, inputKey(id), input, st.retention)
+		p.Expire(ctx, studyKey(id), st.retention)
+		return nil
+	})
+	if err != nil {
+		return err
+	}
+	// The indexes live in other slots; they are written after the study so
+	// a reader that finds an id always finds its record (or its expiry).
+	if err := st.rdb.ZAdd(ctx, ownerKey(owner), redis.Z{Member: id}).Err(); err != nil {
+		return err
+	}
+	if err := st.rdb.ZAdd(ctx, indexKey, redis.Z{Member: id}).Err(); err != nil {
+		return err
+	}
+	st.keepIndexes(ctx, owner)
+	return nil
+}
+
+// keepIndexes restarts the indexes' expiry at twice the retention, so an
+// owner's index outlives every study in it unless one runs for longer than
+// that with no other study of the owner submitted or finished meanwhile.
+func (st *store) keepIndexes(ctx context.Context, owner string) {
+	st.rdb.Expire(ctx, ownerKey(owner), 2*st.retention)
+	st.rdb.Expire(ctx, indexKey, 2*st.retention)
+}
+
+// setStatus applies a status change guarded by the allowed current states.
+func (st *store) setStatus(ctx context.Context, id string, from []State, to State, incr string, fields ...any) (bool, error) {
+	allowed := make([]string, len(from))
+	for i, s := range from {
+		allowed[i] = string(s)
+	}
+	args := []any{strings.Join(allowed, ","), incr}
+	if to != "" {
+		args = append(args, "status", string(to))
+	}
+	args = append(args, fields...)
+	n, err := setStatusScript.Run(ctx, st.rdb, []string{studyKey(id)}, args...).Int()
+	if err != nil {
+		return false, err
+	}
+	if n < 0 {
+		return false, ErrNotFound
+	}
+	return n == 1, nil
+}
+
+// record reads a study's hash; ErrNotFound when it is gone.
+func (st *store) record(ctx context.Context, id string) (map[string]string, error) {
+	m, err := st.rdb.HGetAll(ctx, studyKey(id)).Result()
+	if err != nil {
+		return nil, err
+	}
+	if len(m) == 0 {
+		return nil, ErrNotFound
+	}
+	return m, nil
+}
+
+func (st *store) input(ctx context.Context, id string) ([]byte, error) {
+	b, err := st.rdb.Get(ctx, inputKey(id)).Bytes()
+	if errors.Is(err, redis.Nil) {
+		return nil, ErrNotFound
+	}
+	return b, err
+}
+
+// status reads a study's full status in one round trip.
+func (st *store) status(ctx context.Context, id string, now time.Time) (Status, error) {
+	var rec *redis.MapStringStringCmd
+	var done, partial *redis.StringSliceCmd
+	_, err := st.rdb.Pipelined(ctx, func(p redis.Pipeliner) error {
+		rec = p.HGetAll(ctx, studyKey(id))
+		done = p.HVals(ctx, doneKey(id))
+		partial = p.HVals(ctx, partialKey(id))
+		return nil
+	})
+	if err != nil {
+		return Status{}, err
+	}
+	m := rec.Val()
+	if len(m) == 0 {
+		return Status{}, ErrNotFound
+	}
+	s := Status{
+		ID: id, Owner: m["owner"], Name: m["name"], State: State(m["status"]), Error: m["error"],
+		Total: atoi(m["total"]), Shards: atoi(m["shards"]), Assemblies: atoi(m["assemblies"]),
+		Created: unixNano(m["created"]), Started: unixNano(m["started"]), Finished: unixNano(m["finished"]),
+	}
+	for _, v := range done.Val() {
+		s.Done += atoi(v)
+		s.ShardsDone++
+	}
+	if s.State == Running {
+		for _, v := range partial.Val() {
+			s.Done += atoi(v)
+		}
+	}
+	// A done study's count is exactly the stored shards' fits; a running
+	// one also counts partial progress, which could only overshoot through
+	// a stale entry, so it is capped for display.
+	if s.State != Done && s.Done > s.Total {
+		s.Done = s.Total
+	}
+	if s.State == Running && !s.Started.IsZero() && s.Done > 0 {
+		// Constant-rate extrapolation: left = (total − done) · elapsed / done.
+		elapsed := now.Sub(s.Started)
+		left := time.Duration(float64(elapsed) * float64(s.Total-s.Done) / float64(s.Done))
+		s.ETA = &left
+	}
+	return s, nil
+}
+
+// storeShard writes a shard's result under its index (a retry overwrites
+// it), and returns the number of stored shards.
+func (st *store) storeShard(ctx context.Context, id string, index, fits int, blob []byte, identity string) (int, error) {
+	f := strconv.Itoa(index)
+	var n *redis.IntCmd
+	_, err := st.rdb.TxPipelined(ctx, func(p redis.Pipeliner) error {
+		p.HSet(ctx, resultsKey(id), f, blob)
+		p.HSet(ctx, doneKey(id), f, fits)
+		p.HDel(ctx, partialKey(id), f)
+		p.SAdd(ctx, workersKey(id), identity)
+		p.HSet(ctx, studyKey(id), "last_shard", time.Now().UnixNano())
+		for _, k := range studyKeys(id) {
+			p.Expire(ctx, k, st.retention)
+		}
+		n = p.HLen(ctx, doneKey(id))
+		return nil
+	})
+	if err != nil {
+		return 0, err
+	}
+	return int(n.Val()), nil
+}
+
+func (st *store) shardStored(ctx context.Context, id string, index int) (bool, error) {
+	return st.rdb.HExists(ctx, doneKey(id), strconv.Itoa(index)).Result()
+}
+
+func (st *store) storedShards(ctx context.Context, id string) (int, error) {
+	n, err := st.rdb.HLen(ctx, doneKey(id)).Result()
+	return int(n), err
+}
+
+func (st *store) setPartial(ctx context.Context, id string, index, fits int) error {
+	return st.rdb.HSet(ctx, partialKey(id), strconv.Itoa(index), fits).Err()
+}
+
+func (st *store) countRun(ctx context.Context, id string, index int) error {
+	return st.rdb.HIncrBy(ctx, runsKey(id), strconv.Itoa(index), 1).Err()
+}
+
+// runs returns how many times each shard was started.
+func (st *store) runs(ctx context.Context, id string) (map[int]int, error) {
+	m, err := st.rdb.HGetAll(ctx, runsKey(id)).Result()
+	if err != nil {
+		return nil, err
+	}
+	out := map[int]int{}
+	for k, v := range m {
+		out[atoi(k)] = atoi(v)
+	}
+	return out, nil
+}
+
+// results decodes every stored shard result.
+func (st *store) results(ctx context.Context, id string) ([]*recovery.ShardResult, error) {
+	m, err := st.rdb.HGetAll(ctx, resultsKey(id)).Result()
+	if err != nil {
+		return nil, err
+	}
+	out := make([]*recovery.ShardResult, 0, len(m))
+	for k, v := range m {
+		var r recovery.ShardResult
+		if err := gob.NewDecoder(strings.NewReader(v)).Decode(&r); err != nil {
+			return nil, fmt.Errorf("worker: study %s shard %s: decoding the stored result: %w", id, k, err)
+		}
+		out = append(out, &r)
+	}
+	return out, nil
+}
+
+func encodeResult(r *recovery.ShardResult) ([]byte, error) {
+	var buf bytes.Buffer
+	if err := gob.NewEncoder(&buf).Encode(r); err != nil {
+		return nil, err
+	}
+	return buf.Bytes(), nil
+}
+
+func (st *store) workerCount(ctx context.Context, id string) (int, error) {
+	n, err := st.rdb.SCard(ctx, workersKey(id)).Result()
+	return int(n), err
+}
+
+// storeReports writes the rendered report files with the retention TTL.
+func (st *store) storeReports(ctx context.Context, id string, files map[ReportKind][]byte) error {
+	_, err := st.rdb.TxPipelined(ctx, func(p redis.Pipeliner) error {
+		for k, b := range files {
+			p.Set(ctx, reportKey(id, k), b, st.retention)
+		}
+		return nil
+	})
+	return err
+}
+
+func (st *store) report(ctx context.Context, id string, k ReportKind) ([]byte, error) {
+	b, err := st.rdb.Get(ctx, reportKey(id, k)).Bytes()
+	if errors.Is(err, redis.Nil) {
+		return nil, ErrNotFound
+	}
+	return b, err
+}
+
+// finish drops the per-shard working data of a study that reached a final
+// state and restarts the retention clock on what is kept.
+func (st *store) finish(ctx context.Context, id, owner string) error {
+	_, err := st.rdb.TxPipelined(ctx, func(p redis.Pipeliner) error {
+		p.Del(ctx, resultsKey(id), partialKey(id))
+		for _, k := range studyKeys(id) {
+			p.Expire(ctx, k, st.retention)
+		}
+		return nil
+	})
+	st.keepIndexes(ctx, owner)
+	return err
+}
+
+// list returns up to limit ids of an owner's studies older than cursor
+// (newest first; "" starts at the newest) and whether more follow.
+func (st *store) list(ctx context.Context, owner, cursor string, limit int) ([]string, error) {
+	max := "+"
+	if cursor != "" {
+		max = "(" + cursor
+	}
+	return st.rdb.ZRevRangeByLex(ctx, ownerKey(owner), &redis.ZRangeBy{Max: max, Min: "-", Count: int64(limit)}).Result()
+}
+
+func (st *store) unindex(ctx context.Context, owner, id string) {
+	st.rdb.ZRem(ctx, ownerKey(owner), id)
+	st.rdb.ZRem(ctx, indexKey, id)
+}
+
+// countStates counts the indexed studies by state, dropping index entries
+// whose study has expired.
+func (st *store) countStates(ctx context.Context) (map[State]int, error) {
+	ids, err := st.rdb.ZRange(ctx, indexKey, 0, -1).Result()
+	if err != nil {
+		return nil, err
+	}
+	cmds := make([]*redis.StringCmd, len(ids))
+	_, err = st.rdb.Pipelined(ctx, func(p redis.Pipeliner) error {
+		for i, id := range ids {
+			cmds[i] = p.HGet(ctx, studyKey(id), "status")
+		}
+		return nil
+	})
+	if err != nil && !errors.Is(err, redis.Nil) {
+		return nil, err
+	}
+	out := map[State]int{}
+	var gone []any
+	for i, c := range cmds {
+		v, err := c.Result()
+		if errors.Is(err, redis.Nil) {
+			gone = append(gone, ids[i])
+			continue
+		}
+		out[State(v)]++
+	}
+	if len(gone) > 0 {
+		st.rdb.ZRem(ctx, indexKey, gone...)
+	}
+	return out, nil
+}
+
+func atoi(s string) int {
+	n, _ := strconv.Atoi(s)
+	return n
+}
+
+func itoa(n int) string { return strconv.Itoa(n) }
+
+func unixNano(s string) time.Time {
+	if s == "" {
+		return time.Time{}
+	}
+	n, err := strconv.ParseInt(s, 10, 64)
+	if err != nil {
+		return time.Time{}
+	}
+	return time.Unix(0, n).UTC()
+}
+
+func defaultIdentity() string {
+	h, err := os.Hostname()
+	if err != nil {
+		h = "worker"
+	}
+	return h + ":" + strconv.Itoa(os.Getpid())
+}

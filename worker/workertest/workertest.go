@@ -1,0 +1,101 @@
+// Package workertest gives tests a Redis to run the queue against.
+//
+// When DISCRIMEN_TEST_REDIS is set (a URL such as redis://127.0.0.1:6379/9)
+// each test gets that server, on the URL's database number plus the
+// caller's offset, flushed before the test. Packages that test in parallel
+// pass different offsets so they never flush each other's data. Otherwise
+// each test gets its own embedded miniredis on a loopback TCP port, which
+// child processes can reach as well.
+package workertest
+
+import (
+	"context"
+	"fmt"
+	"net/url"
+	"os"
+	"strconv"
+	"strings"
+	"testing"
+	"time"
+
+	"github.com/alicebob/miniredis/v2"
+	"github.com/hibiken/asynq"
+	"github.com/redis/go-redis/v9"
+)
+
+// EnvVar names the variable that points tests at a real Redis.
+const EnvVar = "DISCRIMEN_TEST_REDIS"
+
+// Redis is a test's Redis server.
+type Redis struct {
+	// URL reaches the server (redis://host:port/db).
+	URL string
+	// Opt is the same connection for asynq and worker.Config.
+	Opt asynq.RedisClientOpt
+	// Mini is the embedded server, nil when the test runs against a real
+	// Redis.
+	Mini *miniredis.Miniredis
+}
+
+// Real reports whether the test runs against a real Redis server.
+func (r *Redis) Real() bool { return r.Mini == nil }
+
+// New returns a flushed Redis for one test; dbOffset is added to the
+// database number of DISCRIMEN_TEST_REDIS.
+func New(tb testing.TB, dbOffset int) *Redis {
+	tb.Helper()
+	raw := os.Getenv(EnvVar)
+	if raw == "" {
+		m := miniredis.RunT(tb)
+		// miniredis counts TTLs down only when told to; follow the clock so
+		// retention behaves as on a real server.
+		stop := make(chan struct{})
+		go func() {
+			t := time.NewTicker(time.Second)
+			defer t.Stop()
+			for {
+				select {
+				case <-stop:
+					return
+				case <-t.C:
+					m.FastForward(time.Second)
+				}
+			}
+		}()
+		tb.Cleanup(func() { close(stop) })
+		return &Redis{URL: "redis://" + m.Addr() + "/0", Opt: asynq.RedisClientOpt{Addr: m.Addr()}, Mini: m}
+	}
+	u, err := url.Parse(raw)
+	if err != nil || u.Scheme != "redis" {
+		tb.Fatalf("workertest: %s=%q is not a redis:// URL", EnvVar, raw)
+	}
+	db := 0
+	if p := strings.Trim(u.Path, "/"); p != "" {
+		if db, err = strconv.Atoi(p); err != nil {
+			tb.Fatalf("workertest: %s=%q: the path must be a database number", EnvVar, raw)
+		}
+	}
+	db += dbOffset
+	if db == 0 {
+		tb.Fatalf("workertest: refusing to flush database 0; point %s at a spare database such as /9", EnvVar)
+	}
+	pw, _ := u.User.Password()
+	opt := asynq.RedisClientOpt{Addr: u.Host, Password: pw, DB: db}
+	c := redis.NewClient(&redis.Options{Addr: u.Host, Password: pw, DB: db})
+	defer c.Close()
+	ctx, cancel := context.WithTimeout(context.Background(), 5*time.Second)
+	defer cancel()
+	if err := c.FlushDB(ctx).Err(); err != nil {
+		tb.Fatalf("workertest: flushing %s db %d: %v", u.Host, db, err)
+	}
+	u.Path = fmt.Sprintf("/%d", db)
+	return &Redis{URL: u.String(), Opt: opt}
+}
+
+// Client returns a go-redis client of the test's server, closed at the end
+// of the test.
+func (r *Redis) Client(tb testing.TB) *redis.Client {
+	c := redis.NewClient(&redis.Options{Addr: r.Opt.Addr, Password: r.Opt.Password, DB: r.Opt.DB})
+	tb.Cleanup(func() { c.Close() })
+	return c
+}
