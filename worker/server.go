@@ -31,6 +31,7 @@ type Server struct {
 	cache     *compiledCache
 	m         *serverMetrics
 	log       *slog.Logger
+	stopSweep context.CancelFunc
 }
 
 // NewServer prepares a worker; Start begins taking tasks.
@@ -90,13 +91,22 @@ func (s *Server) Start() error {
 	mux.HandleFunc(TypeShard, s.handleShard)
 	mux.HandleFunc(TypeAssemble, s.handleAssemble)
 	s.log.Info("worker starting", "concurrency", s.cfg.Concurrency, "queue", s.cfg.Queue)
-	return s.srv.Start(mux)
+	if err := s.srv.Start(mux); err != nil {
+		return err
+	}
+	ctx, cancel := context.WithCancel(context.Background())
+	s.stopSweep = cancel
+	go s.sweepLoop(ctx)
+	return nil
 }
 
 // Shutdown stops taking tasks, waits up to ShutdownTimeout for running
 // shards to finish and puts the others back on the queue, then closes the
 // Redis connection.
 func (s *Server) Shutdown() {
+	if s.stopSweep != nil {
+		s.stopSweep()
+	}
 	s.srv.Shutdown()
 	s.rdb.Close()
 	s.log.Info("worker stopped")
