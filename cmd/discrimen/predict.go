@@ -211,8 +211,15 @@ func loadStudyFile(path string, stderr io.Writer) (*models.Study, int) {
 func writePredictTable(w io.Writer, d *models.Design, preds []models.HypothesisPrediction) {
 	fmt.Fprintf(w, "design %s: %d streams, %d items, validity %.2f, measures %s\n\n",
 		d.Name, d.Streams, d.Items, d.Validity, strings.Join(d.Measures, ","))
+	// Names and families read left-aligned: pad them to one width so the
+	// right-aligning tabwriter (numbers) leaves them flush left.
+	nw, fw := len("hypothesis"), len("family")
+	for _, p := range preds {
+		nw, fw = max(nw, len(p.Name)), max(fw, len(p.Family))
+	}
+	left := func(s string, n int) string { return s + strings.Repeat(" ", n-len(s)) }
 	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', tabwriter.AlignRight)
-	fmt.Fprintln(tw, "hypothesis\tfamily\tCTI (ms)\tvalid RT (ms)\tvalid acc\tinvalid RT (ms)\tinvalid acc\tmisdirected\tcensored\t")
+	fmt.Fprintln(tw, left("hypothesis", nw)+"\t"+left("family", fw)+"\tCTI (ms)\tvalid RT (ms)\tvalid acc\tinvalid RT (ms)\tinvalid acc\tmisdirected\tcensored\t")
 	for _, p := range preds {
 		for c, cti := range p.CTIms {
 			cens := "-"
@@ -228,7 +235,7 @@ func writePredictTable(w io.Writer, d *models.Design, preds []models.HypothesisP
 			if c > 0 {
 				name, fam = "", ""
 			}
-			fmt.Fprintf(tw, "%s\t%s\t%d\t%.1f\t%.3f\t%.1f\t%.3f\t%.3f\t%s\t\n", name, fam, cti,
+			fmt.Fprintf(tw, "%s\t%s\t%d\t%.1f\t%.3f\t%.1f\t%.3f\t%.3f\t%s\t\n", left(name, nw), left(fam, fw), cti,
 				p.Valid.RTms[c], p.Valid.Accuracy[c], p.Invalid.RTms[c], p.Invalid.Accuracy[c], p.Invalid.Misdirected[c], cens)
 		}
 	}
@@ -241,13 +248,13 @@ func writePredictTable(w io.Writer, d *models.Design, preds []models.HypothesisP
 	fmt.Fprintf(w, "\nneural signal (expected precision, baseline-corrected) in %d ms bins from cue onset, longest CTI:\n", preds[0].Neural.BinMs)
 	tw = tabwriter.NewWriter(w, 0, 0, 1, ' ', tabwriter.AlignRight)
 	last := len(preds[0].CTIms) - 1
-	fmt.Fprint(tw, "hypothesis\t")
+	fmt.Fprint(tw, left("hypothesis", nw)+"\t")
 	for b := range preds[0].Neural.ByCTI[last] {
 		fmt.Fprintf(tw, "%d\t", (b+1)*preds[0].Neural.BinMs)
 	}
 	fmt.Fprintln(tw)
 	for _, p := range preds {
-		fmt.Fprintf(tw, "%s\t", p.Name)
+		fmt.Fprintf(tw, "%s\t", left(p.Name, nw))
 		for _, v := range p.Neural.ByCTI[last] {
 			fmt.Fprintf(tw, "%.3f\t", v)
 		}
