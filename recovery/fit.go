@@ -4,7 +4,6 @@ import (
 	"math"
 	"sort"
 
-	"gonum.org/v1/gonum/optimize"
 
 	"discrimen/models"
 )
@@ -206,20 +205,14 @@ func (f *fitter) starts(s *summary, sp space) [][]float64 {
 	return out
 }
 
-// searchSettings are the stopping rules of one Nelder–Mead run: at most
-// 400 evaluations per dimension, converged when the best value improves by
-// less than 1e-6 (absolute) over 12 iterations per dimension.
-func searchSettings(dims int) *optimize.Settings {
-	return &optimize.Settings{
-		FuncEvaluations: 400 * dims,
-		Converger:       &optimize.FunctionConverge{Absolute: 1e-6, Relative: 1e-9, Iterations: 12 * dims},
-	}
+// searchSettings are the stopping rules of one Nelder–Mead run: an initial
+// simplex of 0.5 in the logit-transformed space, at most 400 evaluations per
+// dimension, converged when the best value improves by less than 1e-6
+// (absolute) over 12 iterations per dimension, or when every vertex's value
+// lies within 1e-9.
+func searchSettings(dims int) nmSettings {
+	return nmSettings{Size: 0.5, MaxEvals: 400 * dims, Absolute: 1e-6, Relative: 1e-9, Stall: 12 * dims, Spread: 1e-9}
 }
-
-// searchMethod is Nelder–Mead (Nelder & Mead 1965, Computer Journal 7:308)
-// with gonum's default reflection, expansion and contraction coefficients
-// and an initial simplex of 0.5 in the logit-transformed space.
-func searchMethod() *optimize.NelderMead { return &optimize.NelderMead{SimplexSize: 0.5} }
 
 func abs(x int) int {
 	if x < 0 {
@@ -258,29 +251,18 @@ func (f *fitter) fit(s *summary, withSE bool) Fit {
 		}
 		z0 := make([]float64, sp.totalDims)
 		sp.toSearch(start, z0)
-		prob := optimize.Problem{Func: func(z []float64) float64 {
+		res := nelderMead(func(z []float64) float64 {
 			sp.toNatural(z, theta)
-			v := f.negLogLik(s, sp, theta, false, nil)
-			if math.IsNaN(v) {
-				return math.Inf(1)
-			}
-			return v
-		}}
-		res, err := optimize.Minimize(prob, z0, searchSettings(sp.totalDims), searchMethod())
-		if res == nil {
-			if err != nil {
-				status = err.Error()
-			}
-			continue
-		}
-		evals += res.Stats.FuncEvaluations
+			return f.negLogLik(s, sp, theta, false, nil)
+		}, z0, searchSettings(sp.totalDims))
+		evals += res.Evals
 		if math.IsInf(res.F, 0) || math.IsNaN(res.F) {
+			status = res.Status
 			continue
 		}
 		th := make([]float64, sp.totalDims)
 		sp.toNatural(res.X, th)
-		runs = append(runs, run{theta: th, f: res.F, status: res.Status.String(),
-			converged: err == nil && (res.Status == optimize.FunctionConvergence || res.Status == optimize.MethodConverge)})
+		runs = append(runs, run{theta: th, f: res.F, status: res.Status, converged: res.Converged})
 		best = math.Min(best, res.F)
 	}
 	if sp.totalDims == 0 && !math.IsInf(best, 0) {

@@ -8,7 +8,6 @@ import (
 
 	"gonum.org/v1/gonum/floats/scalar"
 	"gonum.org/v1/gonum/mat"
-	"gonum.org/v1/gonum/optimize"
 
 	"discrimen/models"
 )
@@ -22,15 +21,14 @@ func TestNelderMeadRosenbrock(t *testing.T) {
 		return a*a + 100*b*b
 	}
 	set := searchSettings(2)
-	set.FuncEvaluations = 5000
-	set.Converger = &optimize.FunctionConverge{Absolute: 1e-14, Iterations: 200}
-	res, err := optimize.Minimize(optimize.Problem{Func: f}, []float64{-1.2, 1}, set, searchMethod())
-	if err != nil {
-		t.Fatal(err)
+	set.MaxEvals, set.Absolute, set.Relative, set.Stall, set.Spread = 5000, 1e-14, 0, 200, 0
+	res := nelderMead(f, []float64{-1.2, 1}, set)
+	if !res.Converged {
+		t.Errorf("status %q after %d evaluations, want converged", res.Status, res.Evals)
 	}
 	for i, want := range []float64{1, 1} {
 		if !scalar.EqualWithinAbs(res.X[i], want, 1e-4) {
-			t.Errorf("x[%d] = %.8f, want %g (status %v)", i, res.X[i], want, res.Status)
+			t.Errorf("x[%d] = %.8f, want %g (status %q)", i, res.X[i], want, res.Status)
 		}
 	}
 }
@@ -279,5 +277,37 @@ func TestBoxLS2(t *testing.T) {
 		if got := syy - red; got > bestRSS+1e-9 || got < bestRSS-0.01 {
 			t.Errorf("%s: RSS %.6f, brute force %.6f", c.name, got, bestRSS)
 		}
+	}
+}
+
+// TestNelderMeadLimits: a quadratic bowl in 1 and 3 dimensions converges
+// to its centre; an evaluation limit is reported as such; a function that
+// is nowhere finite says so.
+func TestNelderMeadLimits(t *testing.T) {
+	bowl := func(x []float64) float64 {
+		s := 0.0
+		for i, v := range x {
+			d := v - float64(i+1)
+			s += d * d
+		}
+		return s
+	}
+	for _, n := range []int{1, 3} {
+		res := nelderMead(bowl, make([]float64, n), searchSettings(n))
+		for i, v := range res.X {
+			if !res.Converged || math.Abs(v-float64(i+1)) > 1e-2 {
+				t.Errorf("n = %d: x = %v (%s), want (1, 2, 3)[:n]", n, res.X, res.Status)
+				break
+			}
+		}
+	}
+	set := searchSettings(3)
+	set.MaxEvals = 10
+	if res := nelderMead(bowl, make([]float64, 3), set); res.Converged || res.Status != "evaluation limit" || res.Evals < 10 {
+		t.Errorf("limited run: %+v, want the evaluation limit", res)
+	}
+	nan := func([]float64) float64 { return math.NaN() }
+	if res := nelderMead(nan, []float64{0}, searchSettings(1)); res.Converged || res.Status != "no finite value" {
+		t.Errorf("NaN function: %+v, want no finite value", res)
 	}
 }
