@@ -4,7 +4,6 @@ import (
 	"math"
 	"sort"
 
-
 	"discrimen/models"
 )
 
