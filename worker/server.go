@@ -165,24 +165,31 @@ func plan(study *models.Study, size int) ([]recovery.ShardSpec, error) {
 	return recovery.PlanStudy(study, size)
 }
 
+// liveStudy decodes a plan or assemble task's payload and loads its
+// study's record. skip is true when the study is gone (expired or never
+// stored) or already finished: the task then has nothing left to do.
+func (s *Server) liveStudy(ctx context.Context, t *asynq.Task) (id string, rec map[string]string, skip bool, err error) {
+	var p planPayload // the assemble payload has the same shape
+	if err := json.Unmarshal(t.Payload(), &p); err != nil {
+		return "", nil, false, permanent("bad %s payload: %v", t.Type(), err)
+	}
+	rec, err = s.st.record(ctx, p.Study)
+	if errors.Is(err, ErrNotFound) {
+		return p.Study, nil, true, nil
+	}
+	if err != nil {
+		return p.Study, nil, false, err
+	}
+	return p.Study, rec, State(rec["status"]).Final(), nil
+}
+
 // handlePlan stores the study's plan and enqueues every shard not yet
 // stored. A retried plan enqueues again; existing task IDs conflict
 // and are skipped.
 func (s *Server) handlePlan(ctx context.Context, t *asynq.Task) error {
-	var p planPayload
-	if err := json.Unmarshal(t.Payload(), &p); err != nil {
-		return permanent("bad plan payload: %v", err)
-	}
-	id := p.Study
-	rec, err := s.st.record(ctx, id)
-	if errors.Is(err, ErrNotFound) {
-		return nil
-	}
-	if err != nil {
+	id, _, skip, err := s.liveStudy(ctx, t)
+	if skip || err != nil {
 		return err
-	}
-	if State(rec["status"]).Final() {
-		return nil
 	}
 	study, err := s.study(ctx, id)
 	if err != nil {
@@ -346,20 +353,9 @@ func (s *Server) maybeAssemble(ctx context.Context, id string, shards int) error
 // handleAssemble builds the report from every stored shard, renders and
 // stores its files, and marks the study done.
 func (s *Server) handleAssemble(ctx context.Context, t *asynq.Task) error {
-	var p assemblePayload
-	if err := json.Unmarshal(t.Payload(), &p); err != nil {
-		return permanent("bad assemble payload: %v", err)
-	}
-	id := p.Study
-	rec, err := s.st.record(ctx, id)
-	if errors.Is(err, ErrNotFound) {
-		return nil
-	}
-	if err != nil {
+	id, rec, skip, err := s.liveStudy(ctx, t)
+	if skip || err != nil {
 		return err
-	}
-	if State(rec["status"]).Final() {
-		return nil
 	}
 	c, err := s.compiled(ctx, id)
 	if err != nil {

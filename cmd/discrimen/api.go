@@ -122,17 +122,9 @@ func cmdAPI(args []string, stdout, stderr io.Writer) int {
 		fmt.Fprintln(stderr, "usage: discrimen api --redis URL --keys FILE [--listen ADDR] [flags]\n\nServes the HTTP API; 'discrimen worker' processes run the studies.")
 		fs.PrintDefaults()
 	}
-	if err := fs.Parse(args); err != nil {
-		return 2
-	}
-	if fs.NArg() > 0 {
-		fmt.Fprintf(stderr, "discrimen api: unexpected argument %q\n", fs.Arg(0))
-		return 2
-	}
-	log, err := lf.logger(stderr)
-	if err != nil {
-		fmt.Fprintln(stderr, "discrimen api:", err)
-		return 2
+	log, code := parseServiceFlags("api", fs, args, &lf, stderr)
+	if log == nil {
+		return code
 	}
 	opt, err := rf.option()
 	if err == nil && opt == nil {

@@ -68,17 +68,9 @@ func cmdServe(args []string, stdout, stderr io.Writer) int {
 		fmt.Fprintln(stderr, "usage: discrimen serve [--redis URL] (--keys FILE | --no-auth) [--listen ADDR] [flags]\n\nServes the HTTP API and runs the studies in this process. Without --redis it uses an\nembedded in-memory Redis and nothing persists.")
 		fs.PrintDefaults()
 	}
-	if err := fs.Parse(args); err != nil {
-		return 2
-	}
-	if fs.NArg() > 0 {
-		fmt.Fprintf(stderr, "discrimen serve: unexpected argument %q\n", fs.Arg(0))
-		return 2
-	}
-	log, err := lf.logger(stderr)
-	if err != nil {
-		fmt.Fprintln(stderr, "discrimen serve:", err)
-		return 2
+	log, code := parseServiceFlags("serve", fs, args, &lf, stderr)
+	if log == nil {
+		return code
 	}
 	opt, err := rf.option()
 	if err != nil {
@@ -137,7 +129,7 @@ func cmdServe(args []string, stdout, stderr io.Writer) int {
 	}
 	// Shutdown order: stop taking requests, then drain the workers (shards
 	// finish or go back to the queue), then close Redis.
-	code := 0
+	code = 0
 	if err := serveHTTP(ctx, ln, h, log); err != nil && !errors.Is(err, http.ErrServerClosed) {
 		fmt.Fprintln(stderr, "discrimen serve:", err)
 		code = 1

@@ -131,6 +131,25 @@ func (f *logFlags) register(fs *flag.FlagSet) {
 	fs.StringVar(&f.format, "log-format", "text", "log `FORMAT`: text or json")
 }
 
+// parseServiceFlags parses a service command's flags, refuses stray
+// arguments and builds its logger. A nil logger means the command must
+// exit with code.
+func parseServiceFlags(name string, fs *flag.FlagSet, args []string, lf *logFlags, stderr io.Writer) (*slog.Logger, int) {
+	if err := fs.Parse(args); err != nil {
+		return nil, 2
+	}
+	if fs.NArg() > 0 {
+		fmt.Fprintf(stderr, "discrimen %s: unexpected argument %q\n", name, fs.Arg(0))
+		return nil, 2
+	}
+	log, err := lf.logger(stderr)
+	if err != nil {
+		fmt.Fprintf(stderr, "discrimen %s: %v\n", name, err)
+		return nil, 2
+	}
+	return log, 0
+}
+
 func (f *logFlags) logger(w io.Writer) (*slog.Logger, error) {
 	var lv slog.Level
 	if err := lv.UnmarshalText([]byte(f.level)); err != nil {
@@ -175,17 +194,9 @@ func cmdWorker(args []string, stdout, stderr io.Writer) int {
 		fmt.Fprintln(stderr, "usage: discrimen worker --redis URL [--concurrency N] [flags]\n\nRuns shards of the studies queued in a shared Redis.")
 		fs.PrintDefaults()
 	}
-	if err := fs.Parse(args); err != nil {
-		return 2
-	}
-	if fs.NArg() > 0 {
-		fmt.Fprintf(stderr, "discrimen worker: unexpected argument %q\n", fs.Arg(0))
-		return 2
-	}
-	log, err := lf.logger(stderr)
-	if err != nil {
-		fmt.Fprintln(stderr, "discrimen worker:", err)
-		return 2
+	log, code := parseServiceFlags("worker", fs, args, &lf, stderr)
+	if log == nil {
+		return code
 	}
 	opt, err := rf.option()
 	if err != nil {
