@@ -26,29 +26,11 @@ import (
 // worker package uses offset 0, cmd/discrimen offset 2).
 const dbOffset = 1
 
-// tinyStudy is an invented berth-watch scenario: 2 hypotheses × 8
-// participants, 32 fits.
-const tinyStudy = `{
-  "name": "berth-watch tiny (invented)", "seed": 11,
-  "designs": [{"name": "two-channels", "streams": 2, "cti_ms": [300, 900], "trials_per_cti": 20, "participants": 8}],
-  "hypotheses": [
-    {"name": "steady-lamp", "family": "constant", "params": {"level": {"min": 0.2, "max": 1.8}}},
-    {"name": "rising-watch", "family": "linear", "params": {"slope": {"min": 0, "max": 2}}}
-  ],
-  "replication": {"group_sizes": [4, 8], "replicates": 20}
-}`
+// tinyStudy: 2 hypotheses × 8 participants, 32 fits.
+const tinyStudy = workertest.TinyStudy
 
 // slowStudy runs long enough (about 3 s on one core) to be seen running.
-const slowStudy = `{
-  "name": "berth-watch slow (invented)", "seed": 5,
-  "designs": [{"name": "three-channels", "cti_ms": [300, 600, 900], "trials_per_cti": 30, "participants": 30}],
-  "hypotheses": [
-    {"name": "steady-lamp", "family": "constant", "params": {"level": {"min": 0.2, "max": 1.8}}},
-    {"name": "rising-watch", "family": "linear", "params": {"slope": {"min": 0, "max": 2}}},
-    {"name": "late-switch", "family": "logistic", "params": {"midpoint": {"min": 0.2, "max": 0.8}, "width": {"min": 0.05, "max": 0.3}}}
-  ],
-  "replication": {"group_sizes": [5, 10], "replicates": 20}
-}`
+const slowStudy = workertest.MediumStudy
 
 type rig struct {
 	t       testing.TB

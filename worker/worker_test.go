@@ -23,30 +23,11 @@ import (
 // dbOffset keeps this package's tests on their own Redis database.
 const dbOffset = 0
 
-// tinyStudy is an invented berth-watch scenario small enough for a test:
-// 2 hypotheses × 8 participants, 32 fits.
-const tinyStudy = `{
-  "name": "berth-watch tiny (invented)", "seed": 11,
-  "designs": [{"name": "two-channels", "streams": 2, "cti_ms": [300, 900], "trials_per_cti": 20, "participants": 8}],
-  "hypotheses": [
-    {"name": "steady-lamp", "family": "constant", "params": {"level": {"min": 0.2, "max": 1.8}}},
-    {"name": "rising-watch", "family": "linear", "params": {"slope": {"min": 0, "max": 2}}}
-  ],
-  "replication": {"group_sizes": [4, 8], "replicates": 20}
-}`
+// tinyStudy: 2 hypotheses × 8 participants, 32 fits.
+const tinyStudy = workertest.TinyStudy
 
-// mediumStudy has 3 hypotheses × 30 participants (270 fits): long enough
-// to cancel or interrupt mid-run.
-const mediumStudy = `{
-  "name": "berth-watch medium (invented)", "seed": 5,
-  "designs": [{"name": "three-channels", "cti_ms": [300, 600, 900], "trials_per_cti": 30, "participants": 30}],
-  "hypotheses": [
-    {"name": "steady-lamp", "family": "constant", "params": {"level": {"min": 0.2, "max": 1.8}}},
-    {"name": "rising-watch", "family": "linear", "params": {"slope": {"min": 0, "max": 2}}},
-    {"name": "late-switch", "family": "logistic", "params": {"midpoint": {"min": 0.2, "max": 0.8}, "width": {"min": 0.05, "max": 0.3}}}
-  ],
-  "replication": {"group_sizes": [5, 10], "replicates": 20}
-}`
+// mediumStudy (270 fits) is long enough to cancel or interrupt mid-run.
+const mediumStudy = workertest.MediumStudy
 
 func load(t testing.TB, js string) *models.Study {
 	t.Helper()

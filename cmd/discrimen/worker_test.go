@@ -17,18 +17,9 @@ import (
 	"discrimen/worker/workertest"
 )
 
-// killStudy: 3 hypotheses × 30 participants (270 fits) in shards of 10
-// participants, so a worker killed after two shards dies mid-study.
-const killStudy = `{
-  "name": "berth-watch crash (invented)", "seed": 21,
-  "designs": [{"name": "three-channels", "cti_ms": [300, 600, 900], "trials_per_cti": 30, "participants": 30}],
-  "hypotheses": [
-    {"name": "steady-lamp", "family": "constant", "params": {"level": {"min": 0.2, "max": 1.8}}},
-    {"name": "rising-watch", "family": "linear", "params": {"slope": {"min": 0, "max": 2}}},
-    {"name": "late-switch", "family": "logistic", "params": {"midpoint": {"min": 0.2, "max": 0.8}, "width": {"min": 0.05, "max": 0.3}}}
-  ],
-  "replication": {"group_sizes": [5, 10], "replicates": 20}
-}`
+// killStudy: 270 fits in shards of 10 participants, so a worker killed
+// after two shards dies mid-study.
+const killStudy = workertest.MediumStudy
 
 // TestWorkerKilled: a worker process killed with SIGKILL mid-study loses
 // nothing. asynq gives the killed shard back once its lease has expired

@@ -99,3 +99,29 @@ func (r *Redis) Client(tb testing.TB) *redis.Client {
 	tb.Cleanup(func() { c.Close() })
 	return c
 }
+
+// TinyStudy is an invented berth-watch scenario small enough for any
+// test: 2 hypotheses × 8 participants, 32 fits.
+const TinyStudy = `{
+  "name": "berth-watch tiny (invented)", "seed": 11,
+  "designs": [{"name": "two-channels", "streams": 2, "cti_ms": [300, 900], "trials_per_cti": 20, "participants": 8}],
+  "hypotheses": [
+    {"name": "steady-lamp", "family": "constant", "params": {"level": {"min": 0.2, "max": 1.8}}},
+    {"name": "rising-watch", "family": "linear", "params": {"slope": {"min": 0, "max": 2}}}
+  ],
+  "replication": {"group_sizes": [4, 8], "replicates": 20}
+}`
+
+// MediumStudy is an invented berth-watch scenario long enough (about 3 s on
+// one core) to be seen running, canceled or interrupted: 3 hypotheses × 30
+// participants, 270 fits.
+const MediumStudy = `{
+  "name": "berth-watch medium (invented)", "seed": 5,
+  "designs": [{"name": "three-channels", "cti_ms": [300, 600, 900], "trials_per_cti": 30, "participants": 30}],
+  "hypotheses": [
+    {"name": "steady-lamp", "family": "constant", "params": {"level": {"min": 0.2, "max": 1.8}}},
+    {"name": "rising-watch", "family": "linear", "params": {"slope": {"min": 0, "max": 2}}},
+    {"name": "late-switch", "family": "logistic", "params": {"midpoint": {"min": 0.2, "max": 0.8}, "width": {"min": 0.05, "max": 0.3}}}
+  ],
+  "replication": {"group_sizes": [5, 10], "replicates": 20}
+}`
