@@ -156,37 +156,43 @@ func TestTwoWorkersFaster(t *testing.T) {
 	srv := startChild(t, "api", "api", "--redis", r.URL, "--keys", keys, "--listen", "127.0.0.1:0", "--rate", "100")
 	base := srv.waitFor(t, listeningRE, 30*time.Second)[1]
 	wantJSON, wantCSV := expectedReport(t, speedStudy)
+	// Two rounds, keeping each count's faster run: a burst of load from a
+	// test running beside this one slows one run, rarely both.
 	elapsed := map[int]time.Duration{}
-	for _, n := range []int{1, 2} {
-		var ws []*child
-		for i := 0; i < n; i++ {
-			w := startChildEnv(t, fmt.Sprintf("worker %d/%d", i+1, n), []string{"GOMAXPROCS=1"},
-				"worker", "--redis", r.URL, "--concurrency", "1", "--metrics-listen", "")
-			w.waitFor(t, regexpMust(`msg="worker ready"`), 30*time.Second)
-			ws = append(ws, w)
-		}
-		st, d := submitAndWait(t, base, key, speedStudy, 3*time.Minute)
-		if st.Status != "done" {
-			t.Fatalf("%d worker(s): study ended %s: %v", n, st.Status, st.Error)
-		}
-		elapsed[n] = d
-		code, body := httpDo(t, "GET", base+"/v1/studies/"+st.ID+"/report", key, nil)
-		if code != 200 || !bytes.Equal(wantJSON, stripTiming(t, body)) {
-			t.Fatalf("%d worker(s): report.json differs from discrimen run's (%d)", n, code)
-		}
-		if code, body := httpDo(t, "GET", base+"/v1/studies/"+st.ID+"/fits.csv", key, nil); code != 200 || !bytes.Equal(wantCSV, body) {
-			t.Fatalf("%d worker(s): fits.csv differs from discrimen run's (%d)", n, code)
-		}
-		if !strings.Contains(string(body), fmt.Sprintf(`"workers": %d`, n)) {
-			t.Errorf("%d worker(s): timing block does not count %d workers", n, n)
-		}
-		for _, w := range ws {
-			if code := w.stop(t, 40*time.Second); code != 0 {
-				t.Fatalf("%s exited %d after SIGTERM", w.name, code)
+	for round := 0; round < 2; round++ {
+		for _, n := range []int{1, 2} {
+			var ws []*child
+			for i := 0; i < n; i++ {
+				w := startChildEnv(t, fmt.Sprintf("worker %d/%d", i+1, n), []string{"GOMAXPROCS=1"},
+					"worker", "--redis", r.URL, "--concurrency", "1", "--metrics-listen", "")
+				w.waitFor(t, regexpMust(`msg="worker ready"`), 30*time.Second)
+				ws = append(ws, w)
+			}
+			st, d := submitAndWait(t, base, key, speedStudy, 3*time.Minute)
+			if st.Status != "done" {
+				t.Fatalf("%d worker(s): study ended %s: %v", n, st.Status, st.Error)
+			}
+			if elapsed[n] == 0 || d < elapsed[n] {
+				elapsed[n] = d
+			}
+			code, body := httpDo(t, "GET", base+"/v1/studies/"+st.ID+"/report", key, nil)
+			if code != 200 || !bytes.Equal(wantJSON, stripTiming(t, body)) {
+				t.Fatalf("%d worker(s): report.json differs from discrimen run's (%d)", n, code)
+			}
+			if code, body := httpDo(t, "GET", base+"/v1/studies/"+st.ID+"/fits.csv", key, nil); code != 200 || !bytes.Equal(wantCSV, body) {
+				t.Fatalf("%d worker(s): fits.csv differs from discrimen run's (%d)", n, code)
+			}
+			if !strings.Contains(string(body), fmt.Sprintf(`"workers": %d`, n)) {
+				t.Errorf("%d worker(s): timing block does not count %d workers", n, n)
+			}
+			for _, w := range ws {
+				if code := w.stop(t, 40*time.Second); code != 0 {
+					t.Fatalf("%s exited %d after SIGTERM", w.name, code)
+				}
 			}
 		}
 	}
-	t.Logf("1800 fits: one worker %.2f s, two workers %.2f s (speed-up %.2f×)", elapsed[1].Seconds(), elapsed[2].Seconds(), elapsed[1].Seconds()/elapsed[2].Seconds())
+	t.Logf("1800 fits, faster of two rounds: one worker %.2f s, two workers %.2f s (speed-up %.2f×)", elapsed[1].Seconds(), elapsed[2].Seconds(), elapsed[1].Seconds()/elapsed[2].Seconds())
 	if elapsed[2] >= elapsed[1] {
 		t.Fatalf("two workers took %v, one took %v: no faster", elapsed[2], elapsed[1])
 	}
