@@ -26,13 +26,9 @@ type Client struct {
 // NewClient connects to Redis. The connection is made lazily; call Ping to
 // check it.
 func NewClient(cfg Config) (*Client, error) {
-	cfg, err := cfg.withDefaults()
+	cfg, rdb, err := connect(cfg)
 	if err != nil {
 		return nil, err
-	}
-	rdb, ok := cfg.Redis.MakeRedisClient().(redis.UniversalClient)
-	if !ok {
-		return nil, fmt.Errorf("worker: Config.Redis made %T, not a go-redis client", cfg.Redis.MakeRedisClient())
 	}
 	c := &Client{
 		cfg: cfg, rdb: rdb, st: &store{rdb: rdb, retention: cfg.Retention},

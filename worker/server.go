@@ -34,15 +34,25 @@ type Server struct {
 	stopSweep context.CancelFunc
 }
 
-// NewServer prepares a worker; Start begins taking tasks.
-func NewServer(cfg Config) (*Server, error) {
+// connect fills the config's defaults and makes its Redis client.
+func connect(cfg Config) (Config, redis.UniversalClient, error) {
 	cfg, err := cfg.withDefaults()
 	if err != nil {
-		return nil, err
+		return cfg, nil, err
 	}
-	rdb, ok := cfg.Redis.MakeRedisClient().(redis.UniversalClient)
+	c := cfg.Redis.MakeRedisClient()
+	rdb, ok := c.(redis.UniversalClient)
 	if !ok {
-		return nil, fmt.Errorf("worker: Config.Redis made %T, not a go-redis client", cfg.Redis.MakeRedisClient())
+		return cfg, nil, fmt.Errorf("worker: Config.Redis made %T, not a go-redis client", c)
+	}
+	return cfg, rdb, nil
+}
+
+// NewServer prepares a worker; Start begins taking tasks.
+func NewServer(cfg Config) (*Server, error) {
+	cfg, rdb, err := connect(cfg)
+	if err != nil {
+		return nil, err
 	}
 	s := &Server{
 		cfg: cfg, rdb: rdb, st: &store{rdb: rdb, retention: cfg.Retention},
