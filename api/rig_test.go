@@ -2,7 +2,6 @@ package api
 
 import (
 	"bytes"
-	"context"
 	"encoding/json"
 	"io"
 	"log/slog"
@@ -16,8 +15,6 @@ import (
 
 	"github.com/prometheus/client_golang/prometheus"
 
-	"discrimen/models"
-	"discrimen/recovery"
 	"discrimen/worker"
 	"discrimen/worker/workertest"
 )
@@ -222,47 +219,6 @@ func (r *rig) wait(owner, id string, timeout time.Duration, ok func(statusBody) 
 
 func final(s statusBody) bool { return s.Status.Final() }
 
-// expected runs the study in process, as `discrimen run` does.
-func expected(t testing.TB, js string) (reportJSON, fitsCSV []byte) {
-	t.Helper()
-	s, err := models.LoadStudy([]byte(js))
-	if err != nil {
-		t.Fatal(err)
-	}
-	rep, err := recovery.Run(context.Background(), s, recovery.Options{Workers: 2})
-	if err != nil {
-		t.Fatal(err)
-	}
-	j, err := rep.JSON()
-	if err != nil {
-		t.Fatal(err)
-	}
-	c, err := rep.FitsCSV()
-	if err != nil {
-		t.Fatal(err)
-	}
-	return withoutTiming(t, j), c
-}
-
-// withoutTiming re-encodes report.json without the timing block, the only
-// part allowed to differ between runs.
-func withoutTiming(t testing.TB, b []byte) []byte {
-	t.Helper()
-	var m map[string]any
-	if err := json.Unmarshal(b, &m); err != nil {
-		t.Fatalf("report.json: %v", err)
-	}
-	if _, ok := m["timing"]; !ok {
-		t.Fatal("report.json has no timing block")
-	}
-	delete(m, "timing")
-	out, err := json.MarshalIndent(m, "", " ")
-	if err != nil {
-		t.Fatal(err)
-	}
-	return out
-}
-
 func mustRequest(t testing.TB, method, path string) *http.Request {
 	t.Helper()
 	req, err := http.NewRequest(method, path, nil)
@@ -271,3 +227,9 @@ func mustRequest(t testing.TB, method, path string) *http.Request {
 	}
 	return req
 }
+
+// The in-process report every queue path must reproduce.
+var (
+	expected      = workertest.Expected
+	withoutTiming = workertest.WithoutTiming
+)

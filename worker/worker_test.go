@@ -3,7 +3,6 @@ package worker
 import (
 	"bytes"
 	"context"
-	"encoding/json"
 	"errors"
 	"fmt"
 	"strings"
@@ -36,43 +35,6 @@ func load(t testing.TB, js string) *models.Study {
 		t.Fatal(err)
 	}
 	return s
-}
-
-// expected runs the study in process, as `discrimen run` does.
-func expected(t testing.TB, js string) (reportJSON, fitsCSV []byte) {
-	t.Helper()
-	rep, err := recovery.Run(context.Background(), load(t, js), recovery.Options{Workers: 2})
-	if err != nil {
-		t.Fatal(err)
-	}
-	j, err := rep.JSON()
-	if err != nil {
-		t.Fatal(err)
-	}
-	c, err := rep.FitsCSV()
-	if err != nil {
-		t.Fatal(err)
-	}
-	return withoutTiming(t, j), c
-}
-
-// withoutTiming re-encodes report.json with the timing block removed, the
-// only part allowed to differ between runs.
-func withoutTiming(t testing.TB, b []byte) []byte {
-	t.Helper()
-	var m map[string]any
-	if err := json.Unmarshal(b, &m); err != nil {
-		t.Fatal(err)
-	}
-	if _, ok := m["timing"]; !ok {
-		t.Fatal("report.json has no timing block")
-	}
-	delete(m, "timing")
-	out, err := json.MarshalIndent(m, "", " ")
-	if err != nil {
-		t.Fatal(err)
-	}
-	return out
 }
 
 type rig struct {
@@ -582,3 +544,9 @@ func TestRetryDelay(t *testing.T) {
 		})
 	}
 }
+
+// The in-process report every queue path must reproduce.
+var (
+	expected      = workertest.Expected
+	withoutTiming = workertest.WithoutTiming
+)

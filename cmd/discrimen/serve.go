@@ -7,13 +7,13 @@ import (
 	"io"
 	"log/slog"
 	"net/http"
-	"time"
 
 	"github.com/alicebob/miniredis/v2"
 	"github.com/hibiken/asynq"
 	"github.com/prometheus/client_golang/prometheus"
 
 	"discrimen/worker"
+	"discrimen/worker/memredis"
 )
 
 func init() { extraCommands["serve"] = cmdServe }
@@ -30,20 +30,8 @@ func embeddedRedis() (*miniredis.Miniredis, func(), error) {
 	if err := m.StartAddr("127.0.0.1:0"); err != nil {
 		return nil, nil, err
 	}
-	stop := make(chan struct{})
-	go func() {
-		t := time.NewTicker(time.Second)
-		defer t.Stop()
-		for {
-			select {
-			case <-stop:
-				return
-			case <-t.C:
-				m.FastForward(time.Second)
-			}
-		}
-	}()
-	return m, func() { close(stop); m.Close() }, nil
+	stop := memredis.FollowClock(m)
+	return m, func() { stop(); m.Close() }, nil
 }
 
 const noPersistWarning = `discrimen serve: WARNING: no --redis given, so studies run on an embedded in-memory Redis.

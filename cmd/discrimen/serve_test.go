@@ -3,7 +3,6 @@ package main
 import (
 	"bufio"
 	"bytes"
-	"context"
 	"encoding/json"
 	"fmt"
 	"io"
@@ -18,8 +17,7 @@ import (
 	"testing"
 	"time"
 
-	"discrimen/models"
-	"discrimen/recovery"
+	"discrimen/worker/workertest"
 )
 
 // dbOffset keeps this package's tests on their own Redis database (worker
@@ -229,43 +227,6 @@ func submitAndWait(t testing.TB, base, key, study string, timeout time.Duration)
 	}
 }
 
-// expectedReport runs the study in process, as `discrimen run` does, and
-// returns report.json without its timing block and fits.csv.
-func expectedReport(t testing.TB, js string) ([]byte, []byte) {
-	t.Helper()
-	s, err := models.LoadStudy([]byte(js))
-	if err != nil {
-		t.Fatal(err)
-	}
-	rep, err := recovery.Run(context.Background(), s, recovery.Options{})
-	if err != nil {
-		t.Fatal(err)
-	}
-	j, err := rep.JSON()
-	if err != nil {
-		t.Fatal(err)
-	}
-	c, err := rep.FitsCSV()
-	if err != nil {
-		t.Fatal(err)
-	}
-	return stripTiming(t, j), c
-}
-
-func stripTiming(t testing.TB, b []byte) []byte {
-	t.Helper()
-	var m map[string]any
-	if err := json.Unmarshal(b, &m); err != nil {
-		t.Fatalf("report.json: %v", err)
-	}
-	if _, ok := m["timing"]; !ok {
-		t.Fatal("report.json has no timing block")
-	}
-	delete(m, "timing")
-	out, _ := json.MarshalIndent(m, "", " ")
-	return out
-}
-
 // serveStudy is an invented berth-watch scenario of 32 fits.
 const serveStudy = `{
   "name": "berth-watch serve (invented)", "seed": 3,
@@ -323,3 +284,9 @@ func TestServeNeedsKeysOrNoAuth(t *testing.T) {
 		t.Fatalf("sentinel without master: exit %d, stderr %q", code, stderr.String())
 	}
 }
+
+// The in-process report every queue path must reproduce.
+var (
+	expectedReport = workertest.Expected
+	stripTiming    = workertest.WithoutTiming
+)

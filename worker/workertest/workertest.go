@@ -10,6 +10,7 @@ package workertest
 
 import (
 	"context"
+	"encoding/json"
 	"fmt"
 	"net/url"
 	"os"
@@ -21,6 +22,10 @@ import (
 	"github.com/alicebob/miniredis/v2"
 	"github.com/hibiken/asynq"
 	"github.com/redis/go-redis/v9"
+
+	"discrimen/models"
+	"discrimen/recovery"
+	"discrimen/worker/memredis"
 )
 
 // EnvVar names the variable that points tests at a real Redis.
@@ -47,22 +52,7 @@ func New(tb testing.TB, dbOffset int) *Redis {
 	raw := os.Getenv(EnvVar)
 	if raw == "" {
 		m := miniredis.RunT(tb)
-		// miniredis counts TTLs down only when told to; follow the clock so
-		// retention behaves as on a real server.
-		stop := make(chan struct{})
-		go func() {
-			t := time.NewTicker(time.Second)
-			defer t.Stop()
-			for {
-				select {
-				case <-stop:
-					return
-				case <-t.C:
-					m.FastForward(time.Second)
-				}
-			}
-		}()
-		tb.Cleanup(func() { close(stop) })
+		tb.Cleanup(memredis.FollowClock(m))
 		return &Redis{URL: "redis://" + m.Addr() + "/0", Opt: asynq.RedisClientOpt{Addr: m.Addr()}, Mini: m}
 	}
 	u, err := url.Parse(raw)
@@ -125,3 +115,46 @@ const MediumStudy = `{
   ],
   "replication": {"group_sizes": [5, 10], "replicates": 20}
 }`
+
+// Expected runs the study in process, as `discrimen run` does, and returns
+// its report.json without the timing block and its fits.csv: what every
+// path through the queue must reproduce.
+func Expected(tb testing.TB, js string) (reportJSON, fitsCSV []byte) {
+	tb.Helper()
+	s, err := models.LoadStudy([]byte(js))
+	if err != nil {
+		tb.Fatal(err)
+	}
+	rep, err := recovery.Run(context.Background(), s, recovery.Options{Workers: 2})
+	if err != nil {
+		tb.Fatal(err)
+	}
+	j, err := rep.JSON()
+	if err != nil {
+		tb.Fatal(err)
+	}
+	c, err := rep.FitsCSV()
+	if err != nil {
+		tb.Fatal(err)
+	}
+	return WithoutTiming(tb, j), c
+}
+
+// WithoutTiming re-encodes report.json with the timing block removed, the
+// only part allowed to differ between runs.
+func WithoutTiming(tb testing.TB, b []byte) []byte {
+	tb.Helper()
+	var m map[string]any
+	if err := json.Unmarshal(b, &m); err != nil {
+		tb.Fatalf("report.json: %v", err)
+	}
+	if _, ok := m["timing"]; !ok {
+		tb.Fatal("report.json has no timing block")
+	}
+	delete(m, "timing")
+	out, err := json.MarshalIndent(m, "", " ")
+	if err != nil {
+		tb.Fatal(err)
+	}
+	return out
+}
