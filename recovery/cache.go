@@ -182,11 +182,15 @@ func (c *Cache) Interpolate(x, dst []float64, ws *models.Workspace) {
 
 // Exact writes the exact prediction at x into dst.
 func (c *Cache) Exact(x, dst []float64, ws *models.Workspace) {
+	c.exactInto(x, dst, ws, c.listener.NewPrediction())
+}
+
+// exactInto is Exact with the caller's prediction scratch, for hot loops.
+func (c *Cache) exactInto(x, dst []float64, ws *models.Workspace, p *models.Prediction) {
 	prec, err := models.NewPrecision(c.Hypothesis, c.design, x)
 	if err != nil {
 		panic(fmt.Sprintf("recovery: candidate %s: %v", c.Hypothesis.Name, err))
 	}
-	p := c.listener.NewPrediction()
 	c.listener.Predict(prec, p, ws)
 	c.lay.flatten(p, dst)
 }

@@ -46,6 +46,7 @@ type Fit struct {
 type fitter struct {
 	cache *Cache
 	ws    *models.Workspace
+	pr    *models.Prediction // scratch for exact predictions
 	pred  []float64
 	// memo holds exact predictions by candidate parameters during a
 	// Hessian: stencil points that move only lapse or eeg_ar reuse them.
@@ -67,12 +68,12 @@ func (f *fitter) exactMemo(x []float64) {
 			return
 		}
 	}
-	f.cache.Exact(x, f.pred, f.ws)
+	f.cache.exactInto(x, f.pred, f.ws, f.pr)
 	f.memo = append(f.memo, memoEntry{append([]float64(nil), x...), append([]float64(nil), f.pred...)})
 }
 
 func newFitter(c *Cache) *fitter {
-	return &fitter{cache: c, ws: c.listener.NewWorkspace(), pred: make([]float64, c.lay.size())}
+	return &fitter{cache: c, ws: c.listener.NewWorkspace(), pr: c.listener.NewPrediction(), pred: make([]float64, c.lay.size())}
 }
 
 func logit(u float64) float64   { return math.Log(u / (1 - u)) }
@@ -136,7 +137,7 @@ func (sp space) split(theta []float64) (hyp []float64, lapse, ar float64) {
 func (f *fitter) negLogLik(s *summary, sp space, theta []float64, exact bool, est *Measurement) float64 {
 	hyp, lapse, ar := sp.split(theta)
 	if exact {
-		f.cache.Exact(hyp, f.pred, f.ws)
+		f.cache.exactInto(hyp, f.pred, f.ws, f.pr)
 	} else {
 		f.cache.Interpolate(hyp, f.pred, f.ws)
 	}
