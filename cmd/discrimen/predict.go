@@ -52,12 +52,9 @@ func cmdPredict(args []string, stdout, stderr io.Writer) int {
 		fmt.Fprintln(stderr, "usage: discrimen predict [STUDY.json] (default: the embedded demo study) [--design NAME] [--set H.P=V ...] [--format table|json] [--html FILE]")
 		fs.PrintDefaults()
 	}
-	path, rest := splitPath(args)
-	if err := fs.Parse(rest); err != nil {
+	path, ok := parseStudyArgs(fs, args)
+	if !ok {
 		return 2
-	}
-	if path == "" && fs.NArg() > 0 {
-		path = fs.Arg(0)
 	}
 	if *format != "table" && *format != "json" {
 		fmt.Fprintf(stderr, "discrimen predict: --format must be table or json, got %q\n", *format)
@@ -175,6 +172,20 @@ func setProblems(s *models.Study, set setFlags) []string {
 		}
 	}
 	return out
+}
+
+// parseStudyArgs parses a study command's flags, which may come before or
+// after the study path; the path is "" when none is given (the embedded
+// demo). ok is false when the flags do not parse.
+func parseStudyArgs(fs *flag.FlagSet, args []string) (path string, ok bool) {
+	path, rest := splitPath(args)
+	if err := fs.Parse(rest); err != nil {
+		return "", false
+	}
+	if path == "" && fs.NArg() > 0 {
+		path = fs.Arg(0)
+	}
+	return path, true
 }
 
 // splitPath takes the first non-flag argument as the study path so that

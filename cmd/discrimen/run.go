@@ -31,12 +31,9 @@ func cmdRun(args []string, stdout, stderr io.Writer) int {
 		fmt.Fprintln(stderr, "usage: discrimen run [STUDY.json] --out DIR   (default study: the embedded demo) [--workers N] [--quiet]")
 		fs.PrintDefaults()
 	}
-	path, rest := splitPath(args)
-	if err := fs.Parse(rest); err != nil {
+	path, ok := parseStudyArgs(fs, args)
+	if !ok {
 		return 2
-	}
-	if path == "" && fs.NArg() > 0 {
-		path = fs.Arg(0)
 	}
 	if *out == "" {
 		fs.Usage()
