@@ -565,3 +565,18 @@ func TestRenderSVGHeader(t *testing.T) {
 		t.Error("ragged matrix accepted")
 	}
 }
+
+// TestGoldenReportHTML guards the small study's report.html (timing
+// removed) against unnoticed change; -update rewrites it.
+func TestGoldenReportHTML(t *testing.T) {
+	r, err := Run(context.Background(), mustStudy(t, smallStudy), Options{Workers: 2})
+	if err != nil {
+		t.Fatal(err)
+	}
+	r.Timing = Timing{}
+	b, err := r.HTML()
+	if err != nil {
+		t.Fatal(err)
+	}
+	checkGolden(t, "small-report.html", b)
+}
