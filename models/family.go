@@ -12,46 +12,151 @@ type Precision interface {
 	At(t float64) float64
 }
 
-// FamilyParams lists each family's own parameters (low and high are added
-// to every family but constant).
-var FamilyParams = map[string][]string{
-	"constant":    {"level"},
-	"linear":      {"slope"},
-	"exponential": {"rate", "horizon"},
-	"saturating":  {"tau"},
-	"logistic":    {"midpoint", "width"},
-	"hazard":      {"weber", "window"},
+// Sign is the allowed sign of a hypothesis parameter.
+type Sign int
+
+const (
+	AnySign Sign = iota
+	Positive
+	NonNegative
+)
+
+// ParamSpec is one parameter of a precision family.
+type ParamSpec struct {
+	Name string
+	// Default is the value an omitted parameter takes for a design; nil
+	// means the parameter is required.
+	Default func(d *Design) float64
+	Sign    Sign
 }
 
-// AllowedParams returns the parameter names a family accepts, sorted.
-func AllowedParams(family string) []string {
-	own, ok := FamilyParams[family]
+// Required reports whether the study must give the parameter.
+func (p ParamSpec) Required() bool { return p.Default == nil }
+
+// Family is one precision family: its name, its formula, its parameters
+// and its constructor. The validator, the JSON Schema's family branches,
+// the evaluator and the messages all read this one table.
+type Family struct {
+	Name string
+	// Formula is γ(t) in plain text, t in seconds since cue onset; the
+	// schema quotes it.
+	Formula string
+	// Params lists the family's parameters for hypothesis h in documented
+	// order. It takes the hypothesis so that a family whose parameter list
+	// depends on it (one level per knot, say) fits the same table; every
+	// family today ignores h.
+	Params func(h Hypothesis) []ParamSpec
+	// New builds γ from every parameter's value (defaults filled in).
+	New func(v map[string]float64, d *Design) Precision
+}
+
+// gainBounds are γ_lo and γ_hi, shared by every non-constant family
+// (model.md §2); they default to the agent's gain range.
+var gainBounds = []ParamSpec{
+	{Name: "low", Default: func(d *Design) float64 { return d.Agent.GainMin }, Sign: Positive},
+	{Name: "high", Default: func(d *Design) float64 { return d.Agent.GainMax }, Sign: Positive},
+}
+
+// fixedParams is Params for a family whose parameter list never changes.
+func fixedParams(own ...ParamSpec) func(Hypothesis) []ParamSpec {
+	all := append(own, gainBounds...)
+	return func(Hypothesis) []ParamSpec { return all }
+}
+
+// families is the table of precision families, in documented order.
+var families = []Family{
+	{
+		Name: "constant", Formula: "γ(t) = level",
+		Params: func(Hypothesis) []ParamSpec { return []ParamSpec{{Name: "level", Sign: Positive}} },
+		New:    func(v map[string]float64, _ *Design) Precision { return Constant{Level: v["level"]} },
+	},
+	{
+		Name: "linear", Formula: "γ(t) = min(high, low + slope·t)",
+		Params: fixedParams(ParamSpec{Name: "slope", Sign: NonNegative}),
+		New: func(v map[string]float64, _ *Design) Precision {
+			return Linear{Low: v["low"], High: v["high"], Slope: v["slope"]}
+		},
+	},
+	{
+		Name: "exponential", Formula: "γ(t) = low + (high−low)·(e^{rate·t}−1)/(e^{rate·horizon}−1) for t ≤ horizon, high after",
+		Params: fixedParams(ParamSpec{Name: "rate", Sign: Positive},
+			ParamSpec{Name: "horizon", Sign: Positive, Default: func(d *Design) float64 { return float64(maxInt(d.CTIms)) / 1000 }}),
+		New: func(v map[string]float64, _ *Design) Precision {
+			return Exponential{Low: v["low"], High: v["high"], Rate: v["rate"], Horizon: v["horizon"]}
+		},
+	},
+	{
+		Name: "saturating", Formula: "γ(t) = low + (high−low)·(1 − e^{−t/tau})",
+		Params: fixedParams(ParamSpec{Name: "tau", Sign: Positive}),
+		New: func(v map[string]float64, _ *Design) Precision {
+			return Saturating{Low: v["low"], High: v["high"], Tau: v["tau"]}
+		},
+	},
+	{
+		Name: "logistic", Formula: "γ(t) = low + (high−low)/(1 + e^{−(t−midpoint)/width})",
+		Params: fixedParams(ParamSpec{Name: "midpoint", Sign: AnySign}, ParamSpec{Name: "width", Sign: Positive}),
+		New: func(v map[string]float64, _ *Design) Precision {
+			return Logistic{Low: v["low"], High: v["high"], Midpoint: v["midpoint"], Width: v["width"]}
+		},
+	},
+	{
+		Name: "hazard", Formula: "γ(t) = low + (high−low)·h(t), h the subjective hazard of the CTIs within window",
+		Params: fixedParams(ParamSpec{Name: "weber", Sign: Positive},
+			ParamSpec{Name: "window", Sign: Positive, Default: func(*Design) float64 { return 0.2 }}),
+		New: func(v map[string]float64, d *Design) Precision {
+			return NewHazard(v["low"], v["high"], v["weber"], v["window"], d.CTIms, d.CTIWeights)
+		},
+	},
+}
+
+// Families lists the precision families' names in their documented order.
+var Families = func() []string {
+	names := make([]string, len(families))
+	for i, f := range families {
+		names[i] = f.Name
+	}
+	return names
+}()
+
+// LookupFamily returns the family of that name.
+func LookupFamily(name string) (Family, bool) {
+	for _, f := range families {
+		if f.Name == name {
+			return f, true
+		}
+	}
+	return Family{}, false
+}
+
+// ParamNames returns the names of specs in their order.
+func ParamNames(specs []ParamSpec) []string {
+	n := make([]string, len(specs))
+	for i, p := range specs {
+		n[i] = p.Name
+	}
+	return n
+}
+
+// findParam returns the spec of that name.
+func findParam(specs []ParamSpec, name string) (ParamSpec, bool) {
+	for _, p := range specs {
+		if p.Name == name {
+			return p, true
+		}
+	}
+	return ParamSpec{}, false
+}
+
+// AllowedParams returns the parameter names hypothesis h's family accepts,
+// sorted; nil for an unknown family.
+func (h Hypothesis) AllowedParams() []string {
+	f, ok := LookupFamily(h.Family)
 	if !ok {
 		return nil
 	}
-	names := append([]string(nil), own...)
-	if family != "constant" {
-		names = append(names, "low", "high")
-	}
+	names := ParamNames(f.Params(h))
 	sort.Strings(names)
 	return names
-}
-
-// ParamDefault returns the default of a parameter the study may omit, and
-// whether it has one: low and high default to the agent's gain range,
-// horizon to the longest CTI, window to 0.2 s.
-func ParamDefault(name string, d *Design) (float64, bool) {
-	switch name {
-	case "low":
-		return d.Agent.GainMin, true
-	case "high":
-		return d.Agent.GainMax, true
-	case "horizon":
-		return float64(maxInt(d.CTIms)) / 1000, true
-	case "window":
-		return 0.2, true
-	}
-	return 0, false
 }
 
 // Resolve returns every parameter of h for design d: free parameters take
@@ -62,10 +167,15 @@ func (h Hypothesis) Resolve(d *Design, free []float64) (map[string]float64, erro
 	if len(free) != len(names) {
 		panic(fmt.Sprintf("models: %d free values for %d free parameters of %s", len(free), len(names), h.Name))
 	}
-	vals := make(map[string]float64, len(h.Params)+2)
-	for _, n := range AllowedParams(h.Family) {
-		if v, ok := ParamDefault(n, d); ok {
-			vals[n] = v
+	f, ok := LookupFamily(h.Family)
+	if !ok {
+		return nil, fmt.Errorf("models: hypothesis %q: family %q is not one of %v", h.Name, h.Family, Families)
+	}
+	specs := f.Params(h)
+	vals := make(map[string]float64, len(specs))
+	for _, ps := range specs {
+		if ps.Default != nil {
+			vals[ps.Name] = ps.Default(d)
 		}
 	}
 	for n, p := range h.Params {
@@ -76,9 +186,9 @@ func (h Hypothesis) Resolve(d *Design, free []float64) (map[string]float64, erro
 	for i, n := range names {
 		vals[n] = free[i]
 	}
-	for _, n := range AllowedParams(h.Family) {
-		if _, ok := vals[n]; !ok {
-			return nil, fmt.Errorf("models: hypothesis %q: parameter %q is required for family %s", h.Name, n, h.Family)
+	for _, ps := range specs {
+		if _, ok := vals[ps.Name]; !ok {
+			return nil, fmt.Errorf("models: hypothesis %q: parameter %q is required for family %s", h.Name, ps.Name, h.Family)
 		}
 	}
 	return vals, nil
@@ -91,22 +201,8 @@ func NewPrecision(h Hypothesis, d *Design, free []float64) (Precision, error) {
 	if err != nil {
 		return nil, err
 	}
-	lo, hi := v["low"], v["high"]
-	switch h.Family {
-	case "constant":
-		return Constant{Level: v["level"]}, nil
-	case "linear":
-		return Linear{Low: lo, High: hi, Slope: v["slope"]}, nil
-	case "exponential":
-		return Exponential{Low: lo, High: hi, Rate: v["rate"], Horizon: v["horizon"]}, nil
-	case "saturating":
-		return Saturating{Low: lo, High: hi, Tau: v["tau"]}, nil
-	case "logistic":
-		return Logistic{Low: lo, High: hi, Midpoint: v["midpoint"], Width: v["width"]}, nil
-	case "hazard":
-		return NewHazard(lo, hi, v["weber"], v["window"], d.CTIms, d.CTIWeights), nil
-	}
-	return nil, fmt.Errorf("models: hypothesis %q: family %q is not one of %v", h.Name, h.Family, Families)
+	f, _ := LookupFamily(h.Family) // Resolve has found it
+	return f.New(v, d), nil
 }
 
 // Constant is γ(t) = level.

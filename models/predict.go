@@ -64,7 +64,7 @@ func PredictAt(l *Listener, d *Design, h Hypothesis, free []float64, set map[str
 				keep = append(keep, free[i])
 			}
 		}
-		allowed := AllowedParams(h.Family)
+		allowed := h.AllowedParams()
 		for k, v := range set {
 			if !contains(allowed, k) {
 				return HypothesisPrediction{}, fmt.Errorf("models: hypothesis %q (%s) has no parameter %q; allowed: %v", h.Name, h.Family, k, allowed)

@@ -17,8 +17,56 @@ import (
 	"github.com/santhosh-tekuri/jsonschema/v6/kind"
 )
 
+// studySchemaFile is the schema as written, without its family parts.
+//
 //go:embed schema/study.schema.json
-var studySchemaJSON []byte
+var studySchemaFile []byte
+
+// studySchemaJSON is the full schema: the file with the family enum and
+// one branch per family filled in from the family table, so the schema,
+// the validator and the evaluator cannot disagree about a family.
+var studySchemaJSON = func() []byte {
+	dec := json.NewDecoder(bytes.NewReader(studySchemaFile))
+	dec.UseNumber()
+	var doc map[string]any
+	if err := dec.Decode(&doc); err != nil {
+		panic("models: embedded study schema is not JSON: " + err.Error())
+	}
+	hyp := doc["$defs"].(map[string]any)["hypothesis"].(map[string]any)
+	delete(hyp, "$comment")
+	props := hyp["properties"].(map[string]any)
+	props["family"] = map[string]any{"enum": Families, "description": "Precision family; its parameters are listed in the branch for it."}
+	var branches []any
+	for _, f := range families {
+		branches = append(branches, familySchema(f))
+	}
+	hyp["allOf"] = branches
+	out, err := json.MarshalIndent(doc, "", "  ")
+	if err != nil {
+		panic("models: study schema: " + err.Error())
+	}
+	return append(out, '\n')
+}()
+
+// paramRef is the schema definition for a parameter of that sign.
+var paramRef = map[Sign]string{AnySign: "#/$defs/param", Positive: "#/$defs/param_positive", NonNegative: "#/$defs/param_nonnegative"}
+
+// familySchema is the schema branch that applies when family is f.Name.
+func familySchema(f Family) map[string]any {
+	props := map[string]any{}
+	required := []string{}
+	for _, p := range f.Params(Hypothesis{Family: f.Name}) {
+		props[p.Name] = map[string]any{"$ref": paramRef[p.Sign]}
+		if p.Required() {
+			required = append(required, p.Name)
+		}
+	}
+	return map[string]any{
+		"if": map[string]any{"properties": map[string]any{"family": map[string]any{"const": f.Name}}, "required": []string{"family"}},
+		"then": map[string]any{"properties": map[string]any{"params": map[string]any{
+			"$comment": f.Formula, "properties": props, "required": required, "additionalProperties": false}}},
+	}
+}
 
 // studySchemaID is the schema's $id; the compiler resolves $refs against it.
 const studySchemaID = "urn:discrimen:study.schema.json"
@@ -530,8 +578,8 @@ func extraMessage(loc location, sch map[string]any, extra []string) string {
 
 func unknownParamsMessage(family string, extra []string) string {
 	allowed := "(none: the family is unknown)"
-	if spec, ok := familySpecs[family]; ok {
-		allowed = strings.Join(spec.names(), ", ")
+	if f, ok := LookupFamily(family); ok {
+		allowed = strings.Join(ParamNames(f.Params(Hypothesis{Family: family})), ", ")
 	}
 	noun := "parameter"
 	if len(extra) > 1 {

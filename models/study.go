@@ -129,9 +129,6 @@ type Replication struct {
 	TargetRate   float64 `json:"target_rate"`
 }
 
-// Families lists the precision families in their documented order.
-var Families = []string{"constant", "linear", "exponential", "saturating", "logistic", "hazard"}
-
 // Measures lists the allowed measures.
 var Measures = []string{"rt", "accuracy", "eeg"}
 

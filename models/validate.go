@@ -71,60 +71,11 @@ const (
 	priorDists                   = "fixed, normal, uniform, lognormal"
 	generateDists                = "uniform, normal, loguniform"
 	measuresText                 = "rt, accuracy, eeg"
-	familiesText                 = "constant, linear, exponential, saturating, logistic, hazard"
 	budgetFormula                = "participants × hypotheses² summed over designs"
 )
 
 // VaryFields lists the design fields a vary block may change.
 var VaryFields = []string{"cti_ms", "cti_weights", "trials_per_cti", "measures", "validity", "participants", "streams", "items", "presentation_ms"}
-
-// sign is the allowed sign of a hypothesis parameter.
-type sign int
-
-const (
-	signAny sign = iota
-	signPositive
-	signNonNegative
-)
-
-type paramSpec struct {
-	name     string
-	required bool
-	sign     sign
-}
-
-type familySpec []paramSpec
-
-func (f familySpec) names() []string {
-	n := make([]string, len(f))
-	for i, p := range f {
-		n[i] = p.name
-	}
-	return n
-}
-
-func (f familySpec) find(name string) (paramSpec, bool) {
-	for _, p := range f {
-		if p.name == name {
-			return p, true
-		}
-	}
-	return paramSpec{}, false
-}
-
-// gainBounds are γ_lo and γ_hi, shared by every non-constant family (model.md §2).
-var gainBounds = []paramSpec{{"low", false, signPositive}, {"high", false, signPositive}}
-
-// familySpecs gives each family's parameters in documented order. horizon
-// (default: the longest CTI) and window (default 0.2 s) are optional.
-var familySpecs = map[string]familySpec{
-	"constant":    {{"level", true, signPositive}},
-	"linear":      append(familySpec{{"slope", true, signNonNegative}}, gainBounds...),
-	"exponential": append(familySpec{{"rate", true, signPositive}, {"horizon", false, signPositive}}, gainBounds...),
-	"saturating":  append(familySpec{{"tau", true, signPositive}}, gainBounds...),
-	"logistic":    append(familySpec{{"midpoint", true, signAny}, {"width", true, signPositive}}, gainBounds...),
-	"hazard":      append(familySpec{{"weber", true, signPositive}, {"window", false, signPositive}}, gainBounds...),
-}
 
 type checker struct{ out []Problem }
 
@@ -551,20 +502,21 @@ func priorProblems(c *checker, path, name string, p *Prior, sup support) {
 }
 
 func hypothesisProblems(c *checker, prefix string, hy *Hypothesis, designs []Design) {
-	spec, ok := familySpecs[hy.Family]
+	fam, ok := LookupFamily(hy.Family)
 	if !ok {
-		c.add(prefix+".family", "family must be one of %s, got %q", familiesText, hy.Family)
+		c.add(prefix+".family", "family must be one of %s, got %q", strings.Join(Families, ", "), hy.Family)
 		return
 	}
+	spec := fam.Params(*hy)
 	pp := prefix + ".params"
 	var missing, extra []string
 	for _, ps := range spec {
-		if _, ok := hy.Params[ps.name]; ps.required && !ok {
-			missing = append(missing, ps.name)
+		if _, ok := hy.Params[ps.Name]; ps.Required() && !ok {
+			missing = append(missing, ps.Name)
 		}
 	}
 	for name := range hy.Params {
-		if _, ok := spec.find(name); !ok {
+		if _, ok := findParam(spec, name); !ok {
 			extra = append(extra, name)
 		}
 	}
@@ -577,26 +529,26 @@ func hypothesisProblems(c *checker, prefix string, hy *Hypothesis, designs []Des
 	}
 	wellFormed := map[string]bool{}
 	for _, ps := range spec {
-		p, ok := hy.Params[ps.name]
+		p, ok := hy.Params[ps.Name]
 		if !ok {
 			continue
 		}
-		wellFormed[ps.name] = paramProblems(c, pp+"."+ps.name, ps, p)
+		wellFormed[ps.Name] = paramProblems(c, pp+"."+ps.Name, ps, p)
 	}
 	gainProblems(c, pp, hy, wellFormed, designs)
 }
 
 // paramProblems checks one parameter and reports whether it is well formed.
-func paramProblems(c *checker, path string, ps paramSpec, p Param) bool {
-	name := ps.name
+func paramProblems(c *checker, path string, ps ParamSpec, p Param) bool {
+	name := ps.Name
 	ok := true
 	signCheck := func(field string, v float64) {
 		switch {
 		case !finite(v):
 			c.add(path+"."+field, "%s %s must be a finite number, got %s", name, field, g(v))
-		case ps.sign == signPositive && !(v > 0):
+		case ps.Sign == Positive && !(v > 0):
 			c.add(path+"."+field, "%s %s must be > 0, got %s", name, field, g(v))
-		case ps.sign == signNonNegative && !(v >= 0):
+		case ps.Sign == NonNegative && !(v >= 0):
 			c.add(path+"."+field, "%s %s must be >= 0, got %s", name, field, g(v))
 		default:
 			return

@@ -544,39 +544,48 @@ func TestSchemaMatchesGo(t *testing.T) {
 	doc := loadSchema().doc
 	defs := doc.(map[string]any)["$defs"].(map[string]any)
 	hyp := defs["hypothesis"].(map[string]any)
-	for _, branch := range hyp["allOf"].([]any) {
-		b := branch.(map[string]any)
-		fam := b["if"].(map[string]any)["properties"].(map[string]any)["family"].(map[string]any)["const"].(string)
-		params := b["then"].(map[string]any)["properties"].(map[string]any)["params"].(map[string]any)
-		var names, required []string
-		for n := range params["properties"].(map[string]any) {
-			names = append(names, n)
-		}
-		for _, r := range params["required"].([]any) {
-			required = append(required, r.(string))
-		}
-		sort.Strings(names)
-		sort.Strings(required)
-		spec := familySpecs[fam]
-		var specNames, specRequired []string
-		for _, p := range spec {
-			specNames = append(specNames, p.name)
-			if p.required {
-				specRequired = append(specRequired, p.name)
+	// The family branches are built from the family table; check that the
+	// built schema enforces each family's required parameters: a
+	// hypothesis missing one is rejected at its params path, and one with
+	// every required parameter passes.
+	if got := len(hyp["allOf"].([]any)); got != len(Families) {
+		t.Errorf("schema has %d family branches, want %d", got, len(Families))
+	}
+	for _, f := range families {
+		var required []string
+		params := map[string]any{}
+		for _, p := range f.Params(Hypothesis{Family: f.Name}) {
+			if p.Required() {
+				required = append(required, p.Name)
+				params[p.Name] = map[string]any{"min": 0.1, "max": 0.9}
 			}
 		}
-		sort.Strings(specNames)
-		sort.Strings(specRequired)
-		if !slices.Equal(names, specNames) || !slices.Equal(required, specRequired) {
-			t.Errorf("family %s: schema params %v required %v; familySpecs %v required %v", fam, names, required, specNames, specRequired)
+		if len(required) == 0 {
+			t.Errorf("family %s has no required parameter", f.Name)
 		}
-		// family.go's AllowedParams is the evaluator's list.
-		if allowed := AllowedParams(fam); !slices.Equal(allowed, specNames) {
-			t.Errorf("family %s: AllowedParams %v, familySpecs %v", fam, allowed, specNames)
+		study := func(params map[string]any) []byte {
+			b, err := json.Marshal(map[string]any{"name": "x", "seed": 1,
+				"designs":    []any{map[string]any{"name": "d", "cti_ms": []int{300}}},
+				"hypotheses": []any{map[string]any{"name": "a", "family": f.Name, "params": params}, map[string]any{"name": "b", "family": "constant", "params": map[string]any{"level": map[string]any{"value": 1}}}}})
+			if err != nil {
+				t.Fatal(err)
+			}
+			return b
 		}
-	}
-	if len(hyp["allOf"].([]any)) != len(Families) || len(familySpecs) != len(Families) {
-		t.Errorf("schema has %d family branches, familySpecs %d, Families %d", len(hyp["allOf"].([]any)), len(familySpecs), len(Families))
+		if probs := ValidateSchema(study(params)); len(probs) != 0 {
+			t.Errorf("family %s with %v: schema problems %v, want none", f.Name, required, probs)
+		}
+		delete(params, required[0])
+		probs := ValidateSchema(study(params))
+		if len(probs) != 1 || probs[0].Path != "hypotheses[0].params" || !strings.Contains(probs[0].Problem, required[0]) {
+			t.Errorf("family %s without %s: schema problems %v, want one at hypotheses[0].params naming it", f.Name, required[0], probs)
+		}
+		params["no_such"] = map[string]any{"value": 1}
+		params[required[0]] = map[string]any{"value": 1}
+		probs = ValidateSchema(study(params))
+		if len(probs) != 1 || !strings.Contains(probs[0].Problem, "no_such") {
+			t.Errorf("family %s with an unknown parameter: schema problems %v, want one naming it", f.Name, probs)
+		}
 	}
 	enum := func(v any) []string {
 		var out []string
