@@ -120,10 +120,7 @@ func budgetFields(st *models.Study) []Field {
 		if err != nil {
 			ds = []models.Design{d}
 		}
-		fits := 0
-		for _, x := range ds {
-			fits += x.Participants * h * h
-		}
+		fits := models.DesignsFits(ds, h)
 		out = append(out, Field{
 			Path:    "designs[" + itoa(i) + "].participants",
 			Problem: fmt.Sprintf("this design needs %d fits (%d variant(s), participants × %d² hypotheses each)", fits, len(ds), h),

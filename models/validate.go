@@ -206,7 +206,7 @@ func (s *Study) Validate() []Problem {
 	}
 	replicationProblems(c, &s.Replication, all)
 
-	if f := fitsOf(all, h); f > MaxFits {
+	if f := DesignsFits(all, h); f > MaxFits {
 		c.add("", "the study needs %s fits (%s, %d designs with vary blocks expanded); the limit is %s", thousands(f), budgetFormula, len(all), thousands(MaxFits))
 	}
 	return c.out
@@ -702,6 +702,16 @@ func gainProblems(c *checker, pp string, hy *Hypothesis, wellFormed map[string]b
 }
 
 func replicationProblems(c *checker, r *Replication, designs []Design) {
+	c.out = append(c.out, r.Problems(designs)...)
+}
+
+// Problems returns every replication setting out of range for the
+// (expanded) designs, with its path: the one rule for the validator and
+// the group sweep. A group needs at least two participants, and no more
+// than any design has (groups are drawn from the design's synthetic
+// participants).
+func (r *Replication) Problems(designs []Design) []Problem {
+	c := &checker{}
 	if len(r.GroupSizes) == 0 {
 		c.add("replication.group_sizes", "group_sizes must list at least one group size")
 	}
@@ -725,23 +735,41 @@ func replicationProblems(c *checker, r *Replication, designs []Design) {
 	if !(r.TargetRate > 0 && r.TargetRate <= 1) {
 		c.add("replication.target_rate", "target_rate must be in (0, 1], got %s", g(r.TargetRate))
 	}
+	return c.out
 }
 
-// fitsOf counts fits, Σ_d participants_d × h², saturating at MaxInt.
-func fitsOf(designs []Design, h int) int {
-	hh := int64(h) * int64(h)
-	var total int64
-	for _, d := range designs {
-		p := int64(max(d.Participants, 0))
-		if hh > 0 && p > (math.MaxInt64-total)/hh {
-			return math.MaxInt
-		}
-		total += p * hh
+// Fits is the number of fits that participants synthetic participants of
+// each of generators generating hypotheses take when every candidate of
+// candidates is fitted to each:
+//
+//	fits = participants × generators × candidates
+//
+// saturating at MaxInt (0 for negative counts). A design of a study with h
+// hypotheses runs Fits(participants, h, h); a shard of one generator runs
+// Fits(n, 1, h).
+func Fits(participants, generators, candidates int) int {
+	p, g, c := max(participants, 0), max(generators, 0), max(candidates, 0)
+	if p == 0 || g == 0 || c == 0 {
+		return 0
 	}
-	if total > math.MaxInt {
+	if g > math.MaxInt/c || p > math.MaxInt/(g*c) {
 		return math.MaxInt
 	}
-	return int(total)
+	return p * g * c
+}
+
+// DesignsFits is Σ over designs of Fits(participants, h, h), saturating at
+// MaxInt.
+func DesignsFits(designs []Design, h int) int {
+	total := 0
+	for _, d := range designs {
+		f := Fits(d.Participants, h, h)
+		if f > math.MaxInt-total {
+			return math.MaxInt
+		}
+		total += f
+	}
+	return total
 }
 
 // TotalFits is the study's compute budget: Σ over designs, vary blocks
@@ -757,7 +785,7 @@ func (s *Study) TotalFits() int {
 		}
 		all = append(all, ds...)
 	}
-	return fitsOf(all, len(s.Hypotheses))
+	return DesignsFits(all, len(s.Hypotheses))
 }
 
 // thousands prints n with comma separators: 5000000 → "5,000,000".

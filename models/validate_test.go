@@ -720,3 +720,21 @@ func TestOverBudgetFlag(t *testing.T) {
 		t.Errorf("a study with an unknown field is flagged over budget: %v", err)
 	}
 }
+
+func TestFits(t *testing.T) {
+	for _, tc := range []struct{ p, g, c, want int }{
+		{6, 3, 3, 54}, {10, 1, 6, 60}, {0, 3, 3, 0}, {-2, 3, 3, 0},
+		{math.MaxInt / 2, 3, 3, math.MaxInt}, {3, math.MaxInt, 2, math.MaxInt},
+	} {
+		if got := Fits(tc.p, tc.g, tc.c); got != tc.want {
+			t.Errorf("Fits(%d, %d, %d) = %d, want %d", tc.p, tc.g, tc.c, got, tc.want)
+		}
+	}
+	ds := []Design{{Participants: 6}, {Participants: 4}}
+	if got := DesignsFits(ds, 3); got != 90 {
+		t.Errorf("DesignsFits = %d, want 90", got)
+	}
+	if got := DesignsFits([]Design{{Participants: math.MaxInt / 4}, {Participants: math.MaxInt / 4}}, 2); got != math.MaxInt {
+		t.Errorf("DesignsFits overflow = %d, want MaxInt", got)
+	}
+}

@@ -100,7 +100,7 @@ type ShardSpec struct {
 }
 
 // Fits is the number of fits the shard runs for h candidates.
-func (s ShardSpec) Fits(h int) int { return (s.To - s.From) * h }
+func (s ShardSpec) Fits(h int) int { return models.Fits(s.To-s.From, 1, h) }
 
 // Plan splits the study into shards of at most size participants, in a
 // fixed order (design, generator, participant).
@@ -133,14 +133,7 @@ func planShards(s *models.Study, designs []models.Design, size int) []ShardSpec 
 }
 
 // TotalFits counts every fit of the study.
-func (c *Compiled) TotalFits() int {
-	h := len(c.Study.Hypotheses)
-	n := 0
-	for _, d := range c.Designs {
-		n += d.Participants * h * h
-	}
-	return n
-}
+func (c *Compiled) TotalFits() int { return models.DesignsFits(c.Designs, len(c.Study.Hypotheses)) }
 
 // ParticipantResult is one synthetic participant: its truth and one fit per
 // candidate, in hypothesis order.

@@ -72,7 +72,7 @@ type GroupReport struct {
 // writes to its own slot, so the reports do not depend on the workers.
 func (c *Compiled) groupLevel(rep *Report, byDesign [][][]ParticipantResult) error {
 	r := c.Study.Replication
-	if err := checkReplication(r); err != nil {
+	if err := checkReplication(r, c.Designs); err != nil {
 		return err
 	}
 	var names []string
@@ -106,25 +106,11 @@ func (c *Compiled) groupLevel(rep *Report, byDesign [][][]ParticipantResult) err
 	return nil
 }
 
-// checkReplication returns an error naming the first replication field out
-// of range; Validate reports the same problems for a study file.
-func checkReplication(r models.Replication) error {
-	if len(r.GroupSizes) == 0 {
-		return fmt.Errorf("recovery: replication.group_sizes is empty, want at least one group size ≥ 1")
-	}
-	for i, n := range r.GroupSizes {
-		if n < 1 {
-			return fmt.Errorf("recovery: replication.group_sizes[%d] = %d, want ≥ 1", i, n)
-		}
-	}
-	if r.Replicates < 1 {
-		return fmt.Errorf("recovery: replication.replicates = %d, want ≥ 1", r.Replicates)
-	}
-	if !(r.PXPThreshold > 0 && r.PXPThreshold < 1) {
-		return fmt.Errorf("recovery: replication.pxp_threshold = %v, want a value in (0, 1)", r.PXPThreshold)
-	}
-	if !(r.TargetRate > 0 && r.TargetRate <= 1) {
-		return fmt.Errorf("recovery: replication.target_rate = %v, want a value in (0, 1]", r.TargetRate)
+// checkReplication returns an error naming the first replication setting
+// out of range for the designs, by the validator's own rule.
+func checkReplication(r models.Replication, designs []models.Design) error {
+	if ps := r.Problems(designs); len(ps) > 0 {
+		return fmt.Errorf("recovery: %s: %s", ps[0].Path, ps[0].Problem)
 	}
 	return nil
 }

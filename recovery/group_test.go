@@ -426,8 +426,12 @@ func TestGroupDeterministic(t *testing.T) {
 
 func TestCheckReplication(t *testing.T) {
 	ok := models.Replication{GroupSizes: []int{10}, Replicates: 5, PXPThreshold: 0.95, TargetRate: 0.8}
-	if err := checkReplication(ok); err != nil {
+	if err := checkReplication(ok, nil); err != nil {
 		t.Fatal(err)
+	}
+	// Groups are drawn from a design's participants: 10 of 6 cannot be.
+	if err := checkReplication(ok, []models.Design{{Name: "d", Participants: 6}}); err == nil || !strings.Contains(err.Error(), "replication.group_sizes[0] = 10 must be <= participants") {
+		t.Errorf("group of 10 from 6 participants: error %v", err)
 	}
 	for _, c := range []struct {
 		name, field string
@@ -435,6 +439,8 @@ func TestCheckReplication(t *testing.T) {
 	}{
 		{"no sizes", "replication.group_sizes", func(r *models.Replication) { r.GroupSizes = nil }},
 		{"zero size", "replication.group_sizes[1]", func(r *models.Replication) { r.GroupSizes = []int{5, 0} }},
+		// The validator's rule: a group of one is no group.
+		{"size one", "replication.group_sizes[0]", func(r *models.Replication) { r.GroupSizes = []int{1, 5} }},
 		{"no replicates", "replication.replicates", func(r *models.Replication) { r.Replicates = 0 }},
 		{"threshold 1", "replication.pxp_threshold", func(r *models.Replication) { r.PXPThreshold = 1 }},
 		{"target 0", "replication.target_rate", func(r *models.Replication) { r.TargetRate = 0 }},
@@ -443,7 +449,7 @@ func TestCheckReplication(t *testing.T) {
 			r := ok
 			r.GroupSizes = []int{10}
 			c.edit(&r)
-			if err := checkReplication(r); err == nil || !strings.Contains(err.Error(), c.field) {
+			if err := checkReplication(r, nil); err == nil || !strings.Contains(err.Error(), c.field) {
 				t.Errorf("error %v, want one naming %s", err, c.field)
 			}
 		})

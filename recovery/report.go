@@ -230,7 +230,7 @@ func criterionValue(f *Fit, name string) float64 {
 func (c *Compiled) Assemble(results []*ShardResult) (*Report, error) {
 	s := c.Study
 	H := len(s.Hypotheses)
-	want := 0
+	want := 0 // one result per synthetic participant of every generator
 	for _, d := range c.Designs {
 		want += d.Participants * H
 	}
