@@ -430,7 +430,7 @@ func TestCheckReplication(t *testing.T) {
 		t.Fatal(err)
 	}
 	// Groups are drawn from a design's participants: 10 of 6 cannot be.
-	if err := checkReplication(ok, []models.Design{{Name: "d", Participants: 6}}); err == nil || !strings.Contains(err.Error(), "replication.group_sizes[0] = 10 must be <= participants") {
+	if err := checkReplication(ok, []models.Design{{Name: "d", Participants: 6}}); err == nil || !strings.Contains(err.Error(), "replication.group_sizes[0]: group_sizes[0] = 10 must be <= participants") {
 		t.Errorf("group of 10 from 6 participants: error %v", err)
 	}
 	for _, c := range []struct {
