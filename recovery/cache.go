@@ -2,9 +2,9 @@ package recovery
 
 import (
 	"context"
+	"discrimen/internal/parallel"
 	"fmt"
 	"math"
-	"sync"
 
 	"discrimen/models"
 )
@@ -61,38 +61,29 @@ func BuildCache(ctx context.Context, l *models.Listener, d *models.Design, h mod
 	}
 	size := c.lay.size()
 	c.values = make([]float64, total*size)
-	if workers < 1 {
-		workers = 1
+	type scratch struct {
+		ws *models.Workspace
+		p  *models.Prediction
+		x  []float64
 	}
-	var wg sync.WaitGroup
-	errs := make([]error, workers)
-	for w := 0; w < workers; w++ {
-		wg.Add(1)
-		go func(w int) {
-			defer wg.Done()
-			ws, p := l.NewWorkspace(), l.NewPrediction()
-			x := make([]float64, dims)
-			for node := w; node < total; node += workers {
-				if node%64 == w && ctx.Err() != nil {
-					errs[w] = ctx.Err()
-					return
-				}
-				c.nodeParams(node, x)
-				prec, err := models.NewPrecision(h, d, x)
-				if err != nil {
-					errs[w] = err
-					return
-				}
-				l.Predict(prec, p, ws)
-				c.lay.flatten(p, c.values[node*size:(node+1)*size])
-			}
-		}(w)
-	}
-	wg.Wait()
-	for _, err := range errs {
-		if err != nil {
-			return nil, fmt.Errorf("recovery: prediction grid for %s: %w", h.Name, err)
+	scr := make([]*scratch, max(workers, 1))
+	err := parallel.For(ctx, total, workers, func(w, node int) error {
+		sc := scr[w]
+		if sc == nil {
+			sc = &scratch{ws: l.NewWorkspace(), p: l.NewPrediction(), x: make([]float64, dims)}
+			scr[w] = sc
 		}
+		c.nodeParams(node, sc.x)
+		prec, err := models.NewPrecision(h, d, sc.x)
+		if err != nil {
+			return err
+		}
+		l.Predict(prec, sc.p, sc.ws)
+		c.lay.flatten(sc.p, c.values[node*size:(node+1)*size])
+		return nil
+	})
+	if err != nil {
+		return nil, fmt.Errorf("recovery: prediction grid for %s: %w", h.Name, err)
 	}
 	return c, nil
 }

@@ -2,12 +2,12 @@ package recovery
 
 import (
 	"context"
+	"discrimen/internal/parallel"
 	"errors"
 	"fmt"
 	"runtime"
 	"sort"
 	"strconv"
-	"sync"
 	"sync/atomic"
 	"time"
 
@@ -65,18 +65,13 @@ func Compile(ctx context.Context, s *models.Study, workers int) (*Compiled, erro
 			row = append(row, cache)
 		}
 		errRow = make([]SurrogateError, len(row))
-		var wg sync.WaitGroup
-		sem := make(chan struct{}, workers)
-		for hi, cache := range row {
-			wg.Add(1)
-			sem <- struct{}{}
-			go func() {
-				defer wg.Done()
-				errRow[hi] = cache.MeasureError(s.Seed, surrogatePoints)
-				<-sem
-			}()
+		err = parallel.For(ctx, len(row), workers, func(_, hi int) error {
+			errRow[hi] = row[hi].MeasureError(s.Seed, surrogatePoints)
+			return nil
+		})
+		if err != nil {
+			return nil, err
 		}
-		wg.Wait()
 		c.caches = append(c.caches, row)
 		c.Surrogate = append(c.Surrogate, errRow)
 		preds, err := models.PredictDesign(s, d, nil)
@@ -230,35 +225,21 @@ func Run(ctx context.Context, s *models.Study, opt Options) (*Report, error) {
 	total := c.TotalFits()
 	var done atomic.Int64
 	results := make([]*ShardResult, len(specs))
-	errs := make([]error, len(specs))
-	next := atomic.Int64{}
-	var wg sync.WaitGroup
-	for w := 0; w < workers; w++ {
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			for {
-				i := int(next.Add(1) - 1)
-				if i >= len(specs) || ctx.Err() != nil {
-					return
-				}
-				results[i], errs[i] = c.RunShard(ctx, specs[i], func(n int) {
-					d := done.Add(int64(n))
-					if opt.Progress != nil {
-						opt.Progress(int(d), total)
-					}
-				})
+	err = parallel.For(ctx, len(specs), workers, func(_, i int) error {
+		var err error
+		results[i], err = c.RunShard(ctx, specs[i], func(n int) {
+			d := done.Add(int64(n))
+			if opt.Progress != nil {
+				opt.Progress(int(d), total)
 			}
-		}()
-	}
-	wg.Wait()
+		})
+		return err
+	})
 	if ctx.Err() != nil {
 		return nil, fmt.Errorf("%w: %v", ErrCanceled, ctx.Err())
 	}
-	for _, err := range errs {
-		if err != nil {
-			return nil, err
-		}
+	if err != nil {
+		return nil, err
 	}
 	fitStart := time.Now()
 	rep, err := c.Assemble(results)

@@ -1,14 +1,14 @@
 package recovery
 
 import (
+	"context"
+	"discrimen/internal/parallel"
 	"fmt"
 	"math"
 	"runtime"
 	"slices"
 	"strconv"
 	"strings"
-	"sync"
-	"sync/atomic"
 
 	"discrimen/models"
 )
@@ -154,27 +154,16 @@ func sweepGroups(seed uint64, generators []string, designs []designPools, r mode
 			cells[d][g] = make([]groupCell, len(sizes))
 		}
 	}
-	if workers < 1 {
-		workers = 1
-	}
-	var next atomic.Int64
-	var wg sync.WaitGroup
-	for w := 0; w < min(workers, len(tasks)); w++ {
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			s := newVBScratch(K)
-			for {
-				i := int(next.Add(1) - 1)
-				if i >= len(tasks) {
-					return
-				}
-				t := tasks[i]
-				cells[t.d][t.g][t.n] = runCell(seed, designs[t.d].Name, generators[t.g], designs[t.d].Pools[t.g], t.g, sizes[t.n], r, s)
-			}
-		}()
-	}
-	wg.Wait()
+	scr := make([]*vbScratch, max(workers, 1))
+	// The cells cannot fail and the sweep has no context to stop it.
+	_ = parallel.For(context.Background(), len(tasks), workers, func(w, i int) error {
+		if scr[w] == nil {
+			scr[w] = newVBScratch(K)
+		}
+		t := tasks[i]
+		cells[t.d][t.g][t.n] = runCell(seed, designs[t.d].Name, generators[t.g], designs[t.d].Pools[t.g], t.g, sizes[t.n], r, scr[w])
+		return nil
+	})
 	out := make([]*GroupReport, len(designs))
 	for d := range designs {
 		out[d] = groupReport(generators, designs[d], sizes, cells[d], r)
