@@ -61,3 +61,47 @@ func checkObsCount(fn string, n int) {
 		panic(fmt.Sprintf("recovery: %s: observation count n = %d, want n ≥ 1", fn, n))
 	}
 }
+
+// Criterion names an information criterion of the report. Its text is the
+// key in report.json ("bic", "aic", "aicc").
+type Criterion string
+
+const (
+	BICCriterion  Criterion = "bic"
+	AICCriterion  Criterion = "aic"
+	AICcCriterion Criterion = "aicc"
+)
+
+// Criteria lists the criteria in report order.
+var Criteria = []Criterion{BICCriterion, AICCriterion, AICcCriterion}
+
+// Label is the criterion as printed: BIC, AIC, AICc.
+func (c Criterion) Label() string {
+	switch c {
+	case BICCriterion:
+		return "BIC"
+	case AICCriterion:
+		return "AIC"
+	case AICcCriterion:
+		return "AICc"
+	}
+	panic(fmt.Sprintf("recovery: unknown criterion %q", string(c)))
+}
+
+// Of returns the criterion's value for fit f, NaN for a failed fit. An
+// unknown criterion is a caller bug and panics: no silent fallback to BIC.
+func (c Criterion) Of(f *Fit) float64 {
+	if f.Failed {
+		c.Label() // still panics on an unknown criterion
+		return math.NaN()
+	}
+	switch c {
+	case BICCriterion:
+		return f.BIC
+	case AICCriterion:
+		return f.AIC
+	case AICcCriterion:
+		return f.AICc
+	}
+	panic(fmt.Sprintf("recovery: unknown criterion %q", string(c)))
+}

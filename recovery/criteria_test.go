@@ -94,3 +94,34 @@ func statsMustPanic(t *testing.T, f func()) {
 	}()
 	f()
 }
+
+// TestCriterionOf guards against the old string criteria, which fell back
+// to BIC for any name they did not know.
+func TestCriterionOf(t *testing.T) {
+	f := &Fit{AIC: 1, AICc: 2, BIC: 3}
+	for _, tc := range []struct {
+		c     Criterion
+		want  float64
+		label string
+	}{{BICCriterion, 3, "BIC"}, {AICCriterion, 1, "AIC"}, {AICcCriterion, 2, "AICc"}} {
+		if got := tc.c.Of(f); got != tc.want {
+			t.Errorf("%s.Of = %v, want %v", tc.c, got, tc.want)
+		}
+		if got := tc.c.Label(); got != tc.label {
+			t.Errorf("%s.Label = %q, want %q", tc.c, got, tc.label)
+		}
+	}
+	if got := BICCriterion.Of(&Fit{Failed: true, BIC: 3}); !math.IsNaN(got) {
+		t.Errorf("failed fit: %v, want NaN", got)
+	}
+	for _, f := range []*Fit{f, {Failed: true}} {
+		func() {
+			defer func() {
+				if r := recover(); r == nil {
+					t.Error("unknown criterion did not panic")
+				}
+			}()
+			Criterion("bics").Of(f)
+		}()
+	}
+}

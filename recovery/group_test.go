@@ -488,7 +488,7 @@ func rankedDesign(name string, nmi float64, diag []float64, rs []float64, minute
 		pr = append(pr, ParamRecoveryReport{R: Num(r)})
 	}
 	return DesignReport{Name: name, MinutesPerSubject: minutes, TrialsPerSubject: trials, ParamRecovery: pr,
-		Criteria: map[string]CriterionReport{"bic": {Confusion: conf, NormalizedMI: Num(nmi)}}}
+		Criteria: map[Criterion]CriterionReport{"bic": {Confusion: conf, NormalizedMI: Num(nmi)}}}
 }
 
 // TestRankDesigns: the order follows normalised MI, then (within 0.01) the

@@ -292,9 +292,9 @@ func (r *Report) designView(di int, hypIndex map[string]int, specs map[string]mo
 		for _, x := range cr.Datasets {
 			n += x
 		}
-		dv.Criteria = append(dv.Criteria, criterionRow{Name: criterionLabel[crit], Rate: cr.RecoveryRate, MIBits: cr.MIBits, NormMI: cr.NormalizedMI, Datasets: n})
+		dv.Criteria = append(dv.Criteria, criterionRow{Name: crit.Label(), Rate: cr.RecoveryRate, MIBits: cr.MIBits, NormMI: cr.NormalizedMI, Datasets: n})
 	}
-	if cr, ok := d.Criteria["bic"]; ok && len(cr.Confusion) == len(names) && len(names) > 0 {
+	if cr, ok := d.Criteria[BICCriterion]; ok && len(cr.Confusion) == len(names) && len(names) > 0 {
 		var err error
 		dv.Confusion, err = heatmapChart(heatmapSpec{
 			Label: "Confusion matrix under BIC for design " + d.Name, Names: names, P: cr.Confusion, Counts: cr.Counts, N: cr.Datasets,
@@ -371,7 +371,6 @@ func (r *Report) designView(di int, hypIndex map[string]int, specs map[string]mo
 }
 
 // criterionLabel is how each criterion is written in the page.
-var criterionLabel = map[string]string{"bic": "BIC", "aic": "AIC", "aicc": "AICc"}
 
 func joinInts(x []int) string {
 	s := make([]string, len(x))

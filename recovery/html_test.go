@@ -61,7 +61,7 @@ func htmlDesign(name string, measures []string, group bool) DesignReport {
 	est := []Num{0.6, 0.9, 1.7, 2.1, Num(math.NaN()), 2.8}
 	d := DesignReport{
 		Name: name, Measures: measures, Participants: 6, TrialsPerSubject: 90, MinutesPerSubject: 4.65,
-		Criteria: map[string]CriterionReport{"bic": crit, "aic": aic, "aicc": crit},
+		Criteria: map[Criterion]CriterionReport{"bic": crit, "aic": aic, "aicc": crit},
 		ParamRecovery: []ParamRecoveryReport{
 			{Hypothesis: "flat", Parameter: "level", N: 6, R: 0.6, Bias: 0.094, RMSE: 0.335, Slope: 0.75, Coverage: 1, MedianSE: 0.16, ReliableSEs: 3},
 			{Hypothesis: "ramp", Parameter: "slope", N: 5, R: 0.95, Bias: -0.04, RMSE: 0.26, Slope: 1.25, Coverage: 0.25, MedianSE: 0.1, ReliableSEs: 4},
@@ -383,7 +383,7 @@ func TestHTMLSkipsAbsentParts(t *testing.T) {
 	for i := range r.Designs {
 		r.Designs[i].Predictions = nil
 		r.Designs[i].Recovery = nil
-		r.Designs[i].Criteria = map[string]CriterionReport{}
+		r.Designs[i].Criteria = map[Criterion]CriterionReport{}
 	}
 	page = renderHTML(t, r)
 	checkWellNested(t, page)

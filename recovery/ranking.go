@@ -50,7 +50,7 @@ func rankDesigns(rep *Report) {
 }
 
 func designRank(d DesignReport) DesignRank {
-	cr := d.Criteria["bic"]
+	cr := d.Criteria[BICCriterion]
 	worst := math.NaN()
 	for i := range cr.Confusion {
 		if i < len(cr.Confusion[i]) {

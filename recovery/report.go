@@ -92,7 +92,7 @@ type DesignReport struct {
 	Participants      int                           `json:"participants"`
 	TrialsPerSubject  int                           `json:"trials_per_participant"`
 	MinutesPerSubject float64                       `json:"minutes_per_participant"`
-	Criteria          map[string]CriterionReport    `json:"criteria"`
+	Criteria          map[Criterion]CriterionReport `json:"criteria"`
 	ParamRecovery     []ParamRecoveryReport         `json:"parameter_recovery"`
 	Tradeoffs         []TradeoffReport              `json:"tradeoffs"`
 	Mimicry           []MimicryReport               `json:"mimicry"`
@@ -208,22 +208,6 @@ func minutesPerParticipant(d *models.Design) float64 {
 	return ms / 60000
 }
 
-// Criteria names, in report order.
-var Criteria = []string{"bic", "aic", "aicc"}
-
-func criterionValue(f *Fit, name string) float64 {
-	if f.Failed {
-		return math.NaN()
-	}
-	switch name {
-	case "aic":
-		return f.AIC
-	case "aicc":
-		return f.AICc
-	}
-	return f.BIC
-}
-
 // Assemble aggregates every shard's results into the report. The shard
 // results may come in any order and may contain duplicates; the report
 // depends only on their content.
@@ -278,7 +262,7 @@ func (c *Compiled) designReport(di int, parts [][]ParticipantResult) DesignRepor
 		Name: d.Name, Measures: d.Measures, Participants: d.Participants,
 		TrialsPerSubject:  d.TrialsPerCTI * len(d.CTIms),
 		MinutesPerSubject: minutesPerParticipant(d),
-		Criteria:          map[string]CriterionReport{},
+		Criteria:          map[Criterion]CriterionReport{},
 		Surrogate:         c.Surrogate[di],
 		Predictions:       c.Predictions[di],
 		ParamRecovery:     []ParamRecoveryReport{},
@@ -304,10 +288,10 @@ func (c *Compiled) designReport(di int, parts [][]ParticipantResult) DesignRepor
 			for _, p := range parts[g] {
 				vals := make([]float64, H)
 				for j := range p.Fits {
-					vals[j] = criterionValue(&p.Fits[j], crit)
+					vals[j] = crit.Of(&p.Fits[j])
 				}
 				sh, failed := WinShares(vals, TieTolerance)
-				if failed && crit == "bic" {
+				if failed && crit == BICCriterion {
 					dr.FitFailures.NoWinner++
 				}
 				winners[g] = append(winners[g], sh)
@@ -400,7 +384,7 @@ func (c *Compiled) designReport(di int, parts [][]ParticipantResult) DesignRepor
 // under BIC: a pair is told apart when each is recovered as itself at least
 // 80% of the time and mistaken for the other less than 10% of the time.
 func verdict(s *models.Study, d *models.Design, dr DesignReport) []string {
-	cr := dr.Criteria["bic"]
+	cr := dr.Criteria[BICCriterion]
 	H := len(s.Hypotheses)
 	var apart, confused []string
 	for a := 0; a < H; a++ {
