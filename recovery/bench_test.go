@@ -45,14 +45,14 @@ func BenchmarkFit(b *testing.B) {
 	prec, _ := models.NewPrecision(h, d, truth.Free)
 	l.Predict(prec, pr, nil)
 	sum := summarise(d, Simulate(datasetRand(s.Seed, d.Name, h.Name, 0, "trials"), d, h, 0, truth, pr))
-	exact := *c.caches[0][g]
+	exact := *c.grids[0][g]
 	exact.points = 0
 	for _, bc := range []struct {
 		name  string
-		cache *Cache
-	}{{"grid", c.caches[0][g]}, {"exact", &exact}} {
+		grid *PredictionGrid
+	}{{"grid", c.grids[0][g]}, {"exact", &exact}} {
 		b.Run(bc.name, func(b *testing.B) {
-			f := newFitter(bc.cache)
+			f := newFitter(bc.grid)
 			evals := 0
 			for b.Loop() {
 				fit := f.fit(sum, true)

@@ -28,7 +28,7 @@ type Compiled struct {
 	Study     *models.Study
 	Designs   []models.Design
 	listeners []*models.Listener
-	caches    [][]*Cache // [design][hypothesis]
+	grids     [][]*PredictionGrid // [design][hypothesis]
 	Surrogate [][]SurrogateError
 	// Predictions holds each hypothesis's predictions at its reference
 	// values, per design, for the report's curves.
@@ -55,14 +55,14 @@ func Compile(ctx context.Context, s *models.Study, workers int) (*Compiled, erro
 			return nil, err
 		}
 		c.listeners = append(c.listeners, l)
-		var row []*Cache
+		var row []*PredictionGrid
 		var errRow []SurrogateError
 		for _, h := range s.Hypotheses {
-			cache, err := BuildCache(ctx, l, d, h, workers)
+			grid, err := BuildPredictionGrid(ctx, l, d, h, workers)
 			if err != nil {
 				return nil, err
 			}
-			row = append(row, cache)
+			row = append(row, grid)
 		}
 		errRow = make([]SurrogateError, len(row))
 		err = parallel.For(ctx, len(row), workers, func(_, hi int) error {
@@ -72,7 +72,7 @@ func Compile(ctx context.Context, s *models.Study, workers int) (*Compiled, erro
 		if err != nil {
 			return nil, err
 		}
-		c.caches = append(c.caches, row)
+		c.grids = append(c.grids, row)
 		c.Surrogate = append(c.Surrogate, errRow)
 		preds, err := models.PredictDesign(s, d, nil)
 		if err != nil {
@@ -163,9 +163,9 @@ func (c *Compiled) RunShard(ctx context.Context, spec ShardSpec, progress func(f
 	gen := c.Study.Hypotheses[spec.Generator]
 	l := c.listeners[spec.Design]
 	ws, pr := l.NewWorkspace(), l.NewPrediction()
-	fitters := make([]*fitter, len(c.caches[spec.Design]))
-	for j, cache := range c.caches[spec.Design] {
-		fitters[j] = newFitter(cache)
+	fitters := make([]*fitter, len(c.grids[spec.Design]))
+	for j, grid := range c.grids[spec.Design] {
+		fitters[j] = newFitter(grid)
 	}
 	res := &ShardResult{Spec: spec}
 	for p := spec.From; p < spec.To; p++ {

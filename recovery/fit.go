@@ -42,12 +42,12 @@ type Fit struct {
 	Error       string
 }
 
-// fitter fits one candidate (its cache) to datasets of one design.
+// fitter fits one candidate (its prediction grid) to datasets of one design.
 type fitter struct {
-	cache *Cache
-	ws    *models.Workspace
-	pr    *models.Prediction // scratch for exact predictions
-	pred  []float64
+	grid *PredictionGrid
+	ws   *models.Workspace
+	pr   *models.Prediction // scratch for exact predictions
+	pred []float64
 	// memo holds exact predictions by candidate parameters during a
 	// Hessian: stencil points that move only lapse or eeg_ar reuse them.
 	memo []memoEntry
@@ -68,12 +68,12 @@ func (f *fitter) exactMemo(x []float64) {
 			return
 		}
 	}
-	f.cache.exactInto(x, f.pred, f.ws, f.pr)
+	f.grid.exactInto(x, f.pred, f.ws, f.pr)
 	f.memo = append(f.memo, memoEntry{append([]float64(nil), x...), append([]float64(nil), f.pred...)})
 }
 
-func newFitter(c *Cache) *fitter {
-	return &fitter{cache: c, ws: c.listener.NewWorkspace(), pr: c.listener.NewPrediction(), pred: make([]float64, c.lay.size())}
+func newFitter(c *PredictionGrid) *fitter {
+	return &fitter{grid: c, ws: c.listener.NewWorkspace(), pr: c.listener.NewPrediction(), pred: make([]float64, c.lay.size())}
 }
 
 func logit(u float64) float64   { return math.Log(u / (1 - u)) }
@@ -91,7 +91,7 @@ type space struct {
 	defaultAR  float64
 }
 
-func newSpace(c *Cache, s *summary) space {
+func newSpace(c *PredictionGrid, s *sufficientStats) space {
 	sp := space{lapse: -1, ar: -1, dimsHyp: len(c.Names), defaultLap: 0.02, defaultAR: 0.25}
 	sp.lo = append(sp.lo, c.lo...)
 	sp.hi = append(sp.hi, c.hi...)
@@ -134,21 +134,21 @@ func (sp space) split(theta []float64) (hyp []float64, lapse, ar float64) {
 
 // negLogLik evaluates −ln L at natural θ with interpolated (exact=false) or
 // exact predictions.
-func (f *fitter) negLogLik(s *summary, sp space, theta []float64, exact bool, est *Measurement) float64 {
+func (f *fitter) negLogLik(s *sufficientStats, sp space, theta []float64, exact bool, est *Measurement) float64 {
 	hyp, lapse, ar := sp.split(theta)
 	if exact {
-		f.cache.exactInto(hyp, f.pred, f.ws, f.pr)
+		f.grid.exactInto(hyp, f.pred, f.ws, f.pr)
 	} else {
-		f.cache.Interpolate(hyp, f.pred, f.ws)
+		f.grid.Interpolate(hyp, f.pred, f.ws)
 	}
-	return logLik(s, f.cache.lay, f.pred, lapse, ar, est)
+	return logLik(s, f.grid.lay, f.pred, lapse, ar, est)
 }
 
 // starts picks up to nStarts starting points: the best grid nodes by the
 // likelihood at default lapse and eeg_ar, each at least two grid steps from
 // the ones already chosen.
-func (f *fitter) starts(s *summary, sp space) [][]float64 {
-	c := f.cache
+func (f *fitter) starts(s *sufficientStats, sp space) [][]float64 {
+	c := f.grid
 	dims := sp.dimsHyp
 	base := make([]float64, sp.totalDims)
 	if sp.lapse >= 0 {
@@ -225,8 +225,8 @@ func abs(x int) int {
 // likelihood has kinks and jumps: model.md §5) on interpolated
 // predictions, then evaluates the exact likelihood at the optimum and, when
 // withSE, the observed-information standard errors.
-func (f *fitter) fit(s *summary, withSE bool) Fit {
-	c := f.cache
+func (f *fitter) fit(s *sufficientStats, withSE bool) Fit {
+	c := f.grid
 	sp := newSpace(c, s)
 	out := Fit{Candidate: c.Hypothesis.Name, Names: c.Names, K: len(c.Names) + s.nMeasurement(), N: s.nObs()}
 	theta := make([]float64, sp.totalDims)
@@ -323,7 +323,7 @@ func (f *fitter) fit(s *summary, withSE bool) Fit {
 // HessianSE. Parameters within 0.1% of a bound of their range are held
 // fixed (the Hessian of a boundary optimum is not an information matrix);
 // a candidate parameter held so gets a NaN SE.
-func (f *fitter) standardErrors(s *summary, sp space, theta []float64) ([]float64, bool, string) {
+func (f *fitter) standardErrors(s *sufficientStats, sp space, theta []float64) ([]float64, bool, string) {
 	se := make([]float64, sp.dimsHyp)
 	for j := range se {
 		se[j] = math.NaN()
@@ -352,7 +352,7 @@ func (f *fitter) standardErrors(s *summary, sp space, theta []float64) ([]float6
 		}
 		hyp, lapse, ar := sp.split(full)
 		f.exactMemo(hyp)
-		return logLik(s, f.cache.lay, f.pred, lapse, ar, nil)
+		return logLik(s, f.grid.lay, f.pred, lapse, ar, nil)
 	}
 	x := make([]float64, len(active))
 	steps := make([]float64, len(active))
@@ -373,8 +373,8 @@ func (f *fitter) standardErrors(s *summary, sp space, theta []float64) ([]float6
 			full[i] = t[k]
 		}
 		hyp, lapse, ar := sp.split(full)
-		f.cache.Interpolate(hyp, f.pred, f.ws)
-		return logLik(s, f.cache.lay, f.pred, lapse, ar, nil)
+		f.grid.Interpolate(hyp, f.pred, f.ws)
+		return logLik(s, f.grid.lay, f.pred, lapse, ar, nil)
 	}
 	rough, _, _, why := HessianSE(roughNLL, x, steps)
 	for k := range steps {
@@ -397,7 +397,7 @@ func (f *fitter) standardErrors(s *summary, sp space, theta []float64) ([]float6
 
 // maskMeasurement sets the estimates of measurements the design does not
 // record to NaN.
-func maskMeasurement(s *summary, m *Measurement) {
+func maskMeasurement(s *sufficientStats, m *Measurement) {
 	nan := math.NaN()
 	if !s.measRT || s.nRT == 0 {
 		m.RTBase, m.RTScale, m.RTSD = nan, nan, nan

@@ -35,7 +35,7 @@ func TestNelderMeadRosenbrock(t *testing.T) {
 
 // testSummary builds a dataset's summary from a design and a prediction
 // with a seeded source.
-func testSummary(t *testing.T, js string, free []float64, m Measurement) (*models.Design, *summary, *Dataset, *models.Prediction) {
+func testSummary(t *testing.T, js string, free []float64, m Measurement) (*models.Design, *sufficientStats, *Dataset, *models.Prediction) {
 	t.Helper()
 	s := mustStudy(t, js)
 	d := &s.Designs[0]
@@ -177,7 +177,7 @@ func TestFailedFitIsCounted(t *testing.T) {
 	s := mustStudy(t, oneHypStudy)
 	d := &s.Designs[0]
 	l, _ := models.NewListener(d)
-	c := &Cache{Hypothesis: s.Hypotheses[1], design: d, listener: l, lay: newLayout(pr), points: 1}
+	c := &PredictionGrid{Hypothesis: s.Hypotheses[1], design: d, listener: l, lay: newLayout(pr), points: 1}
 	c.values = make([]float64, c.lay.size())
 	for i := range c.values {
 		c.values[i] = math.NaN()

@@ -52,9 +52,9 @@ func (l layout) flatten(pr *models.Prediction, dst []float64) {
 	copy(dst[5*l.C:], pr.Neural[longest])
 }
 
-// summary holds a dataset's sufficient statistics: the likelihood of §5
+// sufficientStats holds a dataset's sufficient statistics: the likelihood of §5
 // depends on the trial table only through them.
-type summary struct {
+type sufficientStats struct {
 	measRT, measAcc, measEEG bool
 	items                    float64
 	// per class (0 valid, 1 invalid) and CTI
@@ -66,9 +66,9 @@ type summary struct {
 	nEEG        int
 }
 
-func summarise(d *models.Design, ds *Dataset) *summary {
+func summarise(d *models.Design, ds *Dataset) *sufficientStats {
 	C := len(d.CTIms)
-	s := &summary{measRT: d.HasMeasure("rt"), measAcc: d.HasMeasure("accuracy"), measEEG: d.HasMeasure("eeg"), items: float64(d.Items)}
+	s := &sufficientStats{measRT: d.HasMeasure("rt"), measAcc: d.HasMeasure("accuracy"), measEEG: d.HasMeasure("eeg"), items: float64(d.Items)}
 	for k := 0; k < 2; k++ {
 		s.rtN[k] = make([]float64, C)
 		s.rtMean[k] = make([]float64, C)
@@ -125,11 +125,11 @@ func summarise(d *models.Design, ds *Dataset) *summary {
 }
 
 // nObs is n of the criteria: RT observations, accuracy trials and EEG bins.
-func (s *summary) nObs() int { return s.nRT + s.nAcc + s.nEEG }
+func (s *sufficientStats) nObs() int { return s.nRT + s.nAcc + s.nEEG }
 
 // nMeasurement counts the measurement parameters in k: rt_base, rt_scale,
 // rt_sd; lapse; eeg_offset, eeg_gain, eeg_sd, eeg_ar.
-func (s *summary) nMeasurement() int {
+func (s *sufficientStats) nMeasurement() int {
 	k := 0
 	if s.measRT && s.nRT > 0 {
 		k += 3
@@ -201,7 +201,7 @@ func boxLS2(s11, s12, s22, s1y, s2y float64) (b, s, reduction float64) {
 // logLik is −ln L of model.md §5 for predictions pred (flat, layout lay),
 // with lapse and the EEG AR coefficient given and the linear measurement
 // parameters profiled out. It fills est with every measurement estimate.
-func logLik(s *summary, lay layout, pred []float64, lapse, ar float64, est *Measurement) float64 {
+func logLik(s *sufficientStats, lay layout, pred []float64, lapse, ar float64, est *Measurement) float64 {
 	ll := 0.0
 	const ln2pi = 1.8378770664093453
 	if s.measRT && s.nRT > 0 {

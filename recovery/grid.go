@@ -13,12 +13,12 @@ import (
 // of free parameters: the grid costs points^dims exact predictions.
 var gridPoints = map[int]int{1: 129, 2: 41, 3: 17, 4: 9}
 
-// Cache holds one candidate's exact predictions on a grid over its free
+// PredictionGrid holds one candidate's exact predictions on a grid over its free
 // parameters, for one design (model.md §5: predictions depend only on the
 // candidate's parameters). Interpolation is multilinear in the generating
-// scale of each parameter (logarithmic for loguniform ones). A Cache is
-// read-only after BuildCache and safe for concurrent use.
-type Cache struct {
+// scale of each parameter (logarithmic for loguniform ones). A PredictionGrid is
+// read-only after BuildPredictionGrid and safe for concurrent use.
+type PredictionGrid struct {
 	Hypothesis models.Hypothesis
 	Names      []string
 	design     *models.Design
@@ -31,12 +31,12 @@ type Cache struct {
 	strides    []int
 }
 
-// BuildCache computes the grid of exact predictions with the given number
+// BuildPredictionGrid computes the grid of exact predictions with the given number
 // of goroutines. A candidate with more than four free parameters gets no
 // grid (Interpolate then computes exact predictions).
-func BuildCache(ctx context.Context, l *models.Listener, d *models.Design, h models.Hypothesis, workers int) (*Cache, error) {
+func BuildPredictionGrid(ctx context.Context, l *models.Listener, d *models.Design, h models.Hypothesis, workers int) (*PredictionGrid, error) {
 	names := h.FreeParams()
-	c := &Cache{Hypothesis: h, Names: names, design: d, listener: l}
+	c := &PredictionGrid{Hypothesis: h, Names: names, design: d, listener: l}
 	pr := l.NewPrediction()
 	c.lay = newLayout(pr)
 	for _, n := range names {
@@ -89,10 +89,10 @@ func BuildCache(ctx context.Context, l *models.Listener, d *models.Design, h mod
 }
 
 // Nodes returns the number of grid nodes (0 without a grid).
-func (c *Cache) Nodes() int { return len(c.values) / max(1, c.lay.size()) }
+func (c *PredictionGrid) Nodes() int { return len(c.values) / max(1, c.lay.size()) }
 
 // coord maps a parameter value to grid units in [0, points−1].
-func (c *Cache) coord(i int, x float64) float64 {
+func (c *PredictionGrid) coord(i int, x float64) float64 {
 	var u float64
 	if c.logScale[i] {
 		u = (math.Log(x) - math.Log(c.lo[i])) / (math.Log(c.hi[i]) - math.Log(c.lo[i]))
@@ -103,7 +103,7 @@ func (c *Cache) coord(i int, x float64) float64 {
 }
 
 // value maps grid units back to the parameter value.
-func (c *Cache) value(i int, g float64) float64 {
+func (c *PredictionGrid) value(i int, g float64) float64 {
 	u := g / float64(c.points-1)
 	if c.logScale[i] {
 		return math.Exp(math.Log(c.lo[i]) + u*(math.Log(c.hi[i])-math.Log(c.lo[i])))
@@ -111,7 +111,7 @@ func (c *Cache) value(i int, g float64) float64 {
 	return c.lo[i] + u*(c.hi[i]-c.lo[i])
 }
 
-func (c *Cache) nodeParams(node int, x []float64) {
+func (c *PredictionGrid) nodeParams(node int, x []float64) {
 	for i := range x {
 		k := (node / c.strides[i]) % c.points
 		x[i] = c.value(i, float64(k))
@@ -119,14 +119,14 @@ func (c *Cache) nodeParams(node int, x []float64) {
 }
 
 // node returns the stored prediction vector of one grid node.
-func (c *Cache) node(n int) []float64 {
+func (c *PredictionGrid) node(n int) []float64 {
 	s := c.lay.size()
 	return c.values[n*s : (n+1)*s]
 }
 
 // Interpolate writes the multilinear interpolation of the grid at x into
 // dst; without a grid it computes the exact prediction (ws may be nil).
-func (c *Cache) Interpolate(x, dst []float64, ws *models.Workspace) {
+func (c *PredictionGrid) Interpolate(x, dst []float64, ws *models.Workspace) {
 	dims := len(c.Names)
 	if c.points == 0 {
 		c.Exact(x, dst, ws)
@@ -172,12 +172,12 @@ func (c *Cache) Interpolate(x, dst []float64, ws *models.Workspace) {
 }
 
 // Exact writes the exact prediction at x into dst.
-func (c *Cache) Exact(x, dst []float64, ws *models.Workspace) {
+func (c *PredictionGrid) Exact(x, dst []float64, ws *models.Workspace) {
 	c.exactInto(x, dst, ws, c.listener.NewPrediction())
 }
 
 // exactInto is Exact with the caller's prediction scratch, for hot loops.
-func (c *Cache) exactInto(x, dst []float64, ws *models.Workspace, p *models.Prediction) {
+func (c *PredictionGrid) exactInto(x, dst []float64, ws *models.Workspace, p *models.Prediction) {
 	prec, err := models.NewPrecision(c.Hypothesis, c.design, x)
 	if err != nil {
 		panic(fmt.Sprintf("recovery: candidate %s: %v", c.Hypothesis.Name, err))
@@ -201,7 +201,7 @@ type SurrogateError struct {
 
 // MeasureError compares interpolated with exact predictions at n points
 // drawn uniformly (in grid units) from the seeded stream.
-func (c *Cache) MeasureError(seed uint64, n int) SurrogateError {
+func (c *PredictionGrid) MeasureError(seed uint64, n int) SurrogateError {
 	e := SurrogateError{Hypothesis: c.Hypothesis.Name, Points: n, GridNodes: c.Nodes()}
 	dims := len(c.Names)
 	if dims == 0 || c.points == 0 {
