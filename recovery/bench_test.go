@@ -48,7 +48,7 @@ func BenchmarkFit(b *testing.B) {
 	exact := *c.grids[0][g]
 	exact.points = 0
 	for _, bc := range []struct {
-		name  string
+		name string
 		grid *PredictionGrid
 	}{{"grid", c.grids[0][g]}, {"exact", &exact}} {
 		b.Run(bc.name, func(b *testing.B) {
