@@ -98,13 +98,49 @@ type htmlView struct {
 	Method     methodView
 }
 
-// methodView holds the fitting constants the method notes quote, taken
-// from the code so that the notes cannot drift from it.
+// methodView holds the method constants the notes quote, formatted from
+// the report's own Method block, so that a stored report quotes the
+// settings it was made with. Missing marks a report without the block
+// (every value is then a dash).
 type methodView struct {
-	Starts   int
-	SEChange string
-	LapseMax string
-	ARMax    string
+	Missing                                bool
+	Starts, StartSpacing, RescoreWindow    string
+	LapseMax, ARMax                        string
+	SERoughStep, SEFineStep, SEChange, ITI string
+}
+
+// newMethodView formats m for the method notes: counts under eleven in
+// words, as in running prose.
+func newMethodView(m Method) methodView {
+	if m == (Method{}) {
+		const dash = "—"
+		return methodView{Missing: true, Starts: dash, StartSpacing: dash, RescoreWindow: dash, LapseMax: dash, ARMax: dash,
+			SERoughStep: dash, SEFineStep: dash, SEChange: dash, ITI: dash}
+	}
+	return methodView{
+		Starts: strconv.Itoa(m.Starts), StartSpacing: countWord(m.StartSpacing), RescoreWindow: fmtG(m.RescoreWindow, 3),
+		LapseMax: fmtG(m.LapseMax, 3), ARMax: fmtG(m.ARMax, 3),
+		SERoughStep: fmtG(100*m.SERoughStep, 3) + "%", SEFineStep: fractionOf(m.SEFineStep), SEChange: fmtG(100*m.SEMaxChange, 3) + "%",
+		ITI: fmtG(float64(m.ITIms)/1000, 3) + " s",
+	}
+}
+
+// countWord writes 0 to 10 in words and larger counts in digits.
+func countWord(n int) string {
+	words := []string{"zero", "one", "two", "three", "four", "five", "six", "seven", "eight", "nine", "ten"}
+	if n >= 0 && n < len(words) {
+		return words[n]
+	}
+	return strconv.Itoa(n)
+}
+
+// fractionOf writes f as a multiplier before a plural noun: "half" or
+// "0.25 times".
+func fractionOf(f float64) string {
+	if f == 0.5 {
+		return "half"
+	}
+	return fmtG(f, 3) + " times"
 }
 
 type sectionLink struct{ ID, Title string }
@@ -181,8 +217,7 @@ type generatorHealth struct {
 // no scripts, no external references. Every string from the study is
 // escaped by html/template (in the page) or by vgsvg (in the charts).
 func (r *Report) HTML() ([]byte, error) {
-	v := htmlView{R: r, Ranking: append([]DesignRank(nil), r.Ranking...), Method: methodView{
-		Starts: nStarts, SEChange: fmtPct(hessianMaxSEChange), LapseMax: fmtG(lapseMax, 3), ARMax: fmtG(arMax, 3)}}
+	v := htmlView{R: r, Ranking: append([]DesignRank(nil), r.Ranking...), Method: newMethodView(r.Method)}
 	sort.SliceStable(v.Ranking, func(a, b int) bool { return v.Ranking[a].Rank < v.Ranking[b].Rank })
 	hypIndex := map[string]int{}
 	specs := map[string]models.Hypothesis{}

@@ -123,7 +123,7 @@ func htmlReport(group bool) *Report {
 		},
 		Replication: models.Replication{GroupSizes: []int{3, 6, 12}, Replicates: 20, PXPThreshold: 0.95, TargetRate: 0.8},
 	}
-	r := &Report{Study: study.Name, Seed: 7, Version: Version, Hypotheses: []string{"flat", "ramp", htmlScript},
+	r := &Report{Study: study.Name, Seed: 7, Version: Version, Method: CurrentMethod(), Hypotheses: []string{"flat", "ramp", htmlScript},
 		Families: []string{"constant", "linear", "logistic"}, StudyFile: study,
 		Designs: []DesignReport{htmlDesign("behaviour", []string{"rt", "accuracy"}, group), htmlDesign("behaviour+eeg", []string{"rt", "accuracy", "eeg"}, false)},
 	}
@@ -389,6 +389,58 @@ func TestHTMLSkipsAbsentParts(t *testing.T) {
 	checkWellNested(t, page)
 	if n, _ := checkSVGs(t, page); n != 0 {
 		t.Errorf("%d SVGs from a report without data", n)
+	}
+}
+
+// TestHTMLMethodNotesReadReport: the method notes quote the report's own
+// Method block, whatever the code's constants are, and say so when a
+// report has none.
+func TestHTMLMethodNotesReadReport(t *testing.T) {
+	cases := []struct {
+		name   string
+		method Method
+		want   []string
+		not    []string
+	}{
+		{"this build", CurrentMethod(), []string{
+			"from the 3 best grid nodes, at least two grid steps apart", "within 5 units of −ln L", "(in (0, 0.5))", "(in (−0.99, 0.99))",
+			"steps of 1% of each range", "steps of half those", "by more than 20% between", "assume an inter-trial interval of 1 s.",
+		}, []string{"does not record the constants"}},
+		{"other settings", Method{Starts: 7, StartSpacing: 12, RescoreWindow: 2.5, LapseMax: 0.4, ARMax: 0.9,
+			SERoughStep: 0.02, SEFineStep: 0.25, SEMaxChange: 0.3, ITIms: 1500}, []string{
+			"from the 7 best grid nodes, at least 12 grid steps apart", "within 2.5 units of −ln L", "(in (0, 0.4))", "(in (−0.9, 0.9))",
+			"steps of 2% of each range", "steps of 0.25 times those", "by more than 30% between", "assume an inter-trial interval of 1.5 s.",
+		}, []string{"from the 3 best", "steps of half those", "does not record the constants"}},
+		{"no method block", Method{}, []string{"does not record the constants of its method", "from the — best grid nodes", "(in (0, —))"},
+			[]string{"from the 3 best", "interval of 1 s"}},
+	}
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			r := htmlReport(true)
+			r.Method = c.method
+			page := renderHTML(t, r)
+			checkWellNested(t, page)
+			method := sectionBody(t, page, "method")
+			for _, w := range c.want {
+				if !strings.Contains(method, w) {
+					t.Errorf("method notes lack %q", w)
+				}
+			}
+			for _, w := range c.not {
+				if strings.Contains(method, w) {
+					t.Errorf("method notes hold %q", w)
+				}
+			}
+			// The study section's note on testing minutes quotes the same interval.
+			iti := c.want[len(c.want)-1]
+			if c.method.ITIms == 0 {
+				iti = "interval of —."
+			}
+			iti = strings.TrimPrefix(iti, "assume an ")
+			if !strings.Contains(sectionBody(t, page, "study"), iti) {
+				t.Errorf("study section lacks %q", iti)
+			}
+		})
 	}
 }
 
