@@ -135,7 +135,7 @@ type ParamRecoveryReport struct {
 }
 
 // RecoveryPoints holds true and estimated values of one parameter, for the
-// report's scatter plots.
+// scatter plots of report.html.
 type RecoveryPoints struct {
 	Hypothesis string `json:"hypothesis"`
 	Parameter  string `json:"parameter"`
