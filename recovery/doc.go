@@ -3,7 +3,9 @@
 // maximum likelihood, and summarises identifiability (confusion and
 // inversion matrices, parameter recovery, mimicry), the group level
 // (random-effects model selection over replicate groups) and the ranking of
-// designs; it renders the report as JSON, HTML and CSV (model.md §4–§8).
+// designs; it writes the report as JSON and its fits as CSV (model.md
+// §4–§8). recovery holds the numbers and the verdicts' prose, never a page
+// or a chart: report.html and the predictions page are package pages's.
 //
 // Conventions. Criteria are "smaller is better" (AIC, AICc, BIC); ln L is
 // natural. Every random draw comes from a stream seeded by the study seed

@@ -13,9 +13,29 @@ const (
 	lapseMax = 0.5
 	arMax    = 0.99
 	nStarts  = 3
+	// startSpacing: the start nodes lie at least this many grid steps
+	// apart along some parameter (Chebyshev distance of grid indices).
+	startSpacing = 2
 	// rescoreWindow: every run whose grid −ln L ends within this of the
 	// best run's is re-scored with exact predictions.
 	rescoreWindow = 5
+)
+
+// The stopping rules of every Nelder–Mead run (searchSettings).
+const (
+	searchSimplex     = 0.5  // initial simplex size in the logit-transformed space
+	searchEvalsPerDim = 400  // evaluation limit per searched dimension
+	searchAbsolute    = 1e-6 // an improvement smaller than this...
+	searchRelative    = 1e-9 // ...plus this times |best| does not count
+	searchStallPerDim = 12   // iterations without a counted improvement, per dimension
+	searchSpread      = 1e-9 // converged at once when every vertex's value lies within this
+)
+
+// The finite-difference steps of the standard errors (standardErrors).
+const (
+	seRoughStep = 0.01 // rough pass: step as a fraction of each parameter's range
+	seFineStep  = 0.5  // fine pass: step as a fraction of the rough SE
+	seEdge      = 1e-3 // a parameter within this fraction of its range of a bound is held fixed
 )
 
 // Fit is one candidate fitted to one dataset by maximum likelihood
@@ -192,7 +212,7 @@ func (f *fitter) starts(s *sufficientStats, sp space) [][]float64 {
 				b := (p / c.strides[i]) % c.points
 				d = max(d, abs(a-b))
 			}
-			far = far && d >= 2
+			far = far && d >= startSpacing
 		}
 		if !far {
 			continue
@@ -211,7 +231,8 @@ func (f *fitter) starts(s *sufficientStats, sp space) [][]float64 {
 // (absolute) over 12 iterations per dimension, or when every vertex's value
 // lies within 1e-9.
 func searchSettings(dims int) nmSettings {
-	return nmSettings{Size: 0.5, MaxEvals: 400 * dims, Absolute: 1e-6, Relative: 1e-9, Stall: 12 * dims, Spread: 1e-9}
+	return nmSettings{Size: searchSimplex, MaxEvals: searchEvalsPerDim * dims, Absolute: searchAbsolute, Relative: searchRelative,
+		Stall: searchStallPerDim * dims, Spread: searchSpread}
 }
 
 func abs(x int) int {
@@ -334,7 +355,7 @@ func (f *fitter) standardErrors(s *sufficientStats, sp space, theta []float64) (
 	for i := range theta {
 		r := sp.hi[i] - sp.lo[i]
 		room[i] = math.Min(theta[i]-sp.lo[i], sp.hi[i]-theta[i])
-		if room[i] > 1e-3*r {
+		if room[i] > seEdge*r {
 			active = append(active, i)
 		} else if i < sp.dimsHyp {
 			atEdge = true
@@ -363,7 +384,7 @@ func (f *fitter) standardErrors(s *sufficientStats, sp space, theta []float64) (
 	}
 	for k, i := range active {
 		x[k] = theta[i]
-		steps[k] = clampStep(k, 0.01*(sp.hi[i]-sp.lo[i]))
+		steps[k] = clampStep(k, seRoughStep*(sp.hi[i]-sp.lo[i]))
 	}
 	// The rough pass runs on the grid surrogate (no exact predictions):
 	// its steps span more than one grid cell, so the piecewise-linear
@@ -381,7 +402,7 @@ func (f *fitter) standardErrors(s *sufficientStats, sp space, theta []float64) (
 		if math.IsNaN(rough[k]) || math.IsInf(rough[k], 0) {
 			return se, false, "rough pass: " + why
 		}
-		steps[k] = clampStep(k, rough[k]/2)
+		steps[k] = clampStep(k, seFineStep*rough[k])
 	}
 	fine, _, ok, why := HessianSE(nll, x, steps)
 	for k, i := range active {

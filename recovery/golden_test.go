@@ -19,6 +19,9 @@ func TestGoldenReport(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
+	if r.Method != CurrentMethod() {
+		t.Errorf("report method %+v, want this build's %+v", r.Method, CurrentMethod())
+	}
 	got := reportBytes(t, r)
 	checkGolden(t, "small-report.json", got)
 	csv, err := r.FitsCSV()

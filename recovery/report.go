@@ -62,6 +62,7 @@ type Report struct {
 	Ranking    []DesignRank    `json:"design_ranking,omitempty"`
 	Preferred  string          `json:"preferred_design,omitempty"`
 	Verdict    string          `json:"ranking_verdict,omitempty"`
+	Method     Method          `json:"method"`
 	Timing     Timing          `json:"timing"`
 	StudyFile  *models.Study   `json:"study_file"`
 	Fits       [][]FitRowGroup `json:"-"` // per design: per-dataset fits, for fits.csv
@@ -134,7 +135,7 @@ type ParamRecoveryReport struct {
 }
 
 // RecoveryPoints holds true and estimated values of one parameter, for the
-// report's scatter plots.
+// scatter plots of report.html.
 type RecoveryPoints struct {
 	Hypothesis string `json:"hypothesis"`
 	Parameter  string `json:"parameter"`
@@ -197,13 +198,16 @@ func quantilesReport(q Quantiles) QuantilesReport {
 	return QuantilesReport{N: q.N, Mean: Num(q.Mean), Q05: Num(q.Q05), Q25: Num(q.Q25), Q50: Num(q.Q50), Q75: Num(q.Q75), Q95: Num(q.Q95)}
 }
 
+// itiMs is the inter-trial interval that testing time assumes (our
+// assumption, stated in the report).
+const itiMs = 1000
+
 // minutesPerParticipant estimates testing time: each trial lasts its CTI,
-// the response window and an inter-trial interval of 1 s (our assumption,
-// stated in the report).
+// the response window and an inter-trial interval of itiMs.
 func minutesPerParticipant(d *models.Design) float64 {
 	ms := 0.0
 	for _, c := range d.CTIms {
-		ms += float64(d.TrialsPerCTI) * float64(c+d.ResponseWindowMs+1000)
+		ms += float64(d.TrialsPerCTI) * float64(c+d.ResponseWindowMs+itiMs)
 	}
 	return ms / 60000
 }
@@ -222,7 +226,7 @@ func (c *Compiled) Assemble(results []*ShardResult) (*Report, error) {
 	if err != nil {
 		return nil, err
 	}
-	rep := &Report{Study: s.Name, Seed: s.Seed, Version: Version, StudyFile: s}
+	rep := &Report{Study: s.Name, Seed: s.Seed, Version: Version, Method: CurrentMethod(), StudyFile: s}
 	for _, h := range s.Hypotheses {
 		rep.Hypotheses = append(rep.Hypotheses, h.Name)
 		rep.Families = append(rep.Families, h.Family)

@@ -308,8 +308,11 @@ func FlatProfile(se float64, lo, hi float64) bool {
 	if math.IsNaN(se) || math.IsInf(se, 0) {
 		return true
 	}
-	return se > (hi-lo)/4
+	return se > flatSE*(hi-lo)
 }
+
+// flatSE is FlatProfile's threshold as a fraction of the range.
+const flatSE = 0.25
 
 // Tradeoff is the correlation across participants between the estimates
 // of two parameters of one hypothesis (model.md §6): a strong correlation

@@ -17,6 +17,7 @@ import (
 	"github.com/redis/go-redis/v9"
 
 	"discrimen/models"
+	"discrimen/pages"
 	"discrimen/recovery"
 )
 
@@ -412,7 +413,7 @@ func (s *Server) handleAssemble(ctx context.Context, t *asynq.Task) error {
 	if files[ReportJSON], err = rep.JSON(); err != nil {
 		return permanent("rendering report.json: %v", err)
 	}
-	if files[ReportHTML], err = rep.HTML(); err != nil {
+	if files[ReportHTML], err = pages.Report(rep); err != nil {
 		return permanent("rendering report.html: %v", err)
 	}
 	if files[FitsCSV], err = rep.FitsCSV(); err != nil {

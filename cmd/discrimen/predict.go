@@ -14,7 +14,7 @@ import (
 
 	"discrimen"
 	"discrimen/models"
-	"discrimen/recovery"
+	"discrimen/pages"
 )
 
 // setFlags collects repeated --set HYPOTHESIS.PARAM=VALUE flags.
@@ -97,7 +97,7 @@ func cmdPredict(args []string, stdout, stderr io.Writer) int {
 		return 1
 	}
 	if *htmlOut != "" {
-		page, err := recovery.PredictionsHTML(study.Name, d, preds)
+		page, err := pages.Predictions(study.Name, d, preds)
 		if err != nil {
 			fmt.Fprintln(stderr, "discrimen predict:", err)
 			return 1

@@ -13,6 +13,7 @@ import (
 
 	"github.com/schollz/progressbar/v3"
 
+	"discrimen/pages"
 	"discrimen/recovery"
 )
 
@@ -104,7 +105,7 @@ func writeReport(dir string, rep *recovery.Report) error {
 	if err != nil {
 		return err
 	}
-	html, err := rep.HTML()
+	html, err := pages.Report(rep)
 	if err != nil {
 		return err
 	}

@@ -1,4 +1,4 @@
-package recovery
+package pages
 
 import (
 	"fmt"
@@ -42,14 +42,14 @@ func predictionsStudy(t *testing.T) (*models.Study, *models.Design) {
 
 func renderPredictions(t *testing.T, name string, d *models.Design, preds []models.HypothesisPrediction) string {
 	t.Helper()
-	b, err := PredictionsHTML(name, d, preds)
+	b, err := Predictions(name, d, preds)
 	if err != nil {
 		t.Fatal(err)
 	}
 	return string(b)
 }
 
-func TestPredictionsHTML(t *testing.T) {
+func TestPredictionsPage(t *testing.T) {
 	s, d := predictionsStudy(t)
 	preds, err := models.PredictDesign(s, d, nil)
 	if err != nil {
@@ -164,10 +164,10 @@ func TestPredictionsHTML(t *testing.T) {
 	}
 }
 
-// TestPredictionsHTMLNotInvented: a study whose name does not say it is
+// TestPredictionsPageNotInvented: a study whose name does not say it is
 // invented gets no such note, and a design without EEG says the neural
 // panels are for comparison.
-func TestPredictionsHTMLNotInvented(t *testing.T) {
+func TestPredictionsPageNotInvented(t *testing.T) {
 	s, _ := predictionsStudy(t)
 	designs, err := s.ExpandedDesigns()
 	if err != nil {
@@ -193,7 +193,7 @@ func TestPredictionsHTMLNotInvented(t *testing.T) {
 	}
 }
 
-func TestPredictionsHTMLBadInput(t *testing.T) {
+func TestPredictionsPageBadInput(t *testing.T) {
 	s, d := predictionsStudy(t)
 	preds, err := models.PredictDesign(s, d, nil)
 	if err != nil {
@@ -211,7 +211,7 @@ func TestPredictionsHTMLBadInput(t *testing.T) {
 	}
 	for _, tc := range cases {
 		t.Run(tc.name, func(t *testing.T) {
-			_, err := PredictionsHTML(s.Name, d, tc.preds)
+			_, err := Predictions(s.Name, d, tc.preds)
 			if err == nil || !strings.Contains(err.Error(), tc.want) {
 				t.Fatalf("error %v, want one containing %q", err, tc.want)
 			}
@@ -219,11 +219,11 @@ func TestPredictionsHTMLBadInput(t *testing.T) {
 	}
 	t.Run("nil design", func(t *testing.T) {
 		defer func() {
-			if r := recover(); r == nil || !strings.HasPrefix(fmt.Sprint(r), "recovery: PredictionsHTML") {
-				t.Fatalf("recover() = %v, want a recovery: panic", r)
+			if r := recover(); r == nil || !strings.HasPrefix(fmt.Sprint(r), "pages: Predictions") {
+				t.Fatalf("recover() = %v, want a pages: panic", r)
 			}
 		}()
-		_, _ = PredictionsHTML(s.Name, nil, preds)
+		_, _ = Predictions(s.Name, nil, preds)
 	})
 }
 

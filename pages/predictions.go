@@ -1,4 +1,4 @@
-package recovery
+package pages
 
 import (
 	"bytes"
@@ -12,6 +12,7 @@ import (
 	"strings"
 
 	"discrimen/models"
+	"discrimen/recovery"
 )
 
 //go:embed templates/predictions.html.tmpl
@@ -62,19 +63,19 @@ type predRow struct {
 	Misdirected, Censored                    string
 }
 
-// PredictionsHTML renders what each hypothesis predicts for design d as one
+// Predictions renders what each hypothesis predicts for design d as one
 // self-contained page (inline CSS and SVG, no scripts, no external
 // references): the design, the parameter values used, RT, accuracy and
 // misdirected reports by CTI, and the neural signal before the target at
 // every CTI. preds is what models.PredictDesign returns for d; studyName
 // heads the page and, when it says "invented", the page says the scenario
 // is invented. Every string is escaped by html/template or by vgsvg.
-func PredictionsHTML(studyName string, d *models.Design, preds []models.HypothesisPrediction) ([]byte, error) {
+func Predictions(studyName string, d *models.Design, preds []models.HypothesisPrediction) ([]byte, error) {
 	if d == nil {
-		panic("recovery: PredictionsHTML: nil design")
+		panic("pages: Predictions: nil design")
 	}
 	if len(preds) == 0 {
-		return nil, fmt.Errorf("recovery: predictions page for design %q: no hypotheses to show", d.Name)
+		return nil, fmt.Errorf("pages: predictions page for design %q: no hypotheses to show", d.Name)
 	}
 	if err := checkPredictionShapes(d, preds); err != nil {
 		return nil, err
@@ -82,7 +83,7 @@ func PredictionsHTML(studyName string, d *models.Design, preds []models.Hypothes
 	v := predictionsView{
 		Study:    studyName,
 		Invented: strings.Contains(strings.ToLower(studyName), "invented"),
-		Version:  Version,
+		Version:  recovery.Version,
 		Design: predDesignView{
 			Name: d.Name, Streams: d.Streams, Items: d.Items, CTIs: joinInts(d.CTIms), Measures: strings.Join(d.Measures, ", "),
 			TrialsPerCTI: d.TrialsPerCTI, PresentationMs: d.PresentationMs, ResponseWindowMs: d.ResponseWindowMs,
@@ -163,7 +164,7 @@ func PredictionsHTML(studyName string, d *models.Design, preds []models.Hypothes
 
 	var buf bytes.Buffer
 	if err := predictionsTemplate.Execute(&buf, v); err != nil {
-		return nil, fmt.Errorf("recovery: rendering the predictions page: %w", err)
+		return nil, fmt.Errorf("pages: rendering the predictions page: %w", err)
 	}
 	return buf.Bytes(), nil
 }
@@ -173,7 +174,7 @@ func PredictionsHTML(studyName string, d *models.Design, preds []models.Hypothes
 func checkPredictionShapes(d *models.Design, preds []models.HypothesisPrediction) error {
 	for i, hp := range preds {
 		n := len(hp.CTIms)
-		where := fmt.Sprintf("recovery: predictions page: hypotheses[%d] (%q)", i, hp.Name)
+		where := fmt.Sprintf("pages: predictions page: hypotheses[%d] (%q)", i, hp.Name)
 		if n != len(d.CTIms) {
 			return fmt.Errorf("%s: cti_ms has %d values, design %q has %d CTIs", where, n, d.Name, len(d.CTIms))
 		}

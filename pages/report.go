@@ -1,4 +1,4 @@
-package recovery
+package pages
 
 import (
 	"bytes"
@@ -14,6 +14,7 @@ import (
 	"gonum.org/v1/plot/vg/draw"
 
 	"discrimen/models"
+	"discrimen/recovery"
 )
 
 //go:embed templates/report.html.tmpl
@@ -27,9 +28,9 @@ var styleTemplateText string
 
 // pageFuncs are the formatting functions every page template may call.
 var pageFuncs = template.FuncMap{
-	"prob": func(v Num) string { return fmtProb(float64(v)) },
-	"g3":   func(v Num) string { return fmtG(float64(v), 3) },
-	"pct":  func(v Num) string { return fmtPct(float64(v)) },
+	"prob": func(v recovery.Num) string { return fmtProb(float64(v)) },
+	"g3":   func(v recovery.Num) string { return fmtG(float64(v), 3) },
+	"pct":  func(v recovery.Num) string { return fmtPct(float64(v)) },
 	"f1":   func(v float64) string { return strconv.FormatFloat(v, 'f', 1, 64) },
 	"f2":   func(v float64) string { return strconv.FormatFloat(v, 'f', 2, 64) },
 	"g3f":  func(v float64) string { return fmtG(v, 3) },
@@ -88,23 +89,59 @@ func fmtCount(v float64) string {
 // formatted, every chart already drawn.
 
 type htmlView struct {
-	R          *Report
+	R          *recovery.Report
 	Hypotheses []hypView
 	Designs    []designView
-	Ranking    []DesignRank
+	Ranking    []recovery.DesignRank
 	HasGroup   bool
 	Sections   []sectionLink
 	Timing     string
 	Method     methodView
 }
 
-// methodView holds the fitting constants the method notes quote, taken
-// from the code so that the notes cannot drift from it.
+// methodView holds the method constants the notes quote, formatted from
+// the report's own Method block, so that a stored report quotes the
+// settings it was made with. Missing marks a report without the block
+// (every value is then a dash).
 type methodView struct {
-	Starts   int
-	SEChange string
-	LapseMax string
-	ARMax    string
+	Missing                                bool
+	Starts, StartSpacing, RescoreWindow    string
+	LapseMax, ARMax                        string
+	SERoughStep, SEFineStep, SEChange, ITI string
+}
+
+// newMethodView formats m for the method notes: counts under eleven in
+// words, as in running prose.
+func newMethodView(m recovery.Method) methodView {
+	if m == (recovery.Method{}) {
+		const dash = "—"
+		return methodView{Missing: true, Starts: dash, StartSpacing: dash, RescoreWindow: dash, LapseMax: dash, ARMax: dash,
+			SERoughStep: dash, SEFineStep: dash, SEChange: dash, ITI: dash}
+	}
+	return methodView{
+		Starts: strconv.Itoa(m.Starts), StartSpacing: countWord(m.StartSpacing), RescoreWindow: fmtG(m.RescoreWindow, 3),
+		LapseMax: fmtG(m.LapseMax, 3), ARMax: fmtG(m.ARMax, 3),
+		SERoughStep: fmtG(100*m.SERoughStep, 3) + "%", SEFineStep: fractionOf(m.SEFineStep), SEChange: fmtG(100*m.SEMaxChange, 3) + "%",
+		ITI: fmtG(float64(m.ITIms)/1000, 3) + " s",
+	}
+}
+
+// countWord writes 0 to 10 in words and larger counts in digits.
+func countWord(n int) string {
+	words := []string{"zero", "one", "two", "three", "four", "five", "six", "seven", "eight", "nine", "ten"}
+	if n >= 0 && n < len(words) {
+		return words[n]
+	}
+	return strconv.Itoa(n)
+}
+
+// fractionOf writes f as a multiplier before a plural noun: "half" or
+// "0.25 times".
+func fractionOf(f float64) string {
+	if f == 0.5 {
+		return "half"
+	}
+	return fmtG(f, 3) + " times"
 }
 
 type sectionLink struct{ ID, Title string }
@@ -126,28 +163,28 @@ type designView struct {
 	Inversion    template.HTML
 	Criteria     []criterionRow
 	Scatters     []scatterView
-	Tradeoffs    []TradeoffReport
-	Mimicry      []MimicryReport
+	Tradeoffs    []recovery.TradeoffReport
+	Mimicry      []recovery.MimicryReport
 	Group        *groupView
 	PredRT       template.HTML
 	PredAcc      template.HTML
 	PredNeural   template.HTML
 	LongestCTI   int
-	Health       FitFailures
+	Health       recovery.FitFailures
 	PerGenerator []generatorHealth
-	Surrogate    []SurrogateError
+	Surrogate    []recovery.SurrogateError
 	Ranked       bool
 }
 
 type criterionRow struct {
 	Name                 string
-	Rate, MIBits, NormMI Num
+	Rate, MIBits, NormMI recovery.Num
 	Datasets             int
 }
 
 type scatterView struct {
 	Chart template.HTML
-	P     ParamRecoveryReport
+	P     recovery.ParamRecoveryReport
 	Fails int
 }
 
@@ -177,12 +214,15 @@ type generatorHealth struct {
 	NoWinner   int
 }
 
-// HTML renders the report as one self-contained page: inline CSS and SVG,
-// no scripts, no external references. Every string from the study is
-// escaped by html/template (in the page) or by vgsvg (in the charts).
-func (r *Report) HTML() ([]byte, error) {
-	v := htmlView{R: r, Ranking: append([]DesignRank(nil), r.Ranking...), Method: methodView{
-		Starts: nStarts, SEChange: fmtPct(hessianMaxSEChange), LapseMax: fmtG(lapseMax, 3), ARMax: fmtG(arMax, 3)}}
+// Report renders r as report.html, one self-contained page: inline CSS and
+// SVG, no scripts, no external references. Every string from the study is
+// escaped by html/template (in the page) or by vgsvg (in the charts). The
+// method notes quote r.Method. Report panics if r is nil.
+func Report(r *recovery.Report) ([]byte, error) {
+	if r == nil {
+		panic("pages: Report: nil report")
+	}
+	v := htmlView{R: r, Ranking: append([]recovery.DesignRank(nil), r.Ranking...), Method: newMethodView(r.Method)}
 	sort.SliceStable(v.Ranking, func(a, b int) bool { return v.Ranking[a].Rank < v.Ranking[b].Rank })
 	hypIndex := map[string]int{}
 	specs := map[string]models.Hypothesis{}
@@ -200,7 +240,7 @@ func (r *Report) HTML() ([]byte, error) {
 		v.Hypotheses = append(v.Hypotheses, hypView{Name: name, Family: fam, Colour: hexColour(hypColour(i)), Params: paramSummary(specs[name])})
 	}
 	for di := range r.Designs {
-		dv, err := r.designView(di, hypIndex, specs)
+		dv, err := designPage(r, di, hypIndex, specs)
 		if err != nil {
 			return nil, err
 		}
@@ -219,7 +259,7 @@ func (r *Report) HTML() ([]byte, error) {
 	}
 	var buf bytes.Buffer
 	if err := reportTemplate.Execute(&buf, v); err != nil {
-		return nil, fmt.Errorf("recovery: rendering report.html: %w", err)
+		return nil, fmt.Errorf("pages: rendering report.html: %w", err)
 	}
 	return buf.Bytes(), nil
 }
@@ -252,7 +292,7 @@ func paramSummary(h models.Hypothesis) string {
 	return strings.Join(parts, "; ")
 }
 
-func (r *Report) findDesign(name string) *models.Design {
+func findDesign(r *recovery.Report, name string) *models.Design {
 	if r.StudyFile == nil {
 		return nil
 	}
@@ -264,14 +304,15 @@ func (r *Report) findDesign(name string) *models.Design {
 	return nil
 }
 
-func (r *Report) designView(di int, hypIndex map[string]int, specs map[string]models.Hypothesis) (designView, error) {
+// designPage builds design di's part of the page.
+func designPage(r *recovery.Report, di int, hypIndex map[string]int, specs map[string]models.Hypothesis) (designView, error) {
 	d := &r.Designs[di]
 	dv := designView{
 		Name: d.Name, Measures: strings.Join(d.Measures, ", "), Participants: d.Participants, Trials: d.TrialsPerSubject,
 		Minutes: d.MinutesPerSubject, Verdict: d.Verdict, Tradeoffs: d.Tradeoffs, Mimicry: d.Mimicry,
 		Health: d.FitFailures, Surrogate: d.Surrogate,
 	}
-	if sd := r.findDesign(d.Name); sd != nil {
+	if sd := findDesign(r, d.Name); sd != nil {
 		dv.CTIs = joinInts(sd.CTIms)
 		if sd.Validity > 0 {
 			dv.Validity = fmtG(sd.Validity, 3)
@@ -283,7 +324,7 @@ func (r *Report) designView(di int, hypIndex map[string]int, specs map[string]mo
 		dv.Ranked = dv.Ranked || rk.Design == d.Name
 	}
 	names := r.Hypotheses
-	for _, crit := range Criteria {
+	for _, crit := range recovery.Criteria {
 		cr, ok := d.Criteria[crit]
 		if !ok {
 			continue
@@ -294,7 +335,7 @@ func (r *Report) designView(di int, hypIndex map[string]int, specs map[string]mo
 		}
 		dv.Criteria = append(dv.Criteria, criterionRow{Name: crit.Label(), Rate: cr.RecoveryRate, MIBits: cr.MIBits, NormMI: cr.NormalizedMI, Datasets: n})
 	}
-	if cr, ok := d.Criteria[BICCriterion]; ok && len(cr.Confusion) == len(names) && len(names) > 0 {
+	if cr, ok := d.Criteria[recovery.BICCriterion]; ok && len(cr.Confusion) == len(names) && len(names) > 0 {
 		var err error
 		dv.Confusion, err = heatmapChart(heatmapSpec{
 			Label: "Confusion matrix under BIC for design " + d.Name, Names: names, P: cr.Confusion, Counts: cr.Counts, N: cr.Datasets,
@@ -325,7 +366,7 @@ func (r *Report) designView(di int, hypIndex map[string]int, specs map[string]mo
 	}
 	// Parameter recovery: one scatter per (hypothesis, parameter), in the
 	// order of the summary table.
-	points := map[[2]string]RecoveryPoints{}
+	points := map[[2]string]recovery.RecoveryPoints{}
 	for _, rp := range d.Recovery {
 		points[[2]string{rp.Hypothesis, rp.Parameter}] = rp
 	}
@@ -358,7 +399,7 @@ func (r *Report) designView(di int, hypIndex map[string]int, specs map[string]mo
 		dv.Scatters = append(dv.Scatters, sv)
 	}
 	if d.Group != nil {
-		gv, err := r.groupView(d, names)
+		gv, err := groupPage(r, d, names)
 		if err != nil {
 			return dv, err
 		}
@@ -370,8 +411,6 @@ func (r *Report) designView(di int, hypIndex map[string]int, specs map[string]mo
 	return dv, nil
 }
 
-// criterionLabel is how each criterion is written in the page.
-
 func joinInts(x []int) string {
 	s := make([]string, len(x))
 	for i, v := range x {
@@ -380,9 +419,9 @@ func joinInts(x []int) string {
 	return strings.Join(s, ", ")
 }
 
-// groupView draws the group recovery curves: Recovery[g][k] is the share
+// groupPage draws the group recovery curves: Recovery[g][k] is the share
 // of replicate groups of size GroupSizes[k] recovering generator g.
-func (r *Report) groupView(d *DesignReport, names []string) (*groupView, error) {
+func groupPage(r *recovery.Report, d *recovery.DesignReport, names []string) (*groupView, error) {
 	g := d.Group
 	gv := &groupView{Replicates: g.Replicates, Sizes: joinInts(g.GroupSizes), Summary: g.Summary, Notes: g.Notes,
 		BMSRuns: g.BMSRuns, Quadratures: g.Quadratures, NotConverged: g.NotConverged}

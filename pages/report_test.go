@@ -1,4 +1,4 @@
-package recovery
+package pages
 
 import (
 	"bytes"
@@ -15,6 +15,7 @@ import (
 	"gonum.org/v1/gonum/floats/scalar"
 
 	"discrimen/models"
+	"discrimen/recovery"
 )
 
 // htmlScript is a hypothesis name that must come out escaped everywhere.
@@ -35,13 +36,25 @@ var htmlSections = []struct{ id, title string }{
 	{"limits", "What a simulation can and cannot promise"},
 }
 
-func htmlMatrix(rows ...[]float64) [][]Num { return numMatrix(rows) }
+// numMatrix converts a float matrix to the report's numbers.
+func numMatrix(rows [][]float64) [][]recovery.Num {
+	out := make([][]recovery.Num, len(rows))
+	for i, r := range rows {
+		out[i] = make([]recovery.Num, len(r))
+		for j, v := range r {
+			out[i][j] = recovery.Num(v)
+		}
+	}
+	return out
+}
+
+func htmlMatrix(rows ...[]float64) [][]recovery.Num { return numMatrix(rows) }
 
 func ptr[T any](v T) *T { return &v }
 
 // htmlDesign is one hand-made design report over the hypotheses flat,
 // ramp and htmlScript, with 6 synthetic participants per generator.
-func htmlDesign(name string, measures []string, group bool) DesignReport {
+func htmlDesign(name string, measures []string, group bool) recovery.DesignReport {
 	names := []string{"flat", "ramp", htmlScript}
 	conf := htmlMatrix([]float64{1, 0, 0}, []float64{0, 5.0 / 6, 1.0 / 6}, []float64{0, 2.0 / 6, 4.0 / 6})
 	counts := htmlMatrix([]float64{6, 0, 0}, []float64{0, 5, 1}, []float64{0, 2, 4})
@@ -49,36 +62,36 @@ func htmlDesign(name string, measures []string, group bool) DesignReport {
 	for i := range lo {
 		lo[i], hi[i] = make([]float64, 3), make([]float64, 3)
 		for j := range lo[i] {
-			lo[i][j], hi[i][j] = WilsonInterval(float64(counts[i][j]), 6)
+			lo[i][j], hi[i][j] = recovery.WilsonInterval(float64(counts[i][j]), 6)
 		}
 	}
 	inv := htmlMatrix([]float64{1, 0, 0}, []float64{0, 5.0 / 7, 0.2}, []float64{0, 2.0 / 7, 0.8})
-	crit := CriterionReport{Confusion: conf, Counts: counts, CILow: numMatrix(lo), CIHigh: numMatrix(hi), Inversion: inv,
-		RecoveryRate: Num((1 + 5.0/6 + 4.0/6) / 3), MIBits: 0.98, NormalizedMI: 0.62, Datasets: []int{6, 6, 6}, Failures: []int{0, 0, 0}}
+	crit := recovery.CriterionReport{Confusion: conf, Counts: counts, CILow: numMatrix(lo), CIHigh: numMatrix(hi), Inversion: inv,
+		RecoveryRate: recovery.Num((1 + 5.0/6 + 4.0/6) / 3), MIBits: 0.98, NormalizedMI: 0.62, Datasets: []int{6, 6, 6}, Failures: []int{0, 0, 0}}
 	aic := crit
 	aic.RecoveryRate = 0.83
-	truth := []Num{0.5, 1, 1.5, 2, 2.5, 3}
-	est := []Num{0.6, 0.9, 1.7, 2.1, Num(math.NaN()), 2.8}
-	d := DesignReport{
+	truth := []recovery.Num{0.5, 1, 1.5, 2, 2.5, 3}
+	est := []recovery.Num{0.6, 0.9, 1.7, 2.1, recovery.Num(math.NaN()), 2.8}
+	d := recovery.DesignReport{
 		Name: name, Measures: measures, Participants: 6, TrialsPerSubject: 90, MinutesPerSubject: 4.65,
-		Criteria: map[Criterion]CriterionReport{"bic": crit, "aic": aic, "aicc": crit},
-		ParamRecovery: []ParamRecoveryReport{
+		Criteria: map[recovery.Criterion]recovery.CriterionReport{"bic": crit, "aic": aic, "aicc": crit},
+		ParamRecovery: []recovery.ParamRecoveryReport{
 			{Hypothesis: "flat", Parameter: "level", N: 6, R: 0.6, Bias: 0.094, RMSE: 0.335, Slope: 0.75, Coverage: 1, MedianSE: 0.16, ReliableSEs: 3},
 			{Hypothesis: "ramp", Parameter: "slope", N: 5, R: 0.95, Bias: -0.04, RMSE: 0.26, Slope: 1.25, Coverage: 0.25, MedianSE: 0.1, ReliableSEs: 4},
 			{Hypothesis: htmlScript, Parameter: "width", N: 6, R: -0.09, Bias: 0.002, RMSE: 0.07, Slope: -0.12, Coverage: 1, Flat: true, MedianSE: 0.03, ReliableSEs: 1},
 		},
-		Recovery: []RecoveryPoints{
-			{Hypothesis: "flat", Parameter: "level", Min: 0.3, Max: 1.5, Truth: []Num{0.4, 0.7, 0.9, 1.1, 1.3, 1.45}, Estimate: []Num{0.5, 0.6, 1.0, 1.0, 1.2, 1.5}},
+		Recovery: []recovery.RecoveryPoints{
+			{Hypothesis: "flat", Parameter: "level", Min: 0.3, Max: 1.5, Truth: []recovery.Num{0.4, 0.7, 0.9, 1.1, 1.3, 1.45}, Estimate: []recovery.Num{0.5, 0.6, 1.0, 1.0, 1.2, 1.5}},
 			{Hypothesis: "ramp", Parameter: "slope", Min: 0.5, Max: 3, Truth: truth, Estimate: est},
-			{Hypothesis: htmlScript, Parameter: "width", Min: 0.05, Max: 0.3, Truth: []Num{0.06, 0.1, 0.15, 0.2, 0.25, 0.29}, Estimate: []Num{0.2, 0.1, 0.28, 0.07, 0.15, 0.2}},
+			{Hypothesis: htmlScript, Parameter: "width", Min: 0.05, Max: 0.3, Truth: []recovery.Num{0.06, 0.1, 0.15, 0.2, 0.25, 0.29}, Estimate: []recovery.Num{0.2, 0.1, 0.28, 0.07, 0.15, 0.2}},
 		},
-		Tradeoffs: []TradeoffReport{{Hypothesis: htmlScript, A: "midpoint", B: "width", R: 0.72, N: 6}},
-		Mimicry: []MimicryReport{
-			{A: "flat", B: "ramp", WhenA: QuantilesReport{N: 6, Mean: -6, Q05: -11.1, Q25: -8.8, Q50: -5.81, Q75: -1.5, Q95: -0.76}, WhenB: QuantilesReport{N: 6, Mean: 40, Q05: 21.7, Q25: 34.2, Q50: 40.1, Q75: 52.6, Q95: 53.2}},
-			{A: "ramp", B: htmlScript, WhenA: QuantilesReport{N: 6, Mean: -8, Q05: -9.6, Q25: -8.9, Q50: -8.03, Q75: -4.7, Q95: -2.6}, WhenB: QuantilesReport{N: 6, Mean: -3, Q05: -8.7, Q25: -4.4, Q50: -3.14, Q75: -1.9, Q95: 1.6}},
+		Tradeoffs: []recovery.TradeoffReport{{Hypothesis: htmlScript, A: "midpoint", B: "width", R: 0.72, N: 6}},
+		Mimicry: []recovery.MimicryReport{
+			{A: "flat", B: "ramp", WhenA: recovery.QuantilesReport{N: 6, Mean: -6, Q05: -11.1, Q25: -8.8, Q50: -5.81, Q75: -1.5, Q95: -0.76}, WhenB: recovery.QuantilesReport{N: 6, Mean: 40, Q05: 21.7, Q25: 34.2, Q50: 40.1, Q75: 52.6, Q95: 53.2}},
+			{A: "ramp", B: htmlScript, WhenA: recovery.QuantilesReport{N: 6, Mean: -8, Q05: -9.6, Q25: -8.9, Q50: -8.03, Q75: -4.7, Q95: -2.6}, WhenB: recovery.QuantilesReport{N: 6, Mean: -3, Q05: -8.7, Q25: -4.4, Q50: -3.14, Q75: -1.9, Q95: 1.6}},
 		},
-		FitFailures: FitFailures{Failed: 1, NotConverged: 2, Total: 54},
-		Surrogate:   []SurrogateError{{Hypothesis: "ramp", Points: 40, GridNodes: 129, MaxRTms: 1.66, MedianRTms: 0.058, MaxAccuracy: 0.001, MaxNeural: 2e-4, MedianNeural: 1e-5}},
+		FitFailures: recovery.FitFailures{Failed: 1, NotConverged: 2, Total: 54},
+		Surrogate:   []recovery.SurrogateError{{Hypothesis: "ramp", Points: 40, GridNodes: 129, MaxRTms: 1.66, MedianRTms: 0.058, MaxAccuracy: 0.001, MaxNeural: 2e-4, MedianNeural: 1e-5}},
 		Verdict:     []string{"Under BIC this design recovers the generating hypothesis in 83% of synthetic participants.", "It cannot reliably tell apart ramp and " + htmlScript + "."},
 	}
 	for i, n := range names {
@@ -91,12 +104,12 @@ func htmlDesign(name string, measures []string, group bool) DesignReport {
 		d.Predictions = append(d.Predictions, hp)
 	}
 	if group {
-		d.Group = &GroupReport{
+		d.Group = &recovery.GroupReport{
 			Generators: names, GroupSizes: []int{3, 6, 12}, Replicates: 20, PXPThreshold: 0.95, TargetRate: 0.8,
 			Recovery: htmlMatrix([]float64{0.5, 0.85, 0.95}, []float64{0.2, 0.4, 0.7}, []float64{0.1, 0.3, 0.45}),
 			CILow:    htmlMatrix([]float64{0.3, 0.64, 0.76}, []float64{0.08, 0.22, 0.48}, []float64{0.03, 0.15, 0.26}),
 			CIHigh:   htmlMatrix([]float64{0.7, 0.95, 0.99}, []float64{0.42, 0.61, 0.85}, []float64{0.3, 0.52, 0.65}),
-			Confusion: [][][]Num{
+			Confusion: [][][]recovery.Num{
 				htmlMatrix([]float64{0.5, 0, 0}, []float64{0, 0.2, 0.1}, []float64{0, 0.2, 0.1}),
 				htmlMatrix([]float64{0.85, 0, 0}, []float64{0, 0.4, 0.1}, []float64{0, 0.3, 0.3}),
 				htmlMatrix([]float64{0.95, 0, 0}, []float64{0, 0.7, 0.1}, []float64{0, 0.35, 0.45}),
@@ -112,7 +125,7 @@ func htmlDesign(name string, measures []string, group bool) DesignReport {
 
 // htmlReport is a hand-made report: 3 hypotheses, 2 designs, group
 // analysis on the first, and a ranking.
-func htmlReport(group bool) *Report {
+func htmlReport(group bool) *recovery.Report {
 	lo, hi, v := 0.05, 0.3, 0.2
 	study := &models.Study{Name: "radio watch <b>(invented)</b>", Seed: 7,
 		Designs: []models.Design{{Name: "behaviour", CTIms: []int{300, 600, 900}, Validity: 0.75}},
@@ -123,12 +136,12 @@ func htmlReport(group bool) *Report {
 		},
 		Replication: models.Replication{GroupSizes: []int{3, 6, 12}, Replicates: 20, PXPThreshold: 0.95, TargetRate: 0.8},
 	}
-	r := &Report{Study: study.Name, Seed: 7, Version: Version, Hypotheses: []string{"flat", "ramp", htmlScript},
+	r := &recovery.Report{Study: study.Name, Seed: 7, Version: recovery.Version, Method: recovery.CurrentMethod(), Hypotheses: []string{"flat", "ramp", htmlScript},
 		Families: []string{"constant", "linear", "logistic"}, StudyFile: study,
-		Designs: []DesignReport{htmlDesign("behaviour", []string{"rt", "accuracy"}, group), htmlDesign("behaviour+eeg", []string{"rt", "accuracy", "eeg"}, false)},
+		Designs: []recovery.DesignReport{htmlDesign("behaviour", []string{"rt", "accuracy"}, group), htmlDesign("behaviour+eeg", []string{"rt", "accuracy", "eeg"}, false)},
 	}
 	if group {
-		r.Ranking = []DesignRank{
+		r.Ranking = []recovery.DesignRank{
 			{Design: "behaviour+eeg", Rank: 2, NormalizedMI: 0.55, WorstDiagonal: 0.6, ParameterR: 0.7, TrialsPerParticipant: 90, MinutesPerParticipant: 4.65, NormalizedMIPerMinute: 0.118},
 			{Design: "behaviour", Rank: 1, NormalizedMI: 0.62, WorstDiagonal: 0.67, ParameterR: 0.8, TrialsPerParticipant: 90, MinutesPerParticipant: 4.65, NormalizedMIPerMinute: 0.133},
 		}
@@ -138,9 +151,9 @@ func htmlReport(group bool) *Report {
 	return r
 }
 
-func renderHTML(t *testing.T, r *Report) string {
+func renderHTML(t *testing.T, r *recovery.Report) string {
 	t.Helper()
-	b, err := r.HTML()
+	b, err := Report(r)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -287,7 +300,7 @@ func TestHTMLReport(t *testing.T) {
 	// A confusion cell as printed: P = 1/6 → 0.17 with 1 of 6 wins and its
 	// Wilson interval.
 	wins := sectionBody(t, page, "who-wins")
-	loW, hiW := WilsonInterval(1, 6)
+	loW, hiW := recovery.WilsonInterval(1, 6)
 	for _, want := range []string{">0.17</text>", ">1/6</text>", fmt.Sprintf(">%.2f–%.2f</text>", loW, hiW), ">0.83</text>"} {
 		if !strings.Contains(wins, want) {
 			t.Errorf("who-wins lacks %q", want)
@@ -383,13 +396,74 @@ func TestHTMLSkipsAbsentParts(t *testing.T) {
 	for i := range r.Designs {
 		r.Designs[i].Predictions = nil
 		r.Designs[i].Recovery = nil
-		r.Designs[i].Criteria = map[Criterion]CriterionReport{}
+		r.Designs[i].Criteria = map[recovery.Criterion]recovery.CriterionReport{}
 	}
 	page = renderHTML(t, r)
 	checkWellNested(t, page)
 	if n, _ := checkSVGs(t, page); n != 0 {
 		t.Errorf("%d SVGs from a report without data", n)
 	}
+}
+
+// TestHTMLMethodNotesReadReport: the method notes quote the report's own
+// Method block, whatever the code's constants are, and say so when a
+// report has none.
+func TestHTMLMethodNotesReadReport(t *testing.T) {
+	cases := []struct {
+		name   string
+		method recovery.Method
+		want   []string
+		not    []string
+	}{
+		{"this build", recovery.CurrentMethod(), []string{
+			"from the 3 best grid nodes, at least two grid steps apart", "within 5 units of −ln L", "(in (0, 0.5))", "(in (−0.99, 0.99))",
+			"steps of 1% of each range", "steps of half those", "by more than 20% between", "assume an inter-trial interval of 1 s.",
+		}, []string{"does not record the constants"}},
+		{"other settings", recovery.Method{Starts: 7, StartSpacing: 12, RescoreWindow: 2.5, LapseMax: 0.4, ARMax: 0.9,
+			SERoughStep: 0.02, SEFineStep: 0.25, SEMaxChange: 0.3, ITIms: 1500}, []string{
+			"from the 7 best grid nodes, at least 12 grid steps apart", "within 2.5 units of −ln L", "(in (0, 0.4))", "(in (−0.9, 0.9))",
+			"steps of 2% of each range", "steps of 0.25 times those", "by more than 30% between", "assume an inter-trial interval of 1.5 s.",
+		}, []string{"from the 3 best", "steps of half those", "does not record the constants"}},
+		{"no method block", recovery.Method{}, []string{"does not record the constants of its method", "from the — best grid nodes", "(in (0, —))"},
+			[]string{"from the 3 best", "interval of 1 s"}},
+	}
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			r := htmlReport(true)
+			r.Method = c.method
+			page := renderHTML(t, r)
+			checkWellNested(t, page)
+			method := sectionBody(t, page, "method")
+			for _, w := range c.want {
+				if !strings.Contains(method, w) {
+					t.Errorf("method notes lack %q", w)
+				}
+			}
+			for _, w := range c.not {
+				if strings.Contains(method, w) {
+					t.Errorf("method notes hold %q", w)
+				}
+			}
+			// The study section's note on testing minutes quotes the same interval.
+			iti := c.want[len(c.want)-1]
+			if c.method.ITIms == 0 {
+				iti = "interval of —."
+			}
+			iti = strings.TrimPrefix(iti, "assume an ")
+			if !strings.Contains(sectionBody(t, page, "study"), iti) {
+				t.Errorf("study section lacks %q", iti)
+			}
+		})
+	}
+}
+
+func TestReportNilPanics(t *testing.T) {
+	defer func() {
+		if r := recover(); r == nil || !strings.HasPrefix(fmt.Sprint(r), "pages: Report") {
+			t.Fatalf("recover() = %v, want a pages: panic", r)
+		}
+	}()
+	_, _ = Report(nil)
 }
 
 func TestHTMLDeterministic(t *testing.T) {
@@ -409,7 +483,7 @@ func TestHTMLFromRun(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	r, err := Run(context.Background(), s, Options{Workers: 2})
+	r, err := recovery.Run(context.Background(), s, recovery.Options{Workers: 2})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -564,19 +638,4 @@ func TestRenderSVGHeader(t *testing.T) {
 	if _, err := heatmapChart(heatmapSpec{Label: "ragged", Names: []string{"a", "b"}, P: htmlMatrix([]float64{1, 0}, []float64{1})}); err == nil {
 		t.Error("ragged matrix accepted")
 	}
-}
-
-// TestGoldenReportHTML guards the small study's report.html (timing
-// removed) against unnoticed change; -update rewrites it.
-func TestGoldenReportHTML(t *testing.T) {
-	r, err := Run(context.Background(), mustStudy(t, smallStudy), Options{Workers: 2})
-	if err != nil {
-		t.Fatal(err)
-	}
-	r.Timing = Timing{}
-	b, err := r.HTML()
-	if err != nil {
-		t.Fatal(err)
-	}
-	checkGolden(t, "small-report.html", b)
 }

@@ -1,4 +1,4 @@
-package recovery
+package pages
 
 import (
 	"bytes"
@@ -17,9 +17,11 @@ import (
 	"gonum.org/v1/plot/vg"
 	"gonum.org/v1/plot/vg/draw"
 	"gonum.org/v1/plot/vg/vgsvg"
+
+	"discrimen/recovery"
 )
 
-// Charts for report.html, drawn with gonum/plot and written as inline SVG.
+// Charts for every page, drawn with gonum/plot and written as inline SVG.
 // Nothing here reads the network or the file system: fonts are referred to
 // by name (Liberation Sans, metrically equal to Arial, with fallbacks) and
 // the browser supplies them.
@@ -186,21 +188,21 @@ func renderSVG(p *plot.Plot, w, h vg.Length, label string) (out template.HTML, e
 		// gonum/plot panics on some degenerate data (for example an
 		// empty range); report it as a failed chart, not a crash.
 		if r := recover(); r != nil {
-			err = fmt.Errorf("recovery: drawing chart %q: %v", label, r)
+			err = fmt.Errorf("pages: drawing chart %q: %v", label, r)
 		}
 	}()
 	c := vgsvg.New(w, h)
 	p.Draw(draw.New(c))
 	var buf bytes.Buffer
 	if _, err := c.WriteTo(&buf); err != nil {
-		return "", fmt.Errorf("recovery: writing chart %q: %w", label, err)
+		return "", fmt.Errorf("pages: writing chart %q: %w", label, err)
 	}
 	s := svgProlog.ReplaceAllString(buf.String(), "<svg ")
 	s = svgXlinkNS.ReplaceAllString(s, "")
 	s = svgFontName.ReplaceAllString(s, "font-family:'Liberation Sans',Arial,Helvetica,sans-serif;")
 	m := svgSize.FindStringSubmatch(s)
 	if m == nil {
-		return "", fmt.Errorf("recovery: chart %q: unexpected SVG header", label)
+		return "", fmt.Errorf("pages: chart %q: unexpected SVG header", label)
 	}
 	pw, _ := strconv.ParseFloat(m[1], 64)
 	ph, _ := strconv.ParseFloat(m[2], 64)
@@ -233,10 +235,10 @@ func (g matrixGrid) Y(r int) float64    { return float64(r) }
 type heatmapSpec struct {
 	Label  string
 	Names  []string
-	P      [][]Num // the probabilities shown
-	Counts [][]Num // optional: wins per cell
-	N      []int   // optional: datasets per row
-	Lo, Hi [][]Num // optional: 95% interval per cell
+	P      [][]recovery.Num // the probabilities shown
+	Counts [][]recovery.Num // optional: wins per cell
+	N      []int            // optional: datasets per row
+	Lo, Hi [][]recovery.Num // optional: 95% interval per cell
 	XLabel string
 	YLabel string
 }
@@ -246,12 +248,12 @@ type heatmapSpec struct {
 func heatmapChart(s heatmapSpec) (template.HTML, error) {
 	k := len(s.Names)
 	if k == 0 || len(s.P) != k {
-		return "", fmt.Errorf("recovery: chart %q: matrix has %d rows for %d hypotheses", s.Label, len(s.P), k)
+		return "", fmt.Errorf("pages: chart %q: matrix has %d rows for %d hypotheses", s.Label, len(s.P), k)
 	}
 	z := make(matrixGrid, k)
 	for i := range z {
 		if len(s.P[i]) != k {
-			return "", fmt.Errorf("recovery: chart %q: row %d has %d columns, want %d", s.Label, i, len(s.P[i]), k)
+			return "", fmt.Errorf("pages: chart %q: row %d has %d columns, want %d", s.Label, i, len(s.P[i]), k)
 		}
 		z[i] = make([]float64, k)
 		for j := range z[i] {
@@ -298,7 +300,7 @@ func heatmapChart(s heatmapSpec) (template.HTML, error) {
 	}
 	lab, err := plotter.NewLabels(plotter.XYLabels{XYs: pts, Labels: labels})
 	if err != nil {
-		return "", fmt.Errorf("recovery: chart %q: %w", s.Label, err)
+		return "", fmt.Errorf("pages: chart %q: %w", s.Label, err)
 	}
 	for i := range lab.TextStyle {
 		lab.TextStyle[i].Font = chartFont(styles[i].size)
@@ -428,8 +430,8 @@ func (niceTicks) Ticks(lo, hi float64) []plot.Tick {
 type scatterSpec struct {
 	Label    string
 	Title    string
-	Truth    []Num
-	Estimate []Num
+	Truth    []recovery.Num
+	Estimate []recovery.Num
 	Min, Max float64
 	Log      bool
 	Flat     bool
@@ -455,7 +457,7 @@ func scatterChart(s scatterSpec) (template.HTML, error) {
 		lo, hi = math.Min(lo, math.Min(q.X, q.Y)), math.Max(hi, math.Max(q.X, q.Y))
 	}
 	if !finite(lo) || !finite(hi) || hi <= lo {
-		return "", fmt.Errorf("recovery: chart %q: empty parameter range [%g, %g]", s.Label, lo, hi)
+		return "", fmt.Errorf("pages: chart %q: empty parameter range [%g, %g]", s.Label, lo, hi)
 	}
 	log := s.Log && lo > 0
 	// A margin of 4% of the range (in the axis's own scale) keeps points
@@ -484,7 +486,7 @@ func scatterChart(s scatterSpec) (template.HTML, error) {
 	if len(pts) > 0 {
 		sc, err := plotter.NewScatter(pts)
 		if err != nil {
-			return "", fmt.Errorf("recovery: chart %q: %w", s.Label, err)
+			return "", fmt.Errorf("pages: chart %q: %w", s.Label, err)
 		}
 		sc.Shape = draw.CircleGlyph{}
 		sc.Radius = vg.Points(2.2)
@@ -569,7 +571,7 @@ func lineChart(s lineSpec) (template.HTML, error) {
 		drawn = true
 		ln, err := plotter.NewLine(pts)
 		if err != nil {
-			return "", fmt.Errorf("recovery: chart %q: %w", s.Label, err)
+			return "", fmt.Errorf("pages: chart %q: %w", s.Label, err)
 		}
 		ln.Color = sr.Colour
 		ln.Width = vg.Points(1.5)

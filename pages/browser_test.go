@@ -1,4 +1,4 @@
-package recovery
+package pages
 
 import (
 	"bytes"
@@ -42,7 +42,7 @@ func TestReportInBrowser(t *testing.T) {
 		t.Skip("starts a browser")
 	}
 	dir := t.TempDir()
-	page, err := htmlReport(true).HTML()
+	page, err := Report(htmlReport(true))
 	if err != nil {
 		t.Fatal(err)
 	}

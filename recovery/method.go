@@ -1,0 +1,81 @@
+package recovery
+
+// Method records the constants of the method a report was made with, so
+// that a stored report quotes its own settings (report.json's "method"
+// block); the method notes of report.html read them from here, not from
+// the code that happens to render them. Fractions are of the quantity the
+// field's comment names.
+type Method struct {
+	// Starts is the number of Nelder–Mead runs per fit, from the best grid
+	// nodes at least StartSpacing grid steps apart along some parameter.
+	Starts       int `json:"starts"`
+	StartSpacing int `json:"start_spacing"`
+	// RescoreWindow: every run whose grid −ln L ends within this of the
+	// best run's is re-scored with exact predictions.
+	RescoreWindow float64 `json:"rescore_window"`
+	// LapseMax and ARMax bound the searched measurement parameters: the
+	// lapse rate in (0, LapseMax), eeg_ar in (−ARMax, ARMax).
+	LapseMax float64 `json:"lapse_max"`
+	ARMax    float64 `json:"ar_max"`
+	// The stopping rules of one Nelder–Mead run, in the logit-transformed
+	// space: an initial simplex of size SearchSimplex; at most
+	// SearchEvalsPerDim evaluations per searched dimension; converged when
+	// the best value improves by less than SearchAbsTol + SearchRelTol·|best|
+	// over SearchStallPerDim iterations per dimension, or at once when
+	// every vertex's value lies within SearchSpread.
+	SearchSimplex     float64 `json:"search_simplex"`
+	SearchEvalsPerDim int     `json:"search_evals_per_dim"`
+	SearchAbsTol      float64 `json:"search_abs_tol"`
+	SearchRelTol      float64 `json:"search_rel_tol"`
+	SearchStallPerDim int     `json:"search_stall_per_dim"`
+	SearchSpread      float64 `json:"search_spread"`
+	// GridNodes1D to GridNodes4D are the prediction grid's nodes per free
+	// parameter for a candidate with 1 to 4 free parameters (a candidate
+	// with more has no grid and is searched on exact predictions).
+	GridNodes1D int `json:"grid_nodes_1d"`
+	GridNodes2D int `json:"grid_nodes_2d"`
+	GridNodes3D int `json:"grid_nodes_3d"`
+	GridNodes4D int `json:"grid_nodes_4d"`
+	// SurrogatePoints is the number of random points at which each grid's
+	// interpolation error is measured against exact predictions.
+	SurrogatePoints int `json:"surrogate_points"`
+	// Standard errors: the rough Hessian pass steps SERoughStep of each
+	// parameter's range, the fine pass SEFineStep of the rough SE; an SE
+	// that changes by more than SEMaxChange (relative) between steps h and
+	// 2h is unreliable; a parameter within SEEdge of its range of a bound
+	// is held fixed.
+	SERoughStep float64 `json:"se_rough_step"`
+	SEFineStep  float64 `json:"se_fine_step"`
+	SEMaxChange float64 `json:"se_max_change"`
+	SEEdge      float64 `json:"se_edge"`
+	// FlatSE: a parameter whose median SE exceeds this fraction of its
+	// range is flagged as poorly identified (FlatProfile).
+	FlatSE float64 `json:"flat_se"`
+	// TieTolerance: candidates whose criterion values differ by at most
+	// this share a dataset's win (WinShares).
+	TieTolerance float64 `json:"tie_tolerance"`
+	// BMSTolerance and BMSMaxIterations stop the variational updates of
+	// random-effects model selection.
+	BMSTolerance     float64 `json:"bms_tolerance"`
+	BMSMaxIterations int     `json:"bms_max_iterations"`
+	// ITIms is the inter-trial interval, in ms, that testing minutes assume.
+	ITIms int `json:"iti_ms"`
+}
+
+// CurrentMethod returns the constants this build of recovery fits and
+// summarises with; Assemble writes them into every report.
+func CurrentMethod() Method {
+	return Method{
+		Starts: nStarts, StartSpacing: startSpacing, RescoreWindow: rescoreWindow,
+		LapseMax: lapseMax, ARMax: arMax,
+		SearchSimplex: searchSimplex, SearchEvalsPerDim: searchEvalsPerDim, SearchAbsTol: searchAbsolute,
+		SearchRelTol: searchRelative, SearchStallPerDim: searchStallPerDim, SearchSpread: searchSpread,
+		GridNodes1D: gridPoints[1], GridNodes2D: gridPoints[2], GridNodes3D: gridPoints[3], GridNodes4D: gridPoints[4],
+		SurrogatePoints: surrogatePoints,
+		SERoughStep:     seRoughStep, SEFineStep: seFineStep, SEMaxChange: hessianMaxSEChange, SEEdge: seEdge,
+		FlatSE:       flatSE,
+		TieTolerance: TieTolerance,
+		BMSTolerance: bmsTol, BMSMaxIterations: bmsMaxIter,
+		ITIms: itiMs,
+	}
+}
