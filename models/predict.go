@@ -12,27 +12,27 @@ type HypothesisPrediction struct {
 	Family   string             `json:"family"`
 	Params   map[string]float64 `json:"params"`
 	CTIms    []int              `json:"cti_ms"`
-	Valid    ClassOut           `json:"valid"`
-	Invalid  ClassOut           `json:"invalid"`
-	Neural   NeuralOut          `json:"neural"`
-	Censored CensoredOut        `json:"censored"`
+	Valid    ClassReadouts      `json:"valid"`
+	Invalid  ClassReadouts      `json:"invalid"`
+	Neural   NeuralReadouts     `json:"neural"`
+	Censored CensoredReadouts   `json:"censored"`
 }
 
-// ClassOut is one trial class's RT and accuracy by CTI.
-type ClassOut struct {
+// ClassReadouts is one trial class's RT and accuracy by CTI.
+type ClassReadouts struct {
 	RTms        []float64 `json:"rt_ms"`
 	Accuracy    []float64 `json:"accuracy"`
 	Misdirected []float64 `json:"misdirected,omitempty"`
 }
 
-// NeuralOut is the baseline-corrected neural signal by CTI, in bins.
-type NeuralOut struct {
+// NeuralReadouts is the baseline-corrected neural signal by CTI, in bins.
+type NeuralReadouts struct {
 	BinMs int         `json:"bin_ms"`
 	ByCTI [][]float64 `json:"by_cti"`
 }
 
-// CensoredOut flags, per CTI, predictions censored at the window's end.
-type CensoredOut struct {
+// CensoredReadouts flags, per CTI, predictions censored at the window's end.
+type CensoredReadouts struct {
 	Valid   []bool `json:"valid"`
 	Invalid []bool `json:"invalid"`
 }
@@ -85,10 +85,10 @@ func PredictAt(l *Listener, d *Design, h Hypothesis, free []float64, set map[str
 	l.Predict(prec, p, nil)
 	return HypothesisPrediction{
 		Name: h.Name, Family: h.Family, Params: vals, CTIms: p.CTIms,
-		Valid:    ClassOut{RTms: p.Valid.RTms, Accuracy: p.Valid.Accuracy},
-		Invalid:  ClassOut{RTms: p.Invalid.RTms, Accuracy: p.Invalid.Accuracy, Misdirected: p.Invalid.Misdirected},
-		Neural:   NeuralOut{BinMs: p.BinMs, ByCTI: p.Neural},
-		Censored: CensoredOut{Valid: p.Valid.Censored, Invalid: p.Invalid.Censored},
+		Valid:    ClassReadouts{RTms: p.Valid.RTms, Accuracy: p.Valid.Accuracy},
+		Invalid:  ClassReadouts{RTms: p.Invalid.RTms, Accuracy: p.Invalid.Accuracy, Misdirected: p.Invalid.Misdirected},
+		Neural:   NeuralReadouts{BinMs: p.BinMs, ByCTI: p.Neural},
+		Censored: CensoredReadouts{Valid: p.Valid.Censored, Invalid: p.Invalid.Censored},
 	}, nil
 }
 

@@ -235,10 +235,10 @@ func (g matrixGrid) Y(r int) float64    { return float64(r) }
 type heatmapSpec struct {
 	Label  string
 	Names  []string
-	P      [][]recovery.Num // the probabilities shown
-	Counts [][]recovery.Num // optional: wins per cell
-	N      []int            // optional: datasets per row
-	Lo, Hi [][]recovery.Num // optional: 95% interval per cell
+	P      [][]recovery.NullFloat // the probabilities shown
+	Counts [][]recovery.NullFloat // optional: wins per cell
+	N      []int                  // optional: datasets per row
+	Lo, Hi [][]recovery.NullFloat // optional: 95% interval per cell
 	XLabel string
 	YLabel string
 }
@@ -430,8 +430,8 @@ func (niceTicks) Ticks(lo, hi float64) []plot.Tick {
 type scatterSpec struct {
 	Label    string
 	Title    string
-	Truth    []recovery.Num
-	Estimate []recovery.Num
+	Truth    []recovery.NullFloat
+	Estimate []recovery.NullFloat
 	Min, Max float64
 	Log      bool
 	Flat     bool

@@ -227,7 +227,7 @@ func neuralRange(preds []models.HypothesisPrediction) (lo, hi float64) {
 }
 
 // censoredLabel says which trial classes are censored at CTI index c.
-func censoredLabel(cs models.CensoredOut, c int) string {
+func censoredLabel(cs models.CensoredReadouts, c int) string {
 	v := c < len(cs.Valid) && cs.Valid[c]
 	inv := c < len(cs.Invalid) && cs.Invalid[c]
 	switch {

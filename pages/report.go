@@ -28,9 +28,9 @@ var styleTemplateText string
 
 // pageFuncs are the formatting functions every page template may call.
 var pageFuncs = template.FuncMap{
-	"prob": func(v recovery.Num) string { return fmtProb(float64(v)) },
-	"g3":   func(v recovery.Num) string { return fmtG(float64(v), 3) },
-	"pct":  func(v recovery.Num) string { return fmtPct(float64(v)) },
+	"prob": func(v recovery.NullFloat) string { return fmtProb(float64(v)) },
+	"g3":   func(v recovery.NullFloat) string { return fmtG(float64(v), 3) },
+	"pct":  func(v recovery.NullFloat) string { return fmtPct(float64(v)) },
 	"f1":   func(v float64) string { return strconv.FormatFloat(v, 'f', 1, 64) },
 	"f2":   func(v float64) string { return strconv.FormatFloat(v, 'f', 2, 64) },
 	"g3f":  func(v float64) string { return fmtG(v, 3) },
@@ -178,7 +178,7 @@ type designView struct {
 
 type criterionRow struct {
 	Name                 string
-	Rate, MIBits, NormMI recovery.Num
+	Rate, MIBits, NormMI recovery.NullFloat
 	Datasets             int
 }
 
@@ -308,8 +308,8 @@ func findDesign(r *recovery.Report, name string) *models.Design {
 func designPage(r *recovery.Report, di int, hypIndex map[string]int, specs map[string]models.Hypothesis) (designView, error) {
 	d := &r.Designs[di]
 	dv := designView{
-		Name: d.Name, Measures: strings.Join(d.Measures, ", "), Participants: d.Participants, Trials: d.TrialsPerSubject,
-		Minutes: d.MinutesPerSubject, Verdict: d.Verdict, Tradeoffs: d.Tradeoffs, Mimicry: d.Mimicry,
+		Name: d.Name, Measures: strings.Join(d.Measures, ", "), Participants: d.Participants, Trials: d.TrialsPerParticipant,
+		Minutes: d.MinutesPerParticipant, Verdict: d.Verdict, Tradeoffs: d.Tradeoffs, Mimicry: d.Mimicry,
 		Health: d.FitFailures, Surrogate: d.Surrogate,
 	}
 	if sd := findDesign(r, d.Name); sd != nil {

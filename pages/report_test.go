@@ -37,18 +37,18 @@ var htmlSections = []struct{ id, title string }{
 }
 
 // numMatrix converts a float matrix to the report's numbers.
-func numMatrix(rows [][]float64) [][]recovery.Num {
-	out := make([][]recovery.Num, len(rows))
+func numMatrix(rows [][]float64) [][]recovery.NullFloat {
+	out := make([][]recovery.NullFloat, len(rows))
 	for i, r := range rows {
-		out[i] = make([]recovery.Num, len(r))
+		out[i] = make([]recovery.NullFloat, len(r))
 		for j, v := range r {
-			out[i][j] = recovery.Num(v)
+			out[i][j] = recovery.NullFloat(v)
 		}
 	}
 	return out
 }
 
-func htmlMatrix(rows ...[]float64) [][]recovery.Num { return numMatrix(rows) }
+func htmlMatrix(rows ...[]float64) [][]recovery.NullFloat { return numMatrix(rows) }
 
 func ptr[T any](v T) *T { return &v }
 
@@ -67,13 +67,13 @@ func htmlDesign(name string, measures []string, group bool) recovery.DesignRepor
 	}
 	inv := htmlMatrix([]float64{1, 0, 0}, []float64{0, 5.0 / 7, 0.2}, []float64{0, 2.0 / 7, 0.8})
 	crit := recovery.CriterionReport{Confusion: conf, Counts: counts, CILow: numMatrix(lo), CIHigh: numMatrix(hi), Inversion: inv,
-		RecoveryRate: recovery.Num((1 + 5.0/6 + 4.0/6) / 3), MIBits: 0.98, NormalizedMI: 0.62, Datasets: []int{6, 6, 6}, Failures: []int{0, 0, 0}}
+		RecoveryRate: recovery.NullFloat((1 + 5.0/6 + 4.0/6) / 3), MIBits: 0.98, NormalizedMI: 0.62, Datasets: []int{6, 6, 6}, Failures: []int{0, 0, 0}}
 	aic := crit
 	aic.RecoveryRate = 0.83
-	truth := []recovery.Num{0.5, 1, 1.5, 2, 2.5, 3}
-	est := []recovery.Num{0.6, 0.9, 1.7, 2.1, recovery.Num(math.NaN()), 2.8}
+	truth := []recovery.NullFloat{0.5, 1, 1.5, 2, 2.5, 3}
+	est := []recovery.NullFloat{0.6, 0.9, 1.7, 2.1, recovery.NullFloat(math.NaN()), 2.8}
 	d := recovery.DesignReport{
-		Name: name, Measures: measures, Participants: 6, TrialsPerSubject: 90, MinutesPerSubject: 4.65,
+		Name: name, Measures: measures, Participants: 6, TrialsPerParticipant: 90, MinutesPerParticipant: 4.65,
 		Criteria: map[recovery.Criterion]recovery.CriterionReport{"bic": crit, "aic": aic, "aicc": crit},
 		ParamRecovery: []recovery.ParamRecoveryReport{
 			{Hypothesis: "flat", Parameter: "level", N: 6, R: 0.6, Bias: 0.094, RMSE: 0.335, Slope: 0.75, Coverage: 1, MedianSE: 0.16, ReliableSEs: 3},
@@ -81,9 +81,9 @@ func htmlDesign(name string, measures []string, group bool) recovery.DesignRepor
 			{Hypothesis: htmlScript, Parameter: "width", N: 6, R: -0.09, Bias: 0.002, RMSE: 0.07, Slope: -0.12, Coverage: 1, Flat: true, MedianSE: 0.03, ReliableSEs: 1},
 		},
 		Recovery: []recovery.RecoveryPoints{
-			{Hypothesis: "flat", Parameter: "level", Min: 0.3, Max: 1.5, Truth: []recovery.Num{0.4, 0.7, 0.9, 1.1, 1.3, 1.45}, Estimate: []recovery.Num{0.5, 0.6, 1.0, 1.0, 1.2, 1.5}},
+			{Hypothesis: "flat", Parameter: "level", Min: 0.3, Max: 1.5, Truth: []recovery.NullFloat{0.4, 0.7, 0.9, 1.1, 1.3, 1.45}, Estimate: []recovery.NullFloat{0.5, 0.6, 1.0, 1.0, 1.2, 1.5}},
 			{Hypothesis: "ramp", Parameter: "slope", Min: 0.5, Max: 3, Truth: truth, Estimate: est},
-			{Hypothesis: htmlScript, Parameter: "width", Min: 0.05, Max: 0.3, Truth: []recovery.Num{0.06, 0.1, 0.15, 0.2, 0.25, 0.29}, Estimate: []recovery.Num{0.2, 0.1, 0.28, 0.07, 0.15, 0.2}},
+			{Hypothesis: htmlScript, Parameter: "width", Min: 0.05, Max: 0.3, Truth: []recovery.NullFloat{0.06, 0.1, 0.15, 0.2, 0.25, 0.29}, Estimate: []recovery.NullFloat{0.2, 0.1, 0.28, 0.07, 0.15, 0.2}},
 		},
 		Tradeoffs: []recovery.TradeoffReport{{Hypothesis: htmlScript, A: "midpoint", B: "width", R: 0.72, N: 6}},
 		Mimicry: []recovery.MimicryReport{
@@ -96,10 +96,10 @@ func htmlDesign(name string, measures []string, group bool) recovery.DesignRepor
 	}
 	for i, n := range names {
 		hp := models.HypothesisPrediction{Name: n, CTIms: []int{300, 600, 900},
-			Valid:    models.ClassOut{RTms: []float64{110 - 10*float64(i), 60, 50}, Accuracy: []float64{0.9, 0.9, 0.9}},
-			Invalid:  models.ClassOut{RTms: []float64{130, 110 + float64(i), 1500}, Accuracy: []float64{0.9, 0.5, 0.05}},
-			Neural:   models.NeuralOut{BinMs: 100, ByCTI: [][]float64{{0, 0.1, 0.2}, {0, 0.1, 0.2, 0.3, 0.4, 0.5}, {0, 0.1 * float64(i), 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8}}},
-			Censored: models.CensoredOut{Valid: []bool{false, false, false}, Invalid: []bool{false, false, true}},
+			Valid:    models.ClassReadouts{RTms: []float64{110 - 10*float64(i), 60, 50}, Accuracy: []float64{0.9, 0.9, 0.9}},
+			Invalid:  models.ClassReadouts{RTms: []float64{130, 110 + float64(i), 1500}, Accuracy: []float64{0.9, 0.5, 0.05}},
+			Neural:   models.NeuralReadouts{BinMs: 100, ByCTI: [][]float64{{0, 0.1, 0.2}, {0, 0.1, 0.2, 0.3, 0.4, 0.5}, {0, 0.1 * float64(i), 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8}}},
+			Censored: models.CensoredReadouts{Valid: []bool{false, false, false}, Invalid: []bool{false, false, true}},
 		}
 		d.Predictions = append(d.Predictions, hp)
 	}
@@ -109,7 +109,7 @@ func htmlDesign(name string, measures []string, group bool) recovery.DesignRepor
 			Recovery: htmlMatrix([]float64{0.5, 0.85, 0.95}, []float64{0.2, 0.4, 0.7}, []float64{0.1, 0.3, 0.45}),
 			CILow:    htmlMatrix([]float64{0.3, 0.64, 0.76}, []float64{0.08, 0.22, 0.48}, []float64{0.03, 0.15, 0.26}),
 			CIHigh:   htmlMatrix([]float64{0.7, 0.95, 0.99}, []float64{0.42, 0.61, 0.85}, []float64{0.3, 0.52, 0.65}),
-			Confusion: [][][]recovery.Num{
+			Confusion: [][][]recovery.NullFloat{
 				htmlMatrix([]float64{0.5, 0, 0}, []float64{0, 0.2, 0.1}, []float64{0, 0.2, 0.1}),
 				htmlMatrix([]float64{0.85, 0, 0}, []float64{0, 0.4, 0.1}, []float64{0, 0.3, 0.3}),
 				htmlMatrix([]float64{0.95, 0, 0}, []float64{0, 0.7, 0.1}, []float64{0, 0.35, 0.45}),

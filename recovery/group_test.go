@@ -263,7 +263,7 @@ func controlledPool(seed uint64, n, k, g int, margin, sd float64) [][]float64 {
 	return randomEvidence(seed, n, shift, sd)
 }
 
-func numsF(x []Num) []float64 {
+func numsF(x []NullFloat) []float64 {
 	out := make([]float64, len(x))
 	for i, v := range x {
 		out[i] = float64(v)
@@ -475,20 +475,20 @@ func TestExceedanceQuadraturePanics(t *testing.T) {
 // rankedDesign builds a design report with the given BIC normalised MI,
 // confusion diagonal, parameter r values and cost.
 func rankedDesign(name string, nmi float64, diag []float64, rs []float64, minutes float64, trials int) DesignReport {
-	conf := make([][]Num, len(diag))
+	conf := make([][]NullFloat, len(diag))
 	for i, d := range diag {
-		conf[i] = make([]Num, len(diag))
+		conf[i] = make([]NullFloat, len(diag))
 		for j := range conf[i] {
-			conf[i][j] = Num((1 - d) / float64(len(diag)-1))
+			conf[i][j] = NullFloat((1 - d) / float64(len(diag)-1))
 		}
-		conf[i][i] = Num(d)
+		conf[i][i] = NullFloat(d)
 	}
 	var pr []ParamRecoveryReport
 	for _, r := range rs {
-		pr = append(pr, ParamRecoveryReport{R: Num(r)})
+		pr = append(pr, ParamRecoveryReport{R: NullFloat(r)})
 	}
-	return DesignReport{Name: name, MinutesPerSubject: minutes, TrialsPerSubject: trials, ParamRecovery: pr,
-		Criteria: map[Criterion]CriterionReport{"bic": {Confusion: conf, NormalizedMI: Num(nmi)}}}
+	return DesignReport{Name: name, MinutesPerParticipant: minutes, TrialsPerParticipant: trials, ParamRecovery: pr,
+		Criteria: map[Criterion]CriterionReport{"bic": {Confusion: conf, NormalizedMI: NullFloat(nmi)}}}
 }
 
 // TestRankDesigns: the order follows normalised MI, then (within 0.01) the
@@ -597,7 +597,7 @@ func TestDemoGroupAndRanking(t *testing.T) {
 		t.Fatalf("ranking %+v, preferred %q", rep.Ranking, rep.Preferred)
 	}
 	for _, r := range rep.Ranking {
-		for _, v := range []Num{r.NormalizedMI, r.WorstDiagonal, r.ParameterR} {
+		for _, v := range []NullFloat{r.NormalizedMI, r.WorstDiagonal, r.ParameterR} {
 			if math.IsNaN(float64(v)) || v < 0 || v > 1 {
 				t.Errorf("%s: measure %v not in [0, 1]", r.Design, v)
 			}

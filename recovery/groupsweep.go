@@ -31,9 +31,9 @@ type GroupReport struct {
 	// participants of generator g whose largest protected exceedance
 	// probability belongs to g and exceeds PXPThreshold; CILow and CIHigh
 	// are its Wilson 95% interval.
-	Recovery [][]Num `json:"recovery"`
-	CILow    [][]Num `json:"ci_low"`
-	CIHigh   [][]Num `json:"ci_high"`
+	Recovery [][]NullFloat `json:"recovery"`
+	CILow    [][]NullFloat `json:"ci_low"`
+	CIHigh   [][]NullFloat `json:"ci_high"`
 	// Successes counts the recovered replicates behind Recovery.
 	Successes [][]int `json:"successes"`
 	// Confusion[n][g][k] is the share of replicate studies of
@@ -41,7 +41,7 @@ type GroupReport struct {
 	// the largest protected exceedance probability and it exceeds
 	// PXPThreshold; a row's remainder had no such winner. Its diagonal is
 	// Recovery; a skipped size has null rows.
-	Confusion [][][]Num `json:"confusion"`
+	Confusion [][][]NullFloat `json:"confusion"`
 	// Dropped counts the participant draws left out because at least one
 	// candidate's fit failed or has a non-finite BIC, summed over the
 	// replicates.
@@ -226,32 +226,32 @@ func groupReport(generators []string, dp designPools, sizes []int, cells [][]gro
 		SampleSize: map[string]*int{}, Summary: []string{}, Notes: []string{},
 	}
 	reps := float64(r.Replicates)
-	gr.Confusion = make([][][]Num, len(sizes))
+	gr.Confusion = make([][][]NullFloat, len(sizes))
 	for n := range sizes {
-		gr.Confusion[n] = make([][]Num, K)
+		gr.Confusion[n] = make([][]NullFloat, K)
 	}
 	var participants, draws, dropped int
 	for g := 0; g < K; g++ {
 		participants += dp.Pools[g].size()
-		rate, lo, hi := make([]Num, len(sizes)), make([]Num, len(sizes)), make([]Num, len(sizes))
+		rate, lo, hi := make([]NullFloat, len(sizes)), make([]NullFloat, len(sizes)), make([]NullFloat, len(sizes))
 		succ, drop := make([]int, len(sizes)), make([]int, len(sizes))
 		for n, size := range sizes {
-			gr.Confusion[n][g] = make([]Num, K)
+			gr.Confusion[n][g] = make([]NullFloat, K)
 			if size > dp.Pools[g].size() {
-				rate[n], lo[n], hi[n] = Num(math.NaN()), Num(math.NaN()), Num(math.NaN())
+				rate[n], lo[n], hi[n] = NullFloat(math.NaN()), NullFloat(math.NaN()), NullFloat(math.NaN())
 				for k := range gr.Confusion[n][g] {
-					gr.Confusion[n][g][k] = Num(math.NaN())
+					gr.Confusion[n][g][k] = NullFloat(math.NaN())
 				}
 				continue
 			}
 			c := cells[g][n]
 			for k, w := range c.winners {
-				gr.Confusion[n][g][k] = Num(float64(w) / reps)
+				gr.Confusion[n][g][k] = NullFloat(float64(w) / reps)
 			}
 			succ[n], drop[n] = c.successes, c.dropped
-			rate[n] = Num(float64(c.successes) / reps)
+			rate[n] = NullFloat(float64(c.successes) / reps)
 			l, h := WilsonInterval(float64(c.successes), reps)
-			lo[n], hi[n] = Num(l), Num(h)
+			lo[n], hi[n] = NullFloat(l), NullFloat(h)
 			gr.BMSRuns += c.runs
 			gr.Quadratures += c.quadratures
 			gr.NotConverged += c.notConverged
@@ -308,7 +308,7 @@ func groupReport(generators []string, dp designPools, sizes []int, cells [][]gro
 // sampleSizeSentence says in plain words where generator g reaches the
 // target rate; when it never does, it names the candidate that the group
 // analysis picks most often instead at the largest size tried.
-func sampleSizeSentence(gens []string, g int, sizes []int, conf [][][]Num, ss *int, tried []int, r models.Replication) string {
+func sampleSizeSentence(gens []string, g int, sizes []int, conf [][][]NullFloat, ss *int, tried []int, r models.Replication) string {
 	gen := gens[g]
 	pct := func(x float64) string { return strconv.FormatFloat(math.Round(1000*x)/10, 'g', -1, 64) + "%" }
 	target := pct(r.TargetRate)

@@ -73,18 +73,18 @@ func designRank(d DesignReport) DesignRank {
 		r = sum / float64(n)
 	}
 	perMin := math.NaN()
-	if d.MinutesPerSubject > 0 {
-		perMin = float64(cr.NormalizedMI) / d.MinutesPerSubject
+	if d.MinutesPerParticipant > 0 {
+		perMin = float64(cr.NormalizedMI) / d.MinutesPerParticipant
 	}
 	return DesignRank{
-		Design: d.Name, NormalizedMI: cr.NormalizedMI, WorstDiagonal: Num(worst), ParameterR: Num(r),
-		TrialsPerParticipant: d.TrialsPerSubject, MinutesPerParticipant: d.MinutesPerSubject, NormalizedMIPerMinute: Num(perMin),
+		Design: d.Name, NormalizedMI: cr.NormalizedMI, WorstDiagonal: NullFloat(worst), ParameterR: NullFloat(r),
+		TrialsPerParticipant: d.TrialsPerParticipant, MinutesPerParticipant: d.MinutesPerParticipant, NormalizedMIPerMinute: NullFloat(perMin),
 	}
 }
 
 // better compares one measure, larger first: +1 when a is ahead by more
 // than the tolerance, −1 when behind, 0 on a tie. NaN is behind a number.
-func better(a, b Num) int {
+func better(a, b NullFloat) int {
 	x, y := float64(a), float64(b)
 	switch {
 	case math.IsNaN(x) && math.IsNaN(y):
@@ -126,7 +126,7 @@ func rankKey(a, b DesignRank) (key, sign int) {
 func rankBefore(a, b DesignRank) bool { _, s := rankKey(a, b); return s > 0 }
 
 // f2 formats a measure with two decimals, or "n/a" when it is missing.
-func f2(x Num) string {
+func f2(x NullFloat) string {
 	if v := float64(x); !math.IsNaN(v) && !math.IsInf(v, 0) {
 		return strconv.FormatFloat(v, 'f', 2, 64)
 	}

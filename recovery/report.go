@@ -11,12 +11,12 @@ import (
 	"discrimen/models"
 )
 
-// Num is a float that encodes NaN and ±Inf as JSON null.
-type Num float64
+// NullFloat is a float that encodes NaN and ±Inf as JSON null.
+type NullFloat float64
 
 // MarshalJSON writes the number with the shortest exact representation, or
 // null when it is not finite.
-func (n Num) MarshalJSON() ([]byte, error) {
+func (n NullFloat) MarshalJSON() ([]byte, error) {
 	f := float64(n)
 	if math.IsNaN(f) || math.IsInf(f, 0) {
 		return []byte("null"), nil
@@ -25,26 +25,26 @@ func (n Num) MarshalJSON() ([]byte, error) {
 }
 
 // UnmarshalJSON reads a number or null (as NaN).
-func (n *Num) UnmarshalJSON(b []byte) error {
+func (n *NullFloat) UnmarshalJSON(b []byte) error {
 	if string(b) == "null" {
-		*n = Num(math.NaN())
+		*n = NullFloat(math.NaN())
 		return nil
 	}
 	f, err := strconv.ParseFloat(string(b), 64)
-	*n = Num(f)
+	*n = NullFloat(f)
 	return err
 }
 
-func nums(x []float64) []Num {
-	out := make([]Num, len(x))
+func nums(x []float64) []NullFloat {
+	out := make([]NullFloat, len(x))
 	for i, v := range x {
-		out[i] = Num(v)
+		out[i] = NullFloat(v)
 	}
 	return out
 }
 
-func numMatrix(x [][]float64) [][]Num {
-	out := make([][]Num, len(x))
+func numMatrix(x [][]float64) [][]NullFloat {
+	out := make([][]NullFloat, len(x))
 	for i, r := range x {
 		out[i] = nums(r)
 	}
@@ -65,11 +65,11 @@ type Report struct {
 	Method     Method          `json:"method"`
 	Timing     Timing          `json:"timing"`
 	StudyFile  *models.Study   `json:"study_file"`
-	Fits       [][]FitRowGroup `json:"-"` // per design: per-dataset fits, for fits.csv
+	Fits       [][]DatasetFits `json:"-"` // per design: per-dataset fits, for fits.csv
 }
 
-// FitRowGroup is one dataset's fits (every candidate), kept for fits.csv.
-type FitRowGroup struct {
+// DatasetFits is one dataset's fits (every candidate), kept for fits.csv.
+type DatasetFits struct {
 	Truth Truth
 	Fits  []Fit
 }
@@ -88,81 +88,81 @@ type Timing struct {
 
 // DesignReport summarises one design.
 type DesignReport struct {
-	Name              string                        `json:"name"`
-	Measures          []string                      `json:"measures"`
-	Participants      int                           `json:"participants"`
-	TrialsPerSubject  int                           `json:"trials_per_participant"`
-	MinutesPerSubject float64                       `json:"minutes_per_participant"`
-	Criteria          map[Criterion]CriterionReport `json:"criteria"`
-	ParamRecovery     []ParamRecoveryReport         `json:"parameter_recovery"`
-	Tradeoffs         []TradeoffReport              `json:"tradeoffs"`
-	Mimicry           []MimicryReport               `json:"mimicry"`
-	FitFailures       FitFailures                   `json:"fit_failures"`
-	Surrogate         []SurrogateError              `json:"surrogate_error"`
-	Predictions       []models.HypothesisPrediction `json:"predictions"`
-	Verdict           []string                      `json:"verdict"`
-	Group             *GroupReport                  `json:"group,omitempty"`
-	Recovery          []RecoveryPoints              `json:"recovery_points"`
+	Name                  string                        `json:"name"`
+	Measures              []string                      `json:"measures"`
+	Participants          int                           `json:"participants"`
+	TrialsPerParticipant  int                           `json:"trials_per_participant"`
+	MinutesPerParticipant float64                       `json:"minutes_per_participant"`
+	Criteria              map[Criterion]CriterionReport `json:"criteria"`
+	ParamRecovery         []ParamRecoveryReport         `json:"parameter_recovery"`
+	Tradeoffs             []TradeoffReport              `json:"tradeoffs"`
+	Mimicry               []MimicryReport               `json:"mimicry"`
+	FitFailures           FitFailures                   `json:"fit_failures"`
+	Surrogate             []SurrogateError              `json:"surrogate_error"`
+	Predictions           []models.HypothesisPrediction `json:"predictions"`
+	Verdict               []string                      `json:"verdict"`
+	Group                 *GroupReport                  `json:"group,omitempty"`
+	Recovery              []RecoveryPoints              `json:"recovery_points"`
 }
 
 // CriterionReport is the confusion analysis under one criterion.
 type CriterionReport struct {
-	Confusion    [][]Num `json:"confusion"`
-	Counts       [][]Num `json:"counts"`
-	CILow        [][]Num `json:"ci_low"`
-	CIHigh       [][]Num `json:"ci_high"`
-	Inversion    [][]Num `json:"inversion"`
-	RecoveryRate Num     `json:"recovery_rate"`
-	MIBits       Num     `json:"mutual_information_bits"`
-	NormalizedMI Num     `json:"normalized_mi"`
-	Datasets     []int   `json:"datasets"`
-	Failures     []int   `json:"failures"`
+	Confusion    [][]NullFloat `json:"confusion"`
+	Counts       [][]NullFloat `json:"counts"`
+	CILow        [][]NullFloat `json:"ci_low"`
+	CIHigh       [][]NullFloat `json:"ci_high"`
+	Inversion    [][]NullFloat `json:"inversion"`
+	RecoveryRate NullFloat     `json:"recovery_rate"`
+	MIBits       NullFloat     `json:"mutual_information_bits"`
+	NormalizedMI NullFloat     `json:"normalized_mi"`
+	Datasets     []int         `json:"datasets"`
+	Failures     []int         `json:"failures"`
 }
 
 // ParamRecoveryReport is RecoverParam's result for the report.
 type ParamRecoveryReport struct {
-	Hypothesis  string `json:"hypothesis"`
-	Parameter   string `json:"parameter"`
-	N           int    `json:"n"`
-	R           Num    `json:"r"`
-	Bias        Num    `json:"bias"`
-	RMSE        Num    `json:"rmse"`
-	Slope       Num    `json:"slope"`
-	Coverage    Num    `json:"coverage"`
-	Flat        bool   `json:"flat"`
-	MedianSE    Num    `json:"median_se"`
-	ReliableSEs int    `json:"reliable_ses"`
+	Hypothesis  string    `json:"hypothesis"`
+	Parameter   string    `json:"parameter"`
+	N           int       `json:"n"`
+	R           NullFloat `json:"r"`
+	Bias        NullFloat `json:"bias"`
+	RMSE        NullFloat `json:"rmse"`
+	Slope       NullFloat `json:"slope"`
+	Coverage    NullFloat `json:"coverage"`
+	Flat        bool      `json:"flat"`
+	MedianSE    NullFloat `json:"median_se"`
+	ReliableSEs int       `json:"reliable_ses"`
 }
 
 // RecoveryPoints holds true and estimated values of one parameter, for the
 // scatter plots of report.html.
 type RecoveryPoints struct {
-	Hypothesis string `json:"hypothesis"`
-	Parameter  string `json:"parameter"`
-	Min        Num    `json:"min"`
-	Max        Num    `json:"max"`
-	Truth      []Num  `json:"truth"`
-	Estimate   []Num  `json:"estimate"`
+	Hypothesis string      `json:"hypothesis"`
+	Parameter  string      `json:"parameter"`
+	Min        NullFloat   `json:"min"`
+	Max        NullFloat   `json:"max"`
+	Truth      []NullFloat `json:"truth"`
+	Estimate   []NullFloat `json:"estimate"`
 }
 
 // TradeoffReport is one pair of a hypothesis's parameters.
 type TradeoffReport struct {
-	Hypothesis string `json:"hypothesis"`
-	A          string `json:"a"`
-	B          string `json:"b"`
-	R          Num    `json:"r"`
-	N          int    `json:"n"`
+	Hypothesis string    `json:"hypothesis"`
+	A          string    `json:"a"`
+	B          string    `json:"b"`
+	R          NullFloat `json:"r"`
+	N          int       `json:"n"`
 }
 
 // QuantilesReport summarises a ΔBIC distribution.
 type QuantilesReport struct {
-	N    int `json:"n"`
-	Mean Num `json:"mean"`
-	Q05  Num `json:"q05"`
-	Q25  Num `json:"q25"`
-	Q50  Num `json:"q50"`
-	Q75  Num `json:"q75"`
-	Q95  Num `json:"q95"`
+	N    int       `json:"n"`
+	Mean NullFloat `json:"mean"`
+	Q05  NullFloat `json:"q05"`
+	Q25  NullFloat `json:"q25"`
+	Q50  NullFloat `json:"q50"`
+	Q75  NullFloat `json:"q75"`
+	Q95  NullFloat `json:"q95"`
 }
 
 // MimicryReport is ΔBIC = BIC_A − BIC_B when A generates and when B does.
@@ -184,18 +184,18 @@ type FitFailures struct {
 
 // DesignRank is one row of the design ranking (model.md §8).
 type DesignRank struct {
-	Design                string  `json:"design"`
-	Rank                  int     `json:"rank"`
-	NormalizedMI          Num     `json:"normalized_mi"`
-	WorstDiagonal         Num     `json:"worst_diagonal"`
-	ParameterR            Num     `json:"parameter_r"`
-	TrialsPerParticipant  int     `json:"trials_per_participant"`
-	MinutesPerParticipant float64 `json:"minutes_per_participant"`
-	NormalizedMIPerMinute Num     `json:"normalized_mi_per_minute"`
+	Design                string    `json:"design"`
+	Rank                  int       `json:"rank"`
+	NormalizedMI          NullFloat `json:"normalized_mi"`
+	WorstDiagonal         NullFloat `json:"worst_diagonal"`
+	ParameterR            NullFloat `json:"parameter_r"`
+	TrialsPerParticipant  int       `json:"trials_per_participant"`
+	MinutesPerParticipant float64   `json:"minutes_per_participant"`
+	NormalizedMIPerMinute NullFloat `json:"normalized_mi_per_minute"`
 }
 
 func quantilesReport(q Quantiles) QuantilesReport {
-	return QuantilesReport{N: q.N, Mean: Num(q.Mean), Q05: Num(q.Q05), Q25: Num(q.Q25), Q50: Num(q.Q50), Q75: Num(q.Q75), Q95: Num(q.Q95)}
+	return QuantilesReport{N: q.N, Mean: NullFloat(q.Mean), Q05: NullFloat(q.Q05), Q25: NullFloat(q.Q25), Q50: NullFloat(q.Q50), Q75: NullFloat(q.Q75), Q95: NullFloat(q.Q95)}
 }
 
 // itiMs is the inter-trial interval that testing time assumes (our
@@ -239,14 +239,14 @@ func (c *Compiled) Assemble(results []*ShardResult) (*Report, error) {
 	for _, r := range rs {
 		byDesign[r.Spec.Design][r.Spec.Generator] = append(byDesign[r.Spec.Design][r.Spec.Generator], r.Participants...)
 	}
-	rep.Fits = make([][]FitRowGroup, len(c.Designs))
+	rep.Fits = make([][]DatasetFits, len(c.Designs))
 	for di := range c.Designs {
 		d := &c.Designs[di]
 		dr := c.designReport(di, byDesign[di])
 		rep.Designs = append(rep.Designs, dr)
 		for g := 0; g < H; g++ {
 			for _, p := range byDesign[di][g] {
-				rep.Fits[di] = append(rep.Fits[di], FitRowGroup{Truth: p.Truth, Fits: p.Fits})
+				rep.Fits[di] = append(rep.Fits[di], DatasetFits{Truth: p.Truth, Fits: p.Fits})
 			}
 		}
 		_ = d
@@ -264,15 +264,15 @@ func (c *Compiled) designReport(di int, parts [][]ParticipantResult) DesignRepor
 	H := len(s.Hypotheses)
 	dr := DesignReport{
 		Name: d.Name, Measures: d.Measures, Participants: d.Participants,
-		TrialsPerSubject:  d.TrialsPerCTI * len(d.CTIms),
-		MinutesPerSubject: minutesPerParticipant(d),
-		Criteria:          map[Criterion]CriterionReport{},
-		Surrogate:         c.Surrogate[di],
-		Predictions:       c.Predictions[di],
-		ParamRecovery:     []ParamRecoveryReport{},
-		Tradeoffs:         []TradeoffReport{},
-		Mimicry:           []MimicryReport{},
-		Recovery:          []RecoveryPoints{},
+		TrialsPerParticipant:  d.TrialsPerCTI * len(d.CTIms),
+		MinutesPerParticipant: minutesPerParticipant(d),
+		Criteria:              map[Criterion]CriterionReport{},
+		Surrogate:             c.Surrogate[di],
+		Predictions:           c.Predictions[di],
+		ParamRecovery:         []ParamRecoveryReport{},
+		Tradeoffs:             []TradeoffReport{},
+		Mimicry:               []MimicryReport{},
+		Recovery:              []RecoveryPoints{},
 	}
 	for g := 0; g < H; g++ {
 		for _, p := range parts[g] {
@@ -304,7 +304,7 @@ func (c *Compiled) designReport(di int, parts [][]ParticipantResult) DesignRepor
 		cf := NewConfusion(winners)
 		dr.Criteria[crit] = CriterionReport{
 			Confusion: numMatrix(cf.P), Counts: numMatrix(cf.Counts), CILow: numMatrix(cf.CILow), CIHigh: numMatrix(cf.CIHigh),
-			Inversion: numMatrix(cf.Inversion), RecoveryRate: Num(cf.RecoveryRate), MIBits: Num(cf.MIBits), NormalizedMI: Num(cf.NormalizedMI),
+			Inversion: numMatrix(cf.Inversion), RecoveryRate: NullFloat(cf.RecoveryRate), MIBits: NullFloat(cf.MIBits), NormalizedMI: NullFloat(cf.NormalizedMI),
 			Datasets: cf.N, Failures: cf.Failures,
 		}
 	}
@@ -344,10 +344,10 @@ func (c *Compiled) designReport(di int, parts [][]ParticipantResult) DesignRepor
 			medSE := median(finite)
 			flat := FlatProfile(medSE, *p.Min, *p.Max)
 			dr.ParamRecovery = append(dr.ParamRecovery, ParamRecoveryReport{
-				Hypothesis: h.Name, Parameter: name, N: pr.N, R: Num(pr.R), Bias: Num(pr.Bias), RMSE: Num(pr.RMSE),
-				Slope: Num(pr.Slope), Coverage: Num(pr.Coverage), Flat: flat, MedianSE: Num(medSE), ReliableSEs: reliable,
+				Hypothesis: h.Name, Parameter: name, N: pr.N, R: NullFloat(pr.R), Bias: NullFloat(pr.Bias), RMSE: NullFloat(pr.RMSE),
+				Slope: NullFloat(pr.Slope), Coverage: NullFloat(pr.Coverage), Flat: flat, MedianSE: NullFloat(medSE), ReliableSEs: reliable,
 			})
-			dr.Recovery = append(dr.Recovery, RecoveryPoints{Hypothesis: h.Name, Parameter: name, Min: Num(*p.Min), Max: Num(*p.Max), Truth: nums(truth), Estimate: nums(e)})
+			dr.Recovery = append(dr.Recovery, RecoveryPoints{Hypothesis: h.Name, Parameter: name, Min: NullFloat(*p.Min), Max: NullFloat(*p.Max), Truth: nums(truth), Estimate: nums(e)})
 		}
 		if len(names) >= 2 {
 			for _, p := range parts[g] {
@@ -358,7 +358,7 @@ func (c *Compiled) designReport(di int, parts [][]ParticipantResult) DesignRepor
 				est = append(est, f.Params)
 			}
 			for _, t := range Tradeoffs(h.Name, names, est) {
-				dr.Tradeoffs = append(dr.Tradeoffs, TradeoffReport{Hypothesis: t.Hypothesis, A: t.A, B: t.B, R: Num(t.R), N: t.N})
+				dr.Tradeoffs = append(dr.Tradeoffs, TradeoffReport{Hypothesis: t.Hypothesis, A: t.A, B: t.B, R: NullFloat(t.R), N: t.N})
 			}
 		}
 	}
