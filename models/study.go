@@ -16,7 +16,32 @@ type Study struct {
 	Designs     []Design     `json:"designs"`
 	Hypotheses  []Hypothesis `json:"hypotheses"`
 	Replication Replication  `json:"replication"`
+	Ranking     Ranking      `json:"ranking"`
 }
+
+// Ranking says how designs are compared (model.md §8).
+type Ranking struct {
+	// Objective is one of RankingObjectives; default "cheapest_reaching".
+	Objective string `json:"objective"`
+	// Target is the BIC recovery rate a design must reach under
+	// cheapest_reaching; default 0.8.
+	Target float64 `json:"target"`
+}
+
+// The ranking objectives: normalised mutual information under BIC; the
+// same per minute of testing; the worst diagonal of the BIC confusion
+// matrix; and the cheapest design (fewest minutes per participant) whose
+// BIC recovery rate reaches the target, or the most informative when none
+// does.
+const (
+	ObjectiveInformation          = "information"
+	ObjectiveInformationPerMinute = "information_per_minute"
+	ObjectiveWorstRecovery        = "worst_recovery"
+	ObjectiveCheapestReaching     = "cheapest_reaching"
+)
+
+// RankingObjectives lists the ranking objectives in documented order.
+var RankingObjectives = []string{ObjectiveInformation, ObjectiveInformationPerMinute, ObjectiveWorstRecovery, ObjectiveCheapestReaching}
 
 // Design is one experiment being planned (model.md §1). Times are in
 // milliseconds. A zero field means its documented default (see Defaults).
@@ -35,6 +60,9 @@ type Design struct {
 	EpochMs          int         `json:"epoch_ms"`
 	EEGBinMs         int         `json:"eeg_bin_ms"`
 	CueMs            int         `json:"cue_ms,omitempty"`
+	// ITIms is the inter-trial interval, counted in the minutes of testing
+	// only; default 1000.
+	ITIms       int         `json:"iti_ms"`
 	Agent            Agent       `json:"agent"`
 	Measurement      Measurement `json:"measurement"`
 	// Vary expands this design into variants, one per listed alternative
@@ -166,7 +194,7 @@ func (s *Study) FillDefaults() {
 	}
 	r := &s.Replication
 	if len(r.GroupSizes) == 0 {
-		r.GroupSizes = []int{10, 20, 40}
+		r.GroupSizes = DefaultGroupSizes(s.smallestPool())
 	}
 	if r.Replicates == 0 {
 		r.Replicates = 500
@@ -177,6 +205,55 @@ func (s *Study) FillDefaults() {
 	if r.TargetRate == 0 {
 		r.TargetRate = 0.8
 	}
+	if s.Ranking.Objective == "" {
+		s.Ranking.Objective = ObjectiveCheapestReaching
+	}
+	if s.Ranking.Target == 0 {
+		s.Ranking.Target = 0.8
+	}
+}
+
+// smallestPool is the fewest synthetic participants per generator of any
+// design or vary variant (0 when there is no design).
+func (s *Study) smallestPool() int {
+	p := 0
+	for _, d := range s.Designs {
+		ds, err := d.Expand()
+		if err != nil {
+			ds = []Design{d}
+		}
+		for _, x := range ds {
+			if x.Participants > 0 && (p == 0 || x.Participants < p) {
+				p = x.Participants
+			}
+		}
+	}
+	return p
+}
+
+// DefaultGroupSizes are the group sizes swept when a study names none, for
+// a smallest pool of pool participants per generator: 5, 10, 20, 40, ...
+// up to half the pool, ending at half the pool itself (in place of the last
+// doubling when that is within a factor 1.5 below it), so that replicate groups
+// never take more than half of the pool (beyond that they overlap so much
+// that they stop being replicates). A pool below 10 gives the one size
+// max(2, pool/2).
+func DefaultGroupSizes(pool int) []int {
+	half := pool / 2
+	if half < 5 {
+		return []int{max(2, half)}
+	}
+	var sizes []int
+	for n := 5; n <= half; n *= 2 {
+		sizes = append(sizes, n)
+	}
+	switch last := sizes[len(sizes)-1]; {
+	case 2*half < 3*last: // half is close above the last doubling: take its place
+		sizes[len(sizes)-1] = half
+	case last < half:
+		sizes = append(sizes, half)
+	}
+	return sizes
 }
 
 // Default design values. The measurement priors are ours (model.md gives
@@ -191,6 +268,7 @@ const (
 	DefaultResponseWindowMs = 1500
 	DefaultEpochMs          = 50
 	DefaultEEGBinMs         = 100
+	DefaultITIms            = 1000
 )
 
 // DefaultCTIms is the default set of cue-target intervals.
@@ -236,6 +314,9 @@ func (d *Design) FillDefaults() {
 	}
 	if d.EEGBinMs == 0 {
 		d.EEGBinMs = DefaultEEGBinMs
+	}
+	if d.ITIms == 0 {
+		d.ITIms = DefaultITIms
 	}
 	a := &d.Agent
 	if a.CueReliability == 0 && d.Streams > 0 {

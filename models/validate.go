@@ -55,6 +55,7 @@ const (
 	maxTrialsPerCTI              = 10000
 	maxParticipants              = 10000
 	maxEpochMs                   = 1000
+	maxTimeMs                    = 60000 // the schema's cap on every time in ms
 	minGainLevels, maxGainLevels = 2, 64
 	maxIterationsPerEpoch        = 256
 	minHypotheses, maxHypotheses = 2, 12
@@ -199,6 +200,7 @@ func (s *Study) Validate() []Problem {
 		all = append(all, e...)
 	}
 	replicationProblems(c, &s.Replication, all)
+	rankingProblems(c, &s.Ranking)
 
 	if f := DesignsFits(all, h); f > MaxFits {
 		c.add("", "the study needs %s fits (%s, %d designs with vary blocks expanded); the limit is %s", thousands(f), budgetFormula, len(all), thousands(MaxFits))
@@ -314,6 +316,7 @@ func designProblems(d *Design) []Problem {
 	if d.CueMs != 0 {
 		timed("cue_ms", d.CueMs)
 	}
+	intRange(c, "iti_ms", "iti_ms", d.ITIms, 1, maxTimeMs)
 
 	agentProblems(c, d, streamsOK, itemsOK)
 	measurementProblems(c, &d.Measurement)
@@ -692,6 +695,15 @@ func gainProblems(c *checker, pp string, hy *Hypothesis, wellFormed map[string]b
 			c.add(pp+".high", "high must be > low; low is omitted, so it is gain_min = %s of design %q, but high can be as small as %s", g(a.GainMin), d.Name, g(hiBottom))
 			return
 		}
+	}
+}
+
+func rankingProblems(c *checker, r *Ranking) {
+	if !slices.Contains(RankingObjectives, r.Objective) {
+		c.add("ranking.objective", "objective must be one of %s, got %q", strings.Join(RankingObjectives, ", "), r.Objective)
+	}
+	if !(r.Target > 0 && r.Target <= 1) {
+		c.add("ranking.target", "target must be in (0, 1], got %s", g(r.Target))
 	}
 }
 

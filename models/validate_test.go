@@ -603,6 +603,7 @@ func TestSchemaMatchesGo(t *testing.T) {
 		{"vary field", enum(defs["variation"].(map[string]any)["properties"].(map[string]any)["field"]), VaryFields},
 		{"prior dist", enum(defs["prior"].(map[string]any)["properties"].(map[string]any)["dist"]), strings.Split(priorDists, ", ")},
 		{"generate dist", enum(defs["generate"].(map[string]any)["properties"].(map[string]any)["dist"]), strings.Split(generateDists, ", ")},
+		{"ranking objective", enum(defs["ranking"].(map[string]any)["properties"].(map[string]any)["objective"]), RankingObjectives},
 	}
 	for _, c := range checks {
 		if !slices.Equal(c.schema, c.g) {
@@ -736,5 +737,60 @@ func TestFits(t *testing.T) {
 	}
 	if got := DesignsFits([]Design{{Participants: math.MaxInt / 4}, {Participants: math.MaxInt / 4}}, 2); got != math.MaxInt {
 		t.Errorf("DesignsFits overflow = %d, want MaxInt", got)
+	}
+}
+
+func TestDefaultGroupSizes(t *testing.T) {
+	for _, tc := range []struct {
+		pool int
+		want []int
+	}{
+		{100, []int{5, 10, 20, 50}}, {200, []int{5, 10, 20, 40, 100}}, {20, []int{5, 10}}, {30, []int{5, 10, 15}}, {12, []int{6}},
+		{10, []int{5}}, {9, []int{4}}, {4, []int{2}}, {3, []int{2}}, {2, []int{2}},
+	} {
+		if got := DefaultGroupSizes(tc.pool); !slices.Equal(got, tc.want) {
+			t.Errorf("DefaultGroupSizes(%d) = %v, want %v", tc.pool, got, tc.want)
+		}
+	}
+}
+
+// TestSmallPoolNoReplicationBlock: a study of 20 participants without a
+// replication block used to be rejected for a default group size of 40
+// the user never wrote; the default now follows the smallest pool,
+// including a vary block over participants.
+func TestSmallPoolNoReplicationBlock(t *testing.T) {
+	s, err := LoadStudy([]byte(`{"name": "harbour (invented)", "seed": 1,
+	  "designs": [{"name": "d", "cti_ms": [300, 600], "participants": 20},
+	              {"name": "e", "cti_ms": [300, 600], "participants": 40,
+	               "vary": [{"field": "participants", "values": [30, 12]}]}],
+	  "hypotheses": [{"name": "a", "family": "constant", "params": {"level": {"min": 0.2, "max": 1.5}}},
+	                 {"name": "b", "family": "linear", "params": {"slope": {"min": 0, "max": 2}}}]}`))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if want := []int{6}; !slices.Equal(s.Replication.GroupSizes, want) {
+		t.Errorf("group_sizes = %v, want %v (half of the smallest pool, 12)", s.Replication.GroupSizes, want)
+	}
+	if s.Ranking.Objective != ObjectiveCheapestReaching || s.Ranking.Target != 0.8 || s.Designs[0].ITIms != 1000 {
+		t.Errorf("defaults: ranking %+v, iti_ms %d", s.Ranking, s.Designs[0].ITIms)
+	}
+}
+
+func TestRankingAndITIProblems(t *testing.T) {
+	s := validStudy()
+	s.Ranking = Ranking{Objective: "cheapest", Target: 1.5}
+	s.Designs[0].ITIms = -3
+	got := map[string]string{}
+	for _, p := range s.Validate() {
+		got[p.Path] = p.Problem
+	}
+	for path, want := range map[string]string{
+		"ranking.objective": "objective must be one of information, information_per_minute, worst_recovery, cheapest_reaching, got \"cheapest\"",
+		"ranking.target":    "target must be in (0, 1], got 1.5",
+		"designs[0].iti_ms": "iti_ms must be in 1..60000, got -3",
+	} {
+		if got[path] != want {
+			t.Errorf("%s: got %q, want %q", path, got[path], want)
+		}
 	}
 }
