@@ -197,6 +197,15 @@ type SurrogateError struct {
 	MaxAccuracy  float64 `json:"max_accuracy"`
 	MaxNeural    float64 `json:"max_neural"`
 	MedianNeural float64 `json:"median_neural"`
+	// LogLikError is the largest effect of interpolation error on ln L for
+	// a typical dataset of the design, in ln units; OverTolerance is set
+	// when it exceeds the grid tolerance even after refinement.
+	LogLikError   float64 `json:"loglik_error"`
+	OverTolerance bool    `json:"over_tolerance"`
+	// Jumps is set when the exact predictions themselves jump between
+	// neighbouring grid nodes (an invalid trial flipping between a
+	// recovered and a misdirected report), where no grid closes the gap.
+	Jumps bool `json:"jumps"`
 }
 
 // MeasureError compares interpolated with exact predictions at n points

@@ -121,14 +121,18 @@ type CriterionReport struct {
 
 // ParamRecoveryReport is RecoverParam's result for the report.
 type ParamRecoveryReport struct {
-	Hypothesis  string    `json:"hypothesis"`
-	Parameter   string    `json:"parameter"`
-	N           int       `json:"n"`
-	R           NullFloat `json:"r"`
-	Bias        NullFloat `json:"bias"`
-	RMSE        NullFloat `json:"rmse"`
-	Slope       NullFloat `json:"slope"`
-	Coverage    NullFloat `json:"coverage"`
+	Hypothesis string    `json:"hypothesis"`
+	Parameter  string    `json:"parameter"`
+	N          int       `json:"n"`
+	R          NullFloat `json:"r"`
+	Bias       NullFloat `json:"bias"`
+	RMSE       NullFloat `json:"rmse"`
+	Slope      NullFloat `json:"slope"`
+	// Coverage is the share of every participant whose 95% profile
+	// interval holds the true value.
+	Coverage NullFloat `json:"coverage"`
+	// AtBound is the share of estimates within 0.1% of the range's ends.
+	AtBound     NullFloat `json:"at_bound"`
 	Flat        bool      `json:"flat"`
 	MedianSE    NullFloat `json:"median_se"`
 	ReliableSEs int       `json:"reliable_ses"`
@@ -180,6 +184,13 @@ type FitFailures struct {
 	Total        int `json:"total"`
 	// NoWinner counts datasets where no candidate had a finite criterion.
 	NoWinner int `json:"datasets_without_winner"`
+	// BelowTruth counts self-fits whose ln L ends more than 1e-6 below the
+	// ln L at the generating hypothesis parameters (measurement terms
+	// fitted as in any fit, exact predictions): a search that lost to the
+	// truth. TruthChecked is the number of self-fits checked.
+	BelowTruth   int       `json:"below_truth"`
+	TruthChecked int       `json:"truth_checked"`
+	MaxTruthGap  NullFloat `json:"max_truth_gap"`
 }
 
 // DesignRank is one row of the design ranking (model.md §8).
