@@ -64,7 +64,8 @@ func (c *Client) Submit(ctx context.Context, owner string, input []byte, s *mode
 	}
 	if _, err := c.queue.EnqueueContext(ctx, c.cfg.planTask(id)); err != nil {
 		// The caller gets the enqueue error either way; the stored study
-		// should not read "queued" for ever.
+		// should not read "queued" for ever. Not applied only if it was
+		// canceled meanwhile, which is as final.
 		if _, serr := c.st.setStatus(ctx, id, []State{Queued}, Failed, "", "error", "could not enqueue the plan", "finished", now.UnixNano()); serr != nil {
 			c.log.Warn("marking a study whose plan was not enqueued failed", "study", id, "err", serr)
 		}

@@ -492,7 +492,7 @@ func (s *Server) handleError(ctx context.Context, t *asynq.Task, err error) {
 	msg := strings.TrimPrefix(err.Error(), asynq.SkipRetry.Error()+": ")
 	ctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), 10*time.Second)
 	defer cancel()
-	s.fail(ctx, p.Study, msg)
+	_ = s.fail(ctx, p.Study, msg) // fail logs each outcome; the count is the sweep's
 }
 
 // fail marks a study failed and drops its remaining tasks. It reports
