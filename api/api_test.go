@@ -5,6 +5,7 @@ import (
 	"context"
 	"encoding/json"
 	"errors"
+	"log/slog"
 	"net/http"
 	"net/http/httptest"
 	"os"
@@ -250,7 +251,9 @@ func TestCancelFreesQueue(t *testing.T) {
 		t.Fatalf("DELETE: %d %s", p.code, p.body)
 	}
 	var st statusBody
-	json.Unmarshal(p.body, &st)
+	if err := json.Unmarshal(p.body, &st); err != nil {
+		t.Fatalf("cancel body: %v", err)
+	}
 	if st.Status != worker.Canceled || st.Finished == nil {
 		t.Fatalf("after DELETE: %+v", st)
 	}
@@ -447,11 +450,17 @@ func TestKeysFile(t *testing.T) {
 	if _, ok := ring.Lookup(k1 + "x"); ok {
 		t.Fatal("a longer key matched")
 	}
-	data, _ := os.ReadFile(path)
+	data, err := os.ReadFile(path)
+	if err != nil {
+		t.Fatal(err)
+	}
 	if bytes.Contains(data, []byte(k1)) {
 		t.Fatal("the keys file holds the key itself")
 	}
-	fi, _ := os.Stat(path)
+	fi, err := os.Stat(path)
+	if err != nil {
+		t.Fatal(err)
+	}
 	if fi.Mode().Perm() != 0o600 {
 		t.Fatalf("keys file mode %v, want 0600", fi.Mode().Perm())
 	}
@@ -461,10 +470,33 @@ func TestKeysFile(t *testing.T) {
 	if err := AppendKey(path, "pilot", h2); err != nil {
 		t.Fatal(err)
 	}
-	os.Chtimes(path, time.Now().Add(time.Second), time.Now().Add(time.Second))
-	ring.checked = time.Time{}
+	touch := func(d time.Duration) {
+		t.Helper()
+		if err := os.Chtimes(path, time.Now().Add(d), time.Now().Add(d)); err != nil {
+			t.Fatal(err)
+		}
+		ring.checked = time.Time{}
+	}
+	touch(time.Second)
 	if n, ok := ring.Lookup(k2); !ok || n != "pilot" {
 		t.Fatalf("after reload Lookup(k2) = %q, %v", n, ok)
+	}
+	// A bad edit keeps the keys loaded before it, and says so once.
+	var logs bytes.Buffer
+	ring.setLogger(slog.New(slog.NewTextHandler(&logs, nil)))
+	if err := os.WriteFile(path, append(data, "pilot\n"...), 0o600); err != nil {
+		t.Fatal(err)
+	}
+	touch(2 * time.Second)
+	if n, ok := ring.Lookup(k2); !ok || n != "pilot" {
+		t.Fatalf("after a bad edit Lookup(k2) = %q, %v; want the key loaded before it", n, ok)
+	}
+	touch(3 * time.Second)
+	if _, ok := ring.Lookup(k1); !ok {
+		t.Fatal("after a second check of the bad edit, k1 no longer works")
+	}
+	if got := strings.Count(logs.String(), "level=WARN"); got != 1 || !strings.Contains(logs.String(), "want NAME HASH") {
+		t.Fatalf("after a bad edit and two checks, %d warnings (want 1 naming the problem):\n%s", got, logs.String())
 	}
 	for _, tc := range []struct{ name, text, want string }{
 		{"one field", "harbour\n", "line 1: want NAME HASH"},

@@ -11,6 +11,7 @@ import (
 	"errors"
 	"fmt"
 	"io/fs"
+	"log/slog"
 	"os"
 	"regexp"
 	"strings"
@@ -82,8 +83,7 @@ func AppendKey(path, name, hash string) error {
 		line = "\n" + line
 	}
 	if _, err := f.WriteString(line); err != nil {
-		f.Close()
-		return err
+		return errors.Join(err, f.Close())
 	}
 	return f.Close()
 }
@@ -133,6 +133,16 @@ type KeyRing struct {
 	entries []keyEntry
 	mtime   time.Time
 	checked time.Time
+	log     *slog.Logger
+	// problem is the last reload failure logged, so that a bad edit is
+	// logged once, not at every check.
+	problem string
+}
+
+func (k *KeyRing) setLogger(l *slog.Logger) {
+	k.mu.Lock()
+	defer k.mu.Unlock()
+	k.log = l
 }
 
 // LoadKeys reads a keys file. An empty file is allowed (no key works yet).
@@ -161,6 +171,29 @@ func (k *KeyRing) reload() error {
 	return nil
 }
 
+// refresh rereads the file when it changed. A file that cannot be read or
+// does not parse keeps the keys loaded before it, with a warning logged
+// once per distinct problem. k.mu is held.
+func (k *KeyRing) refresh() {
+	fi, err := os.Stat(k.path)
+	if err == nil && fi.ModTime().Equal(k.mtime) {
+		return
+	}
+	if err == nil {
+		err = k.reload()
+	}
+	if err == nil {
+		k.problem = ""
+		return
+	}
+	if msg := err.Error(); msg != k.problem {
+		k.problem = msg
+		if k.log != nil {
+			k.log.Warn("keys file: keeping the keys loaded before this change", "keys", k.path, "keys_loaded", len(k.entries), "err", err)
+		}
+	}
+}
+
 // Len is the number of keys.
 func (k *KeyRing) Len() int {
 	k.mu.Lock()
@@ -175,9 +208,7 @@ func (k *KeyRing) Lookup(key string) (string, bool) {
 	k.mu.Lock()
 	if now := time.Now(); now.Sub(k.checked) >= time.Second {
 		k.checked = now
-		if fi, err := os.Stat(k.path); err == nil && !fi.ModTime().Equal(k.mtime) {
-			k.reload() // a bad edit keeps the keys loaded before it
-		}
+		k.refresh()
 	}
 	entries := k.entries
 	k.mu.Unlock()

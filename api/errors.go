@@ -96,7 +96,9 @@ func writeJSON(w http.ResponseWriter, status int, v any) {
 	w.WriteHeader(status)
 	enc := json.NewEncoder(w)
 	enc.SetIndent("", "  ")
-	enc.Encode(v)
+	// v is one of this package's plain bodies, which always encode, so only
+	// the write to a client that left can fail, after the status is sent.
+	_ = enc.Encode(v)
 }
 
 func writeError(w http.ResponseWriter, e *Error) {

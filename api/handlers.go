@@ -259,7 +259,7 @@ func (s *Server) serveReport(w http.ResponseWriter, r *http.Request, k worker.Re
 		w.Header().Set("Content-Disposition", `attachment; filename="`+id+`-fits.csv"`)
 	}
 	w.Header().Set("Content-Length", strconv.Itoa(len(b)))
-	w.Write(b)
+	_, _ = w.Write(b) // the status is sent: a failed write means the client left, and there is no one to tell
 }
 
 func (s *Server) healthz(w http.ResponseWriter, r *http.Request) {
@@ -279,5 +279,5 @@ func (s *Server) readyz(w http.ResponseWriter, r *http.Request) {
 
 func (s *Server) serveOpenAPI(w http.ResponseWriter, r *http.Request) {
 	w.Header().Set("Content-Type", "application/json")
-	w.Write(s.openapi)
+	_, _ = w.Write(s.openapi) // the status is sent: a failed write means the client left
 }

@@ -55,7 +55,10 @@ func TestLoad(t *testing.T) {
 			key := r.keys[name]
 			hc := &http.Client{Timeout: 10 * time.Second}
 			get := func(path string) (int, []byte, time.Duration, error) {
-				req, _ := http.NewRequest("GET", r.http.URL+path, nil)
+				req, err := http.NewRequest("GET", r.http.URL+path, nil)
+				if err != nil {
+					return 0, nil, 0, err
+				}
 				req.Header.Set("Authorization", "Bearer "+key)
 				t0 := time.Now()
 				resp, err := hc.Do(req)
@@ -69,7 +72,11 @@ func TestLoad(t *testing.T) {
 			// Client c submits studies c, c+20, c+40.
 			var ids []string
 			for s := c; s < studies; s += clients {
-				req, _ := http.NewRequest("POST", r.http.URL+"/v1/studies", strings.NewReader(loadStudy(s+1)))
+				req, err := http.NewRequest("POST", r.http.URL+"/v1/studies", strings.NewReader(loadStudy(s+1)))
+				if err != nil {
+					errs <- err
+					return
+				}
 				req.Header.Set("Authorization", "Bearer "+key)
 				req.Header.Set("Content-Type", "application/json")
 				resp, err := hc.Do(req)
@@ -78,10 +85,10 @@ func TestLoad(t *testing.T) {
 					return
 				}
 				var sub submitBody
-				json.NewDecoder(resp.Body).Decode(&sub)
-				resp.Body.Close()
-				if resp.StatusCode != http.StatusAccepted {
-					errs <- fmt.Errorf("%s: submit %d", name, resp.StatusCode)
+				derr := json.NewDecoder(resp.Body).Decode(&sub)
+				cerr := resp.Body.Close()
+				if resp.StatusCode != http.StatusAccepted || derr != nil || cerr != nil {
+					errs <- fmt.Errorf("%s: submit %d (%v, %v)", name, resp.StatusCode, derr, cerr)
 					return
 				}
 				ids = append(ids, sub.ID)
@@ -107,7 +114,10 @@ func TestLoad(t *testing.T) {
 					latencies = append(latencies, d)
 					mu.Unlock()
 					var st statusBody
-					json.Unmarshal(body, &st)
+					if err := json.Unmarshal(body, &st); err != nil {
+						errs <- fmt.Errorf("%s: status of %s: %v", name, id, err)
+						return
+					}
 					switch st.Status {
 					case worker.Done:
 					case worker.Failed, worker.Canceled:
@@ -129,7 +139,9 @@ func TestLoad(t *testing.T) {
 			// None lost: the client's list holds exactly its studies.
 			code, body, _, err := get("/v1/studies?limit=100")
 			var l listBody
-			json.Unmarshal(body, &l)
+			if err == nil {
+				err = json.Unmarshal(body, &l)
+			}
 			if err != nil || code != 200 || len(l.Studies) != len(ids) {
 				errs <- fmt.Errorf("%s: list has %d studies, submitted %d (%d %v)", name, len(l.Studies), len(ids), code, err)
 			}

@@ -34,12 +34,12 @@ func negotiate(accept string, offers []string) string {
 				q = f
 			}
 		}
-		typ, sub, _ := strings.Cut(mt, "/")
+		typ, sub, _ := strings.Cut(mt, "/") // a bare type leaves sub empty, which matches no offer
 		ranges = append(ranges, rng{typ, sub, q})
 	}
 	best, bestQ := "", 0.0
 	for _, o := range offers {
-		ot, os, _ := strings.Cut(o, "/")
+		ot, os, _ := strings.Cut(o, "/") // offers are this package's full media types
 		q, spec := 0.0, -1
 		for _, r := range ranges {
 			s := -1

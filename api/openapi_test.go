@@ -97,7 +97,10 @@ func (o *openAPI) check(method, path string, p reply) {
 		t.Fatalf("%s %s answered %d, which openapi.json does not document for %s", method, path, p.code, op["operationId"])
 	}
 	resp, ptr = o.resolve(resp, ptr)
-	mt, _, _ := mime.ParseMediaType(p.header.Get("Content-Type"))
+	mt, _, err := mime.ParseMediaType(p.header.Get("Content-Type"))
+	if err != nil && p.header.Get("Content-Type") != "" {
+		t.Fatalf("%s %s %d: Content-Type %q: %v", method, path, p.code, p.header.Get("Content-Type"), err)
+	}
 	media := obj(obj(resp["content"])[mt])
 	if media == nil {
 		t.Fatalf("%s %s %d: content type %q is not documented", method, path, p.code, mt)
@@ -202,7 +205,9 @@ func TestOpenAPIResponses(t *testing.T) {
 	done := r.submit("harbour", tinyStudy)
 	running := ex("POST", "/v1/studies", key, []byte(slowStudy))
 	var sub submitBody
-	json.Unmarshal(running.body, &sub)
+	if err := json.Unmarshal(running.body, &sub); err != nil {
+		t.Fatalf("submit body: %v", err)
+	}
 	ex("POST", "/v1/studies", key, []byte(`{"designs": 3}`))
 	ex("POST", "/v1/studies", "", []byte(tinyStudy))
 	ex("POST", "/v1/studies", key, bytes.Repeat([]byte(" "), 5<<10))

@@ -122,7 +122,9 @@ func (r *rig) start(mod func(*Config)) {
 func (r *rig) stop() {
 	if r.http != nil {
 		r.http.Close()
-		r.client.Close()
+		if err := r.client.Close(); err != nil {
+			r.t.Errorf("closing the worker client: %v", err)
+		}
 		r.http = nil
 	}
 }

@@ -33,7 +33,8 @@ type Backend interface {
 type Config struct {
 	// Backend runs the studies. Required.
 	Backend Backend
-	// Keys checks bearer keys. Required unless NoAuth.
+	// Keys checks bearer keys. Required unless NoAuth. New points the ring's
+	// warnings (an edit of the keys file that does not load) at Logger.
 	Keys *KeyRing
 	// NoAuth serves every request as the one owner LocalOwner, for a
 	// single user on a laptop.
@@ -133,6 +134,9 @@ func New(cfg Config) (*Server, error) {
 	if cfg.Registerer == nil || cfg.Gatherer == nil {
 		return nil, fmt.Errorf("api: set both Registerer and Gatherer, or neither")
 	}
+	if cfg.Keys != nil {
+		cfg.Keys.setLogger(cfg.Logger)
+	}
 	doc, err := openAPIDocument()
 	if err != nil {
 		return nil, err
@@ -164,8 +168,9 @@ func New(cfg Config) (*Server, error) {
 			paths = append(paths, rt.pattern)
 		}
 		allowed[rt.pattern] = append(allowed[rt.pattern], rt.method)
-		// The count of 200s of every route exists from the start.
-		s.seconds.WithLabelValues(rt.method+" "+rt.pattern, "200")
+		// Made now, unused, so the count of 200s of every route exists from
+		// the first scrape.
+		_ = s.seconds.WithLabelValues(rt.method+" "+rt.pattern, "200")
 	}
 	for _, p := range paths {
 		methods := strings.Join(allowed[p], ", ")

@@ -4,10 +4,11 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"log/slog"
+	"slices"
 	"time"
 
 	"github.com/hibiken/asynq"
-	"github.com/redis/go-redis/v9"
 
 	"discrimen/models"
 )
@@ -16,39 +17,41 @@ import (
 // the API holds; it runs no fits.
 type Client struct {
 	cfg       Config
-	rdb       redis.UniversalClient
 	st        *store
 	queue     *asynq.Client
 	inspector *asynq.Inspector
+	log       *slog.Logger
 	now       func() time.Time
 }
 
 // NewClient connects to Redis. The connection is made lazily; call Ping to
 // check it.
 func NewClient(cfg Config) (*Client, error) {
-	cfg, rdb, err := connect(cfg)
+	cfg, st, err := connect(cfg)
 	if err != nil {
 		return nil, err
 	}
+	// asynq's client and inspector share the store's connection pool.
 	c := &Client{
-		cfg: cfg, rdb: rdb, st: &store{rdb: rdb, retention: cfg.Retention},
-		queue:     asynq.NewClientFromRedisClient(rdb),
-		inspector: asynq.NewInspectorFromRedisClient(rdb),
+		cfg: cfg, st: st,
+		queue:     asynq.NewClientFromRedisClient(st.rdb),
+		inspector: asynq.NewInspectorFromRedisClient(st.rdb),
+		log:       cfg.Logger,
 		now:       time.Now,
 	}
 	if cfg.Registerer != nil {
 		if err := registerClientMetrics(cfg.Registerer, c); err != nil {
-			return nil, err
+			return nil, errors.Join(err, st.close())
 		}
 	}
 	return c, nil
 }
 
 // Close closes the Redis connection.
-func (c *Client) Close() error { return c.rdb.Close() }
+func (c *Client) Close() error { return c.st.close() }
 
 // Ping checks that Redis answers.
-func (c *Client) Ping(ctx context.Context) error { return c.rdb.Ping(ctx).Err() }
+func (c *Client) Ping(ctx context.Context) error { return c.st.ping(ctx) }
 
 // Submit stores a validated study, owned by owner, and enqueues its plan.
 // input is the study file as submitted: workers decode it again with
@@ -60,7 +63,12 @@ func (c *Client) Submit(ctx context.Context, owner string, input []byte, s *mode
 		return Status{}, err
 	}
 	if _, err := c.queue.EnqueueContext(ctx, c.cfg.planTask(id)); err != nil {
-		c.st.setStatus(ctx, id, []State{Queued}, Failed, "", "error", "could not enqueue the plan", "finished", now.UnixNano())
+		// The caller gets the enqueue error either way; the stored study
+		// should not read "queued" for ever. Not applied only if it was
+		// canceled meanwhile, which is as final.
+		if _, serr := c.st.setStatus(ctx, id, []State{Queued}, Failed, "", "error", "could not enqueue the plan", "finished", now.UnixNano()); serr != nil {
+			c.log.Warn("marking a study whose plan was not enqueued failed", "study", id, "err", serr)
+		}
 		return Status{}, fmt.Errorf("worker: enqueueing the plan of %s: %w", id, err)
 	}
 	return c.st.status(ctx, id, now)
@@ -99,7 +107,11 @@ func (c *Client) List(ctx context.Context, owner, cursor string, limit int) ([]S
 		for _, id := range ids {
 			s, err := c.st.status(ctx, id, now)
 			if errors.Is(err, ErrNotFound) {
-				c.st.unindex(ctx, owner, id) // expired
+				// Expired. The page is right without it either way; a
+				// failed removal is tried again at the next read.
+				if err := c.st.unindex(ctx, owner, id); err != nil {
+					c.log.Warn("listing studies", "owner", owner, "err", err)
+				}
 				continue
 			}
 			if err != nil {
@@ -142,7 +154,11 @@ func (c *Client) Cancel(ctx context.Context, owner, id string) (Status, error) {
 		}
 		return s, ErrFinished
 	}
-	dropTasks(ctx, c.inspector, c.cfg, id, s.Shards)
+	// The study is canceled from here on: a task left in the queue drops
+	// itself when it sees the final state.
+	if err := dropTasks(ctx, c.inspector, c.cfg, id, s.Shards); err != nil {
+		c.log.Warn("dropping a canceled study's tasks", "study", id, "err", err)
+	}
 	if err := c.st.finish(ctx, id, owner); err != nil {
 		return Status{}, err
 	}
@@ -150,12 +166,32 @@ func (c *Client) Cancel(ctx context.Context, owner, id string) (Status, error) {
 }
 
 // dropTasks deletes a study's tasks that wait in the queues. Running tasks
-// cannot be deleted; they see the final status at their next check.
-func dropTasks(ctx context.Context, in *asynq.Inspector, cfg Config, id string, shards int) {
-	in.DeleteTask(cfg.controlQueue(), planTaskID(id))
-	for i := 0; i < shards && ctx.Err() == nil; i++ {
-		in.DeleteTask(cfg.Queue, shardTaskID(id, i))
+// cannot be deleted; they see the final status at their next check. A task
+// that is not there (done, never enqueued) or running is expected; any
+// other failure is returned, with ctx's error if it ended the loop early.
+func dropTasks(ctx context.Context, in *asynq.Inspector, cfg Config, id string, shards int) error {
+	var errs []error
+	drop := func(queue, task string) {
+		err := in.DeleteTask(queue, task)
+		if err == nil || errors.Is(err, asynq.ErrTaskNotFound) || errors.Is(err, asynq.ErrQueueNotFound) {
+			return
+		}
+		// asynq refuses to delete an active task with an error it does not
+		// export; ask for the task's state instead of matching the text.
+		if info, ierr := in.GetTaskInfo(queue, task); ierr == nil && info.State == asynq.TaskStateActive {
+			return
+		}
+		errs = append(errs, fmt.Errorf("deleting task %s: %w", task, err))
 	}
+	drop(cfg.controlQueue(), planTaskID(id))
+	i := 0
+	for ; i < shards && ctx.Err() == nil; i++ {
+		drop(cfg.Queue, shardTaskID(id, i))
+	}
+	if i < shards {
+		errs = append(errs, fmt.Errorf("stopped after %d of %d shard tasks: %w", i, shards, ctx.Err()))
+	}
+	return errors.Join(errs...)
 }
 
 // Report returns a finished study's report file; ErrNotDone before then.
@@ -180,11 +216,8 @@ func (c *Client) Runs(ctx context.Context, id string) (map[int]int, error) {
 // queue and the control queue.
 func (c *Client) QueueSizes() (shards, control int, err error) {
 	for i, q := range []string{c.cfg.Queue, c.cfg.controlQueue()} {
-		info, err := c.inspector.GetQueueInfo(q)
+		info, err := queueInfo(c.inspector, q)
 		if err != nil {
-			if errors.Is(err, asynq.ErrQueueNotFound) {
-				continue
-			}
 			return 0, 0, err
 		}
 		n := info.Pending + info.Active + info.Scheduled + info.Retry
@@ -195,4 +228,23 @@ func (c *Client) QueueSizes() (shards, control int, err error) {
 		}
 	}
 	return shards, control, nil
+}
+
+// queueInfo reads one queue's counts; a queue asynq has not made yet (no
+// task was ever sent to it) reads as empty. GetQueueInfo reports that case
+// with an error asynq does not export (not ErrQueueNotFound, unlike its
+// other calls), so the list of queues decides.
+func queueInfo(in *asynq.Inspector, q string) (*asynq.QueueInfo, error) {
+	info, err := in.GetQueueInfo(q)
+	if err == nil {
+		return info, nil
+	}
+	names, lerr := in.Queues()
+	if lerr != nil {
+		return nil, fmt.Errorf("worker: queue %s: %w", q, errors.Join(err, lerr))
+	}
+	if !slices.Contains(names, q) {
+		return &asynq.QueueInfo{Queue: q}, nil
+	}
+	return nil, fmt.Errorf("worker: queue %s: %w", q, err)
 }

@@ -18,7 +18,7 @@ package worker
 //	discrimen:{ID}:input              string      the study file exactly as submitted
 //	discrimen:{ID}:results            hash        shard index → gob-encoded recovery.ShardResult
 //	discrimen:{ID}:done               hash        shard index → fits in that shard (completion is HLEN/sum of this)
-//	discrimen:{ID}:partial            hash        shard index → fits finished so far by a running shard
+//	discrimen:{ID}:partial            hash        shard index → fits finished so far by a running shard (refreshed by its poller)
 //	discrimen:{ID}:runs               hash        shard index → times a worker started the shard
 //	discrimen:{ID}:workers            set         identities of the worker processes that stored shards
 //	discrimen:{ID}:report.json        string      report.json bytes
@@ -27,27 +27,36 @@ package worker
 //	discrimen:{owner:NAME}:studies    sorted set  the study ids of one API key, all score 0 (ids sort by time)
 //	discrimen:{index}:studies         sorted set  every study id, all score 0, for metrics
 //
-// Fields of discrimen:{ID}:study:
+// Fields of discrimen:{ID}:study, decoded into a studyRecord by
+// decodeRecord (record.go). The first five are written when the study is
+// submitted and are required; the others are absent until their step
+// happens. Counts are decimal whole numbers ≥ 0, times decimal Unix
+// nanoseconds; a field that does not parse is an error naming it.
 //
-//	owner        API key name that submitted the study
-//	name         the study's name
-//	status       queued | running | done | failed | canceled
-//	created      submission time, Unix nanoseconds
-//	started      time the plan finished (shards enqueued), Unix nanoseconds
-//	finished     time the study reached a final status, Unix nanoseconds
-//	error        the failure message of a failed study
-//	total        fits the study runs (models.Study.TotalFits)
-//	shards       number of shards in the plan (absent until planned)
-//	shard_size   participants per shard
-//	grid_seconds wall time of the plan's compile
-//	last_shard   time the latest shard was stored, Unix nanoseconds
-//	assemblies   times an assembly stored a report (1 for a finished study)
+//	owner        required  API key name that submitted the study
+//	name         required  the study's name
+//	status       required  queued | running | done | failed | canceled
+//	created      required  submission time
+//	total        required  fits the study runs (models.Study.TotalFits)
+//	started      optional  time the plan finished (shards enqueued)
+//	finished     optional  time the study reached a final status
+//	error        optional  the failure message of a failed study
+//	shards       optional  number of shards in the plan (absent until planned)
+//	shard_size   optional  participants per shard (absent until planned)
+//	grid_seconds optional  wall time of the first compile, seconds (strconv 'g' format)
+//	last_shard   optional  time the latest shard was stored
+//	assemblies   optional  times an assembly stored a report (1 for a finished study)
+//
+// The values of the done, partial and runs hashes are counts as above,
+// their fields shard indexes.
 //
 // Every study key expires after the configured retention; a running study's
-// keys are refreshed each time a shard is stored. The index keys expire
-// after twice the retention, refreshed when a study is submitted or
-// finishes; index entries whose study has expired are removed when they are
-// next read.
+// keys are refreshed each time a shard is stored, and the partial hash each
+// time a running shard reports progress. The index keys expire after twice
+// the retention, refreshed when a study is submitted or finishes; index
+// entries whose study has expired are removed when they are next read.
+//
+// Every Redis call on these keys is a method of store (store.go).
 
 const keyPrefix = "discrimen:"
 

@@ -2,7 +2,6 @@ package worker
 
 import (
 	"context"
-	"errors"
 	"time"
 
 	"github.com/hibiken/asynq"
@@ -113,19 +112,24 @@ func (cc *clientCollector) Collect(ch chan<- prometheus.Metric) {
 	ctx, cancel := context.WithTimeout(context.Background(), cc.timeout)
 	defer cancel()
 	up := 1.0
-	counts, err := cc.c.st.countStates(ctx)
+	counts, gone, err := cc.c.st.countStates(ctx)
 	if err != nil {
 		up = 0
+		cc.c.log.Warn("metrics: counting studies by state", "err", err)
+	}
+	// The counts are right without the expired entries either way; a
+	// failed removal is tried again at the next scrape.
+	if err := cc.c.st.unindexAll(ctx, gone); err != nil {
+		cc.c.log.Warn("metrics: dropping expired studies from the index", "err", err)
 	}
 	for _, s := range States {
 		ch <- prometheus.MustNewConstMetric(cc.studies, prometheus.GaugeValue, float64(counts[s]), string(s))
 	}
 	for _, q := range cc.queueIDs {
-		info, err := cc.c.inspector.GetQueueInfo(q)
-		if err != nil && !errors.Is(err, asynq.ErrQueueNotFound) {
+		info, err := queueInfo(cc.c.inspector, q)
+		if err != nil {
 			up = 0
-		}
-		if info == nil {
+			cc.c.log.Warn("metrics: reading a queue", "queue", q, "err", err)
 			info = &asynq.QueueInfo{}
 		}
 		for _, st := range []struct {

@@ -3,7 +3,6 @@ package worker
 import (
 	"context"
 	"encoding/json"
-	"strconv"
 	"testing"
 	"time"
 )
@@ -42,12 +41,11 @@ func overhead(tb testing.TB, shardFits int, js string) (perShard time.Duration, 
 	if err := json.Unmarshal(b, &rep); err != nil {
 		tb.Fatal(err)
 	}
-	span := unixNano(rec["last_shard"]).Sub(unixNano(rec["started"])).Seconds()
-	grid, err := strconv.ParseFloat(rec["grid_seconds"], 64)
-	if err != nil {
-		tb.Fatalf("grid_seconds %q: %v", rec["grid_seconds"], err)
+	if rec.LastShard.IsZero() || rec.Started.IsZero() || rec.GridSeconds <= 0 {
+		tb.Fatalf("done study's record lacks a time: last_shard %v, started %v, grid_seconds %v", rec.LastShard, rec.Started, rec.GridSeconds)
 	}
-	over := span - grid - rep.Timing.ShardSeconds
+	span := rec.LastShard.Sub(rec.Started).Seconds()
+	over := span - rec.GridSeconds - rep.Timing.ShardSeconds
 	return time.Duration(over / float64(st.Shards) * float64(time.Second)), over / rep.Timing.ShardSeconds, st.Shards
 }
 

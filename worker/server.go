@@ -7,14 +7,12 @@ import (
 	"fmt"
 	"log/slog"
 	"os"
-	"strconv"
 	"strings"
 	"sync"
 	"sync/atomic"
 	"time"
 
 	"github.com/hibiken/asynq"
-	"github.com/redis/go-redis/v9"
 
 	"discrimen/models"
 	"discrimen/pages"
@@ -22,9 +20,20 @@ import (
 )
 
 // Server runs the plan, shard and assemble tasks of every study.
+//
+// Its parts share one Redis client: the store's, which asynq's server,
+// client and inspector use too. Shutdown stops them in this order, so that
+// nothing calls Redis once the client is closed:
+//
+//  1. the archive sweeper: its context is canceled and Shutdown waits for
+//     its goroutine to return (a sweep in progress stops at its next
+//     check);
+//  2. asynq's server: it takes no new task, gives running handlers up to
+//     ShutdownTimeout to finish (each shard handler joins its progress
+//     poller before it returns) and puts the others back on the queue;
+//  3. the Redis client.
 type Server struct {
 	cfg       Config
-	rdb       redis.UniversalClient
 	st        *store
 	srv       *asynq.Server
 	queue     *asynq.Client
@@ -32,43 +41,39 @@ type Server struct {
 	cache     *compiledCache
 	m         *serverMetrics
 	log       *slog.Logger
-	stopSweep context.CancelFunc
-}
 
-// connect fills the config's defaults and makes its Redis client.
-func connect(cfg Config) (Config, redis.UniversalClient, error) {
-	cfg, err := cfg.withDefaults()
-	if err != nil {
-		return cfg, nil, err
-	}
-	c := cfg.Redis.MakeRedisClient()
-	rdb, ok := c.(redis.UniversalClient)
-	if !ok {
-		return cfg, nil, fmt.Errorf("worker: Config.Redis made %T, not a go-redis client", c)
-	}
-	return cfg, rdb, nil
+	// The sweeper: sweepEvery and sweep are fields so that tests can run
+	// it faster or watch it.
+	sweepEvery time.Duration
+	sweep      func(context.Context)
+	stopSweep  context.CancelFunc
+	sweeper    sync.WaitGroup
+
+	shutdown sync.Once
 }
 
 // NewServer prepares a worker; Start begins taking tasks.
 func NewServer(cfg Config) (*Server, error) {
-	cfg, rdb, err := connect(cfg)
+	cfg, st, err := connect(cfg)
 	if err != nil {
 		return nil, err
 	}
 	s := &Server{
-		cfg: cfg, rdb: rdb, st: &store{rdb: rdb, retention: cfg.Retention},
-		queue:     asynq.NewClientFromRedisClient(rdb),
-		inspector: asynq.NewInspectorFromRedisClient(rdb),
-		cache:     newCompiledCache(cfg.CompiledCache),
-		m:         newServerMetrics(),
-		log:       cfg.Logger.With("identity", cfg.Identity),
+		cfg: cfg, st: st,
+		queue:      asynq.NewClientFromRedisClient(st.rdb),
+		inspector:  asynq.NewInspectorFromRedisClient(st.rdb),
+		cache:      newCompiledCache(cfg.CompiledCache),
+		m:          newServerMetrics(),
+		log:        cfg.Logger.With("identity", cfg.Identity),
+		sweepEvery: sweepInterval,
 	}
+	s.sweep = s.sweepOnce
 	if cfg.Registerer != nil {
 		if err := s.m.register(cfg.Registerer); err != nil {
-			return nil, err
+			return nil, errors.Join(err, st.close())
 		}
 	}
-	s.srv = asynq.NewServerFromRedisClient(rdb, asynq.Config{
+	s.srv = asynq.NewServerFromRedisClient(st.rdb, asynq.Config{
 		Concurrency: cfg.Concurrency,
 		// Plans and assemblies are short and unblock whole studies, so they
 		// go before any shard.
@@ -107,20 +112,26 @@ func (s *Server) Start() error {
 	}
 	ctx, cancel := context.WithCancel(context.Background())
 	s.stopSweep = cancel
-	go s.sweepLoop(ctx)
+	s.sweeper.Go(func() { s.sweepLoop(ctx) })
 	return nil
 }
 
-// Shutdown stops taking tasks, waits up to ShutdownTimeout for running
-// shards to finish and puts the others back on the queue, then closes the
-// Redis connection.
+// Shutdown stops the server in the order of the Server's doc comment: the
+// sweeper (joined), asynq's server (running shards get up to
+// ShutdownTimeout, the rest go back to the queue), then the Redis client.
+// Calls after the first do nothing.
 func (s *Server) Shutdown() {
-	if s.stopSweep != nil {
-		s.stopSweep()
-	}
-	s.srv.Shutdown()
-	s.rdb.Close()
-	s.log.Info("worker stopped")
+	s.shutdown.Do(func() {
+		if s.stopSweep != nil {
+			s.stopSweep()
+		}
+		s.sweeper.Wait()
+		s.srv.Shutdown()
+		if err := s.st.close(); err != nil {
+			s.log.Warn("closing the Redis client", "err", err)
+		}
+		s.log.Info("worker stopped")
+	})
 }
 
 // permanent marks a failure that a retry cannot fix (a study that does not
@@ -162,7 +173,11 @@ func (s *Server) compiled(ctx context.Context, id string) (*recovery.Compiled, e
 	})
 	if fresh && err == nil {
 		s.m.compileSeconds.Observe(secs)
-		s.rdb.HSetNX(ctx, studyKey(id), "grid_seconds", strconv.FormatFloat(secs, 'g', -1, 64))
+		// grid_seconds only feeds the report's timing block: a shard does
+		// not fail for it.
+		if err := s.st.setGridSeconds(ctx, id, secs); err != nil {
+			s.log.Warn("recording the compile time", "study", id, "err", err)
+		}
 		s.log.Info("study compiled", "study", id, "seconds", secs)
 	}
 	return c, err
@@ -179,19 +194,19 @@ func plan(study *models.Study, size int) ([]recovery.ShardSpec, error) {
 // liveStudy decodes a plan or assemble task's payload and loads its
 // study's record. skip is true when the study is gone (expired or never
 // stored) or already finished: the task then has nothing left to do.
-func (s *Server) liveStudy(ctx context.Context, t *asynq.Task) (id string, rec map[string]string, skip bool, err error) {
+func (s *Server) liveStudy(ctx context.Context, t *asynq.Task) (id string, rec studyRecord, skip bool, err error) {
 	var p planPayload // the assemble payload has the same shape
 	if err := json.Unmarshal(t.Payload(), &p); err != nil {
-		return "", nil, false, permanent("bad %s payload: %v", t.Type(), err)
+		return "", rec, false, permanent("bad %s payload: %v", t.Type(), err)
 	}
 	rec, err = s.st.record(ctx, p.Study)
 	if errors.Is(err, ErrNotFound) {
-		return p.Study, nil, true, nil
+		return p.Study, rec, true, nil
 	}
 	if err != nil {
-		return p.Study, nil, false, err
+		return p.Study, rec, false, err
 	}
-	return p.Study, rec, State(rec["status"]).Final(), nil
+	return p.Study, rec, rec.State.Final(), nil
 }
 
 // handlePlan stores the study's plan and enqueues every shard not yet
@@ -212,9 +227,11 @@ func (s *Server) handlePlan(ctx context.Context, t *asynq.Task) error {
 	if err != nil {
 		return permanent("planning the study: %v", err)
 	}
-	if err := s.rdb.HSet(ctx, studyKey(id), "shards", len(specs), "shard_size", size).Err(); err != nil {
+	if err := s.st.setPlan(ctx, id, len(specs), size); err != nil {
 		return err
 	}
+	// Not applied when a retried plan finds the study running already (its
+	// start time stays), or when it was canceled meanwhile (checked below).
 	if _, err := s.st.setStatus(ctx, id, []State{Queued}, Running, "", "started", time.Now().UnixNano()); err != nil {
 		return err
 	}
@@ -232,8 +249,14 @@ func (s *Server) handlePlan(ctx context.Context, t *asynq.Task) error {
 	}
 	// A cancel that landed while the shards were being enqueued could not
 	// see them; drop them now.
-	if rec, err := s.st.record(ctx, id); err == nil && State(rec["status"]).Final() {
-		dropTasks(ctx, s.inspector, s.cfg, id, len(specs))
+	rec, err := s.st.record(ctx, id)
+	if err != nil {
+		return err // the retry enqueues nothing new and checks again
+	}
+	if rec.State.Final() {
+		if err := dropTasks(ctx, s.inspector, s.cfg, id, len(specs)); err != nil {
+			s.log.Warn("dropping the tasks of a study canceled while planned", "study", id, "err", err)
+		}
 		return nil
 	}
 	s.log.Info("study planned", "study", id, "shards", len(specs), "shard_size", size, "fits", study.TotalFits())
@@ -255,8 +278,8 @@ func (s *Server) handleShard(ctx context.Context, t *asynq.Task) error {
 	if err != nil {
 		return err
 	}
-	shards := atoi(rec["shards"])
-	if State(rec["status"]).Final() {
+	shards := rec.Shards
+	if rec.State.Final() {
 		s.m.shards[shardDropped].Inc()
 		return nil
 	}
@@ -277,33 +300,17 @@ func (s *Server) handleShard(ctx context.Context, t *asynq.Task) error {
 	}
 	h := len(c.Study.Hypotheses)
 
+	// One background poller per shard reports progress and watches for a
+	// cancel. It is joined before the result is stored, so that no partial
+	// entry lands after storeShard removed it, and on every other return
+	// too: the deferred cancel runs before the deferred Wait.
 	runCtx, cancel := context.WithCancel(ctx)
+	var poller sync.WaitGroup
+	defer poller.Wait()
 	defer cancel()
 	var fits atomic.Int64
 	var stopped atomic.Bool // the study reached a final state while running
-	stop := make(chan struct{})
-	var wg sync.WaitGroup
-	wg.Add(1)
-	go func() {
-		defer wg.Done()
-		tick := time.NewTicker(s.cfg.PollInterval)
-		defer tick.Stop()
-		for {
-			select {
-			case <-stop:
-				return
-			case <-runCtx.Done():
-				return
-			case <-tick.C:
-			}
-			s.st.setPartial(runCtx, id, spec.Index, int(fits.Load()))
-			if st, err := s.rdb.HGet(runCtx, studyKey(id), "status").Result(); (err == nil && State(st).Final()) || errors.Is(err, redis.Nil) {
-				stopped.Store(true)
-				cancel()
-				return
-			}
-		}
-	}()
+	poller.Go(func() { s.pollShard(runCtx, cancel, id, spec.Index, &fits, &stopped) })
 	last := time.Now()
 	res, err := c.RunShard(runCtx, spec, func(n int) {
 		now := time.Now()
@@ -317,8 +324,8 @@ func (s *Server) handleShard(ctx context.Context, t *asynq.Task) error {
 		fits.Add(int64(n))
 		s.m.fits.Add(float64(n))
 	})
-	close(stop)
-	wg.Wait()
+	cancel()
+	poller.Wait()
 	if err != nil {
 		if errors.Is(err, recovery.ErrCanceled) {
 			if stopped.Load() {
@@ -343,6 +350,31 @@ func (s *Server) handleShard(ctx context.Context, t *asynq.Task) error {
 	s.m.shardSeconds.Observe(res.Seconds)
 	s.log.Debug("shard stored", "study", id, "shard", spec.Index, "seconds", res.Seconds, "stored", n, "of", shards)
 	return s.maybeAssemble(ctx, id, shards)
+}
+
+// pollShard stores a running shard's progress every PollInterval until ctx
+// ends; when the study has reached a final state or is gone it sets stopped
+// and cancels the run.
+func (s *Server) pollShard(ctx context.Context, cancel context.CancelFunc, id string, index int, fits *atomic.Int64, stopped *atomic.Bool) {
+	tick := time.NewTicker(s.cfg.PollInterval)
+	defer tick.Stop()
+	for {
+		select {
+		case <-ctx.Done():
+			return
+		case <-tick.C:
+		}
+		state, err := s.st.progress(ctx, id, index, int(fits.Load()))
+		switch {
+		case errors.Is(err, ErrNotFound), err == nil && state.Final():
+			stopped.Store(true)
+			cancel()
+			return
+		case err != nil && ctx.Err() == nil:
+			// The shard keeps running; the next tick tries again.
+			s.log.Warn("storing shard progress", "study", id, "shard", index, "err", err)
+		}
+	}
 }
 
 // maybeAssemble enqueues the assembly once every shard is stored. The
@@ -376,7 +408,7 @@ func (s *Server) handleAssemble(ctx context.Context, t *asynq.Task) error {
 	if err != nil {
 		return err
 	}
-	if shards := atoi(rec["shards"]); len(results) < shards {
+	if shards := rec.Shards; len(results) < shards {
 		return fmt.Errorf("worker: study %s: %d of %d shards stored at assembly", id, len(results), shards)
 	}
 	start := time.Now()
@@ -394,13 +426,12 @@ func (s *Server) handleAssemble(ctx context.Context, t *asynq.Task) error {
 		shardSeconds += r.Seconds
 	}
 	finished := time.Now()
-	grid, _ := strconv.ParseFloat(rec["grid_seconds"], 64)
 	// Timing is the one part of a report that differs from `discrimen
 	// run`'s: here it is measured across the queue. Total runs from
 	// submission to assembly; Workers counts worker processes.
 	rep.Timing = recovery.Timing{
-		TotalSeconds:    finished.Sub(unixNano(rec["created"])).Seconds(),
-		GridSeconds:     grid,
+		TotalSeconds:    finished.Sub(rec.Created).Seconds(),
+		GridSeconds:     rec.GridSeconds,
 		ShardSeconds:    shardSeconds,
 		AssembleSeconds: assembleSeconds,
 		Fits:            c.TotalFits(),
@@ -431,7 +462,7 @@ func (s *Server) handleAssemble(ctx context.Context, t *asynq.Task) error {
 	}
 	s.m.assemblies.Inc()
 	s.cache.forget(id)
-	if err := s.st.finish(ctx, id, rec["owner"]); err != nil {
+	if err := s.st.finish(ctx, id, rec.Owner); err != nil {
 		s.log.Warn("dropping shard results", "study", id, "err", err)
 	}
 	s.log.Info("study done", "study", id, "fits", rep.Timing.Fits, "seconds", rep.Timing.TotalSeconds, "workers", workers)
@@ -440,34 +471,62 @@ func (s *Server) handleAssemble(ctx context.Context, t *asynq.Task) error {
 
 // handleError fails the study when a task will not be retried again.
 func (s *Server) handleError(ctx context.Context, t *asynq.Task, err error) {
-	retried, _ := asynq.GetRetryCount(ctx)
-	maxRetry, _ := asynq.GetMaxRetry(ctx)
+	// asynq gives its error handler the task's context, which always
+	// carries both counts; without them nothing says this was the last try.
+	retried, ok1 := asynq.GetRetryCount(ctx)
+	maxRetry, ok2 := asynq.GetMaxRetry(ctx)
 	var p struct {
 		Study string `json:"study"`
 	}
-	json.Unmarshal(t.Payload(), &p)
+	if perr := json.Unmarshal(t.Payload(), &p); perr != nil {
+		s.log.Warn("task failed, and its payload does not decode", "type", t.Type(), "err", err, "payload_err", perr)
+		return
+	}
 	s.log.Warn("task failed", "type", t.Type(), "study", p.Study, "retried", retried, "max_retry", maxRetry, "err", err)
+	if !ok1 || !ok2 {
+		s.log.Warn("task failed without retry counts in its context; its study is left as it is", "type", t.Type(), "study", p.Study)
+		return
+	}
 	if p.Study == "" || (!errors.Is(err, asynq.SkipRetry) && retried < maxRetry) {
 		return
 	}
 	msg := strings.TrimPrefix(err.Error(), asynq.SkipRetry.Error()+": ")
 	ctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), 10*time.Second)
 	defer cancel()
-	s.fail(ctx, p.Study, msg)
+	_ = s.fail(ctx, p.Study, msg) // fail logs each outcome; the count is the sweep's
 }
 
-// fail marks a study failed and drops its remaining tasks.
-func (s *Server) fail(ctx context.Context, id, msg string) {
+// fail marks a study failed and drops its remaining tasks. It reports
+// whether this call failed it (false when the study was final already, is
+// gone, or Redis did not answer, which is logged).
+func (s *Server) fail(ctx context.Context, id, msg string) bool {
 	ok, err := s.st.setStatus(ctx, id, []State{Queued, Running}, Failed, "", "error", msg, "finished", time.Now().UnixNano())
-	if err != nil || !ok {
-		return
+	if errors.Is(err, ErrNotFound) {
+		return false
 	}
-	if rec, err := s.st.record(ctx, id); err == nil {
-		dropTasks(ctx, s.inspector, s.cfg, id, atoi(rec["shards"]))
-		s.st.finish(ctx, id, rec["owner"])
+	if err != nil {
+		s.log.Warn("marking a study failed", "study", id, "reason", msg, "err", err)
+		return false
+	}
+	if !ok {
+		return false // final already: the first final state stands
 	}
 	s.cache.forget(id)
 	s.log.Error("study failed", "study", id, "err", msg)
+	// The study is failed from here on; what follows only tidies up, and
+	// each leftover task drops itself when it sees the final state.
+	rec, err := s.st.record(ctx, id)
+	if err != nil {
+		s.log.Warn("reading a failed study to drop its tasks", "study", id, "err", err)
+		return true
+	}
+	if err := dropTasks(ctx, s.inspector, s.cfg, id, rec.Shards); err != nil {
+		s.log.Warn("dropping a failed study's tasks", "study", id, "err", err)
+	}
+	if err := s.st.finish(ctx, id, rec.Owner); err != nil {
+		s.log.Warn("dropping a failed study's shard data", "study", id, "err", err)
+	}
+	return true
 }
 
 // asynqLogger sends asynq's logs to slog.

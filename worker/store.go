@@ -88,11 +88,34 @@ type Status struct {
 	Assemblies int
 }
 
-// store holds the Redis operations on the key layout of keys.go.
+// store holds every Redis call of the service, on the key layout of
+// keys.go. Nothing else in the module talks to Redis except asynq, which
+// shares the store's connection pool for its own keys.
 type store struct {
 	rdb       redis.UniversalClient
 	retention time.Duration
 }
+
+// connect fills the config's defaults and makes the store and its Redis
+// client.
+func connect(cfg Config) (Config, *store, error) {
+	cfg, err := cfg.withDefaults()
+	if err != nil {
+		return cfg, nil, err
+	}
+	c := cfg.Redis.MakeRedisClient()
+	rdb, ok := c.(redis.UniversalClient)
+	if !ok {
+		return cfg, nil, fmt.Errorf("worker: Config.Redis made %T, not a go-redis client", c)
+	}
+	return cfg, &store{rdb: rdb, retention: cfg.Retention}, nil
+}
+
+// close closes the Redis client, which asynq's client, inspector and
+// server share: call it once nothing else runs.
+func (st *store) close() error { return st.rdb.Close() }
+
+func (st *store) ping(ctx context.Context) error { return st.rdb.Ping(ctx).Err() }
 
 // setStatusScript changes a study's status only when its current status is
 // one of ARGV[1] (comma-separated), then sets the field pairs from ARGV[3]
@@ -154,16 +177,24 @@ func (st *store) create(ctx context.Context, id, owner, name string, input []byt
 	if err := st.rdb.ZAdd(ctx, indexKey, redis.Z{Member: id}).Err(); err != nil {
 		return err
 	}
-	st.keepIndexes(ctx, owner)
-	return nil
+	return st.keepIndexes(ctx, owner)
 }
 
 // keepIndexes restarts the indexes' expiry at twice the retention, so an
 // owner's index outlives every study in it unless one runs for longer than
 // that with no other study of the owner submitted or finished meanwhile.
-func (st *store) keepIndexes(ctx context.Context, owner string) {
-	st.rdb.Expire(ctx, ownerKey(owner), 2*st.retention)
-	st.rdb.Expire(ctx, indexKey, 2*st.retention)
+// The two keys are in different slots, so this is a plain pipeline, not a
+// transaction.
+func (st *store) keepIndexes(ctx context.Context, owner string) error {
+	_, err := st.rdb.Pipelined(ctx, func(p redis.Pipeliner) error {
+		p.Expire(ctx, ownerKey(owner), 2*st.retention)
+		p.Expire(ctx, indexKey, 2*st.retention)
+		return nil
+	})
+	if err != nil {
+		return fmt.Errorf("worker: restarting the expiry of the study indexes: %w", err)
+	}
+	return nil
 }
 
 // setStatus applies a status change guarded by the allowed current states.
@@ -187,16 +218,44 @@ func (st *store) setStatus(ctx context.Context, id string, from []State, to Stat
 	return n == 1, nil
 }
 
-// record reads a study's hash; ErrNotFound when it is gone.
-func (st *store) record(ctx context.Context, id string) (map[string]string, error) {
+// record reads and decodes a study's hash; ErrNotFound when it is gone.
+func (st *store) record(ctx context.Context, id string) (studyRecord, error) {
 	m, err := st.rdb.HGetAll(ctx, studyKey(id)).Result()
 	if err != nil {
-		return nil, err
+		return studyRecord{}, err
 	}
+	return decodeStored(id, m)
+}
+
+// decodeStored decodes a study's hash as read, naming the study in a
+// decoding error.
+func decodeStored(id string, m map[string]string) (studyRecord, error) {
 	if len(m) == 0 {
-		return nil, ErrNotFound
+		return studyRecord{}, ErrNotFound
 	}
-	return m, nil
+	rec, err := decodeRecord(m)
+	if err != nil {
+		return studyRecord{}, fmt.Errorf("worker: study %s: %w", id, err)
+	}
+	return rec, nil
+}
+
+// shardCounts decodes a hash of shard index → count (done, partial, runs),
+// naming the key and field of a bad entry.
+func shardCounts(key string, m map[string]string) (map[int]int, error) {
+	out := make(map[int]int, len(m))
+	for k, v := range m {
+		i, err := parseCount(k)
+		if err != nil {
+			return nil, fmt.Errorf("worker: %s: shard index %q: %w", key, k, err)
+		}
+		n, err := parseCount(v)
+		if err != nil {
+			return nil, fmt.Errorf("worker: %s field %s = %q: %w", key, k, v, err)
+		}
+		out[i] = n
+	}
+	return out, nil
 }
 
 func (st *store) input(ctx context.Context, id string) ([]byte, error) {
@@ -209,33 +268,40 @@ func (st *store) input(ctx context.Context, id string) ([]byte, error) {
 
 // status reads a study's full status in one round trip.
 func (st *store) status(ctx context.Context, id string, now time.Time) (Status, error) {
-	var rec *redis.MapStringStringCmd
-	var done, partial *redis.StringSliceCmd
+	var recCmd, doneCmd, partialCmd *redis.MapStringStringCmd
 	_, err := st.rdb.Pipelined(ctx, func(p redis.Pipeliner) error {
-		rec = p.HGetAll(ctx, studyKey(id))
-		done = p.HVals(ctx, doneKey(id))
-		partial = p.HVals(ctx, partialKey(id))
+		recCmd = p.HGetAll(ctx, studyKey(id))
+		doneCmd = p.HGetAll(ctx, doneKey(id))
+		partialCmd = p.HGetAll(ctx, partialKey(id))
 		return nil
 	})
 	if err != nil {
 		return Status{}, err
 	}
-	m := rec.Val()
-	if len(m) == 0 {
-		return Status{}, ErrNotFound
+	rec, err := decodeStored(id, recCmd.Val())
+	if err != nil {
+		return Status{}, err
+	}
+	done, err := shardCounts(doneKey(id), doneCmd.Val())
+	if err != nil {
+		return Status{}, err
 	}
 	s := Status{
-		ID: id, Owner: m["owner"], Name: m["name"], State: State(m["status"]), Error: m["error"],
-		Total: atoi(m["total"]), Shards: atoi(m["shards"]), Assemblies: atoi(m["assemblies"]),
-		Created: unixNano(m["created"]), Started: unixNano(m["started"]), Finished: unixNano(m["finished"]),
+		ID: id, Owner: rec.Owner, Name: rec.Name, State: rec.State, Error: rec.Error,
+		Total: rec.Total, Shards: rec.Shards, Assemblies: rec.Assemblies,
+		Created: rec.Created, Started: rec.Started, Finished: rec.Finished,
 	}
-	for _, v := range done.Val() {
-		s.Done += atoi(v)
+	for _, n := range done {
+		s.Done += n
 		s.ShardsDone++
 	}
 	if s.State == Running {
-		for _, v := range partial.Val() {
-			s.Done += atoi(v)
+		partial, err := shardCounts(partialKey(id), partialCmd.Val())
+		if err != nil {
+			return Status{}, err
+		}
+		for _, n := range partial {
+			s.Done += n
 		}
 	}
 	// A done study's count is exactly the stored shards' fits; a running
@@ -285,8 +351,40 @@ func (st *store) storedShards(ctx context.Context, id string) (int, error) {
 	return int(n), err
 }
 
-func (st *store) setPartial(ctx context.Context, id string, index, fits int) error {
-	return st.rdb.HSet(ctx, partialKey(id), strconv.Itoa(index), fits).Err()
+// setPlan records the plan's shard count and size.
+func (st *store) setPlan(ctx context.Context, id string, shards, size int) error {
+	return st.rdb.HSet(ctx, studyKey(id), "shards", shards, "shard_size", size).Err()
+}
+
+// setGridSeconds records a compile's wall time unless an earlier compile
+// (in any worker) already did.
+func (st *store) setGridSeconds(ctx context.Context, id string, secs float64) error {
+	return st.rdb.HSetNX(ctx, studyKey(id), "grid_seconds", strconv.FormatFloat(secs, 'g', -1, 64)).Err()
+}
+
+// progress stores the fits a running shard has finished so far and returns
+// its study's state (ErrNotFound when the study is gone), in one round
+// trip. The partial hash's expiry is restarted with it, so an entry written
+// just after the study finished (finish deletes the hash) still expires.
+func (st *store) progress(ctx context.Context, id string, index, fits int) (State, error) {
+	var status *redis.StringCmd
+	_, err := st.rdb.Pipelined(ctx, func(p redis.Pipeliner) error {
+		p.HSet(ctx, partialKey(id), strconv.Itoa(index), fits)
+		p.Expire(ctx, partialKey(id), st.retention)
+		status = p.HGet(ctx, studyKey(id), "status")
+		return nil
+	})
+	if errors.Is(err, redis.Nil) {
+		return "", ErrNotFound
+	}
+	if err != nil {
+		return "", err
+	}
+	s, err := parseState(status.Val())
+	if err != nil {
+		return "", fmt.Errorf("worker: study %s: %w", id, &fieldError{Field: "status", Value: status.Val(), Err: err})
+	}
+	return s, nil
 }
 
 func (st *store) countRun(ctx context.Context, id string, index int) error {
@@ -299,11 +397,7 @@ func (st *store) runs(ctx context.Context, id string) (map[int]int, error) {
 	if err != nil {
 		return nil, err
 	}
-	out := map[int]int{}
-	for k, v := range m {
-		out[atoi(k)] = atoi(v)
-	}
-	return out, nil
+	return shardCounts(runsKey(id), m)
 }
 
 // results decodes every stored shard result.
@@ -365,8 +459,10 @@ func (st *store) finish(ctx context.Context, id, owner string) error {
 		}
 		return nil
 	})
-	st.keepIndexes(ctx, owner)
-	return err
+	if err != nil {
+		err = fmt.Errorf("worker: study %s: dropping shard data: %w", id, err)
+	}
+	return errors.Join(err, st.keepIndexes(ctx, owner))
 }
 
 // list returns up to limit ids of an owner's studies older than cursor
@@ -379,17 +475,26 @@ func (st *store) list(ctx context.Context, owner, cursor string, limit int) ([]s
 	return st.rdb.ZRevRangeByLex(ctx, ownerKey(owner), &redis.ZRangeBy{Max: max, Min: "-", Count: int64(limit)}).Result()
 }
 
-func (st *store) unindex(ctx context.Context, owner, id string) {
-	st.rdb.ZRem(ctx, ownerKey(owner), id)
-	st.rdb.ZRem(ctx, indexKey, id)
+// unindex removes an expired study from its owner's index and the global
+// one (two slots, so a plain pipeline).
+func (st *store) unindex(ctx context.Context, owner, id string) error {
+	_, err := st.rdb.Pipelined(ctx, func(p redis.Pipeliner) error {
+		p.ZRem(ctx, ownerKey(owner), id)
+		p.ZRem(ctx, indexKey, id)
+		return nil
+	})
+	if err != nil {
+		return fmt.Errorf("worker: removing expired study %s from the indexes: %w", id, err)
+	}
+	return nil
 }
 
-// countStates counts the indexed studies by state, dropping index entries
-// whose study has expired.
-func (st *store) countStates(ctx context.Context) (map[State]int, error) {
+// countStates counts the indexed studies by state and returns the ids of
+// index entries whose study has expired (see unindexAll).
+func (st *store) countStates(ctx context.Context) (map[State]int, []string, error) {
 	ids, err := st.rdb.ZRange(ctx, indexKey, 0, -1).Result()
 	if err != nil {
-		return nil, err
+		return nil, nil, err
 	}
 	cmds := make([]*redis.StringCmd, len(ids))
 	_, err = st.rdb.Pipelined(ctx, func(p redis.Pipeliner) error {
@@ -399,41 +504,46 @@ func (st *store) countStates(ctx context.Context) (map[State]int, error) {
 		return nil
 	})
 	if err != nil && !errors.Is(err, redis.Nil) {
-		return nil, err
+		return nil, nil, err
 	}
+	// Pipelined returns only the first failure, which may be a redis.Nil
+	// hiding a real error further on: look at each command.
 	out := map[State]int{}
-	var gone []any
+	var gone []string
 	for i, c := range cmds {
 		v, err := c.Result()
 		if errors.Is(err, redis.Nil) {
 			gone = append(gone, ids[i])
 			continue
 		}
-		out[State(v)]++
+		if err != nil {
+			return nil, nil, err
+		}
+		s, err := parseState(v)
+		if err != nil {
+			return nil, nil, fmt.Errorf("worker: study %s: %w", ids[i], &fieldError{Field: "status", Value: v, Err: err})
+		}
+		out[s]++
 	}
-	if len(gone) > 0 {
-		st.rdb.ZRem(ctx, indexKey, gone...)
-	}
-	return out, nil
+	return out, gone, nil
 }
 
-func atoi(s string) int {
-	n, _ := strconv.Atoi(s)
-	return n
+// unindexAll removes expired studies from the global index.
+func (st *store) unindexAll(ctx context.Context, ids []string) error {
+	if len(ids) == 0 {
+		return nil
+	}
+	members := make([]any, len(ids))
+	for i, id := range ids {
+		members[i] = id
+	}
+	if err := st.rdb.ZRem(ctx, indexKey, members...).Err(); err != nil {
+		return fmt.Errorf("worker: removing %d expired studies from the index: %w", len(ids), err)
+	}
+	return nil
 }
 
 func itoa(n int) string { return strconv.Itoa(n) }
-
-func unixNano(s string) time.Time {
-	if s == "" {
-		return time.Time{}
-	}
-	n, err := strconv.ParseInt(s, 10, 64)
-	if err != nil {
-		return time.Time{}
-	}
-	return time.Unix(0, n).UTC()
-}
 
 func defaultIdentity() string {
 	h, err := os.Hostname()

@@ -16,11 +16,12 @@ const sweepInterval = time.Minute
 // task whose lease ran out after its last retry without calling the error
 // handler (a worker killed on each attempt), which would otherwise leave
 // the study "running" for ever. Failing is idempotent: a study already
-// finished stays as it is. It returns the number of studies it failed.
+// finished stays as it is. It returns the number of studies it failed, and
+// stops early, between tasks, once ctx ends.
 func (s *Server) sweepArchived(ctx context.Context) int {
 	failed := 0
 	for _, q := range []string{s.cfg.controlQueue(), s.cfg.Queue} {
-		for page := 1; ; page++ {
+		for page := 1; ctx.Err() == nil; page++ {
 			tasks, err := s.inspector.ListArchivedTasks(q, asynq.PageSize(100), asynq.Page(page))
 			if err != nil {
 				if !errors.Is(err, asynq.ErrQueueNotFound) {
@@ -29,22 +30,35 @@ func (s *Server) sweepArchived(ctx context.Context) int {
 				break
 			}
 			for _, t := range tasks {
+				if ctx.Err() != nil {
+					return failed
+				}
 				var p struct {
 					Study string `json:"study"`
 				}
-				if json.Unmarshal(t.Payload, &p) != nil || !ValidID(p.Study) {
+				if err := json.Unmarshal(t.Payload, &p); err != nil || !ValidID(p.Study) {
+					// Not a task of ours: it names no study to fail.
+					s.log.Warn("sweep: an archived task names no study", "queue", q, "task", t.ID, "type", t.Type)
 					continue
 				}
-				st, err := s.st.status(ctx, p.Study, time.Now())
-				if err != nil || st.State.Final() {
+				rec, err := s.st.record(ctx, p.Study)
+				if errors.Is(err, ErrNotFound) {
+					continue // expired; its task goes with asynq's own retention
+				}
+				if err != nil {
+					s.log.Warn("sweep: reading a study with an archived task", "study", p.Study, "err", err)
+					continue
+				}
+				if rec.State.Final() {
 					continue
 				}
 				msg := "a " + t.Type + " task was abandoned after its last retry"
 				if t.LastErr != "" {
 					msg += ": " + t.LastErr
 				}
-				s.fail(ctx, p.Study, msg)
-				failed++
+				if s.fail(ctx, p.Study, msg) {
+					failed++
+				}
 			}
 			if len(tasks) < 100 {
 				break
@@ -54,16 +68,24 @@ func (s *Server) sweepArchived(ctx context.Context) int {
 	return failed
 }
 
-// sweepLoop runs sweepArchived every sweepInterval until ctx ends.
+// sweepOnce is the sweeper's default work: one sweepArchived.
+func (s *Server) sweepOnce(ctx context.Context) {
+	if n := s.sweepArchived(ctx); n > 0 {
+		s.log.Info("sweep: failed studies with abandoned tasks", "studies", n)
+	}
+}
+
+// sweepLoop runs s.sweep every s.sweepEvery until ctx ends. Start runs it
+// on its own goroutine and Shutdown waits for it to return.
 func (s *Server) sweepLoop(ctx context.Context) {
-	t := time.NewTicker(sweepInterval)
+	t := time.NewTicker(s.sweepEvery)
 	defer t.Stop()
 	for {
 		select {
 		case <-ctx.Done():
 			return
 		case <-t.C:
-			s.sweepArchived(ctx)
+			s.sweep(ctx)
 		}
 	}
 }

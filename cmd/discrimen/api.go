@@ -17,6 +17,7 @@ import (
 
 	"discrimen/api"
 	"discrimen/models"
+	"discrimen/worker"
 )
 
 func init() { extraCommands["api"] = cmdAPI }
@@ -100,6 +101,13 @@ func serveHTTP(ctx context.Context, ln net.Listener, h http.Handler, log *slog.L
 	return err
 }
 
+// closeClient closes the API's queue client as the command exits.
+func closeClient(c *worker.Client, log *slog.Logger) {
+	if err := c.Close(); err != nil {
+		log.Warn("closing the Redis client", "err", err)
+	}
+}
+
 // buildAPI wires the API to a registry that also carries the queue's
 // metrics.
 func buildAPI(cfg api.Config, backend api.Backend, reg *prometheus.Registry) (*api.Server, error) {
@@ -147,7 +155,7 @@ func cmdAPI(args []string, stdout, stderr io.Writer) int {
 		fmt.Fprintln(stderr, "discrimen api:", err)
 		return 1
 	}
-	defer client.Close()
+	defer closeClient(client, log)
 	h, err := buildAPI(cfg, client, reg)
 	if err != nil {
 		fmt.Fprintln(stderr, "discrimen api:", err)

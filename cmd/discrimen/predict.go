@@ -120,7 +120,10 @@ func cmdPredict(args []string, stdout, stderr io.Writer) int {
 		}
 		return 0
 	}
-	writePredictTable(stdout, d, preds)
+	if err := writePredictTable(stdout, d, preds); err != nil {
+		fmt.Fprintln(stderr, "discrimen predict: writing the table:", err)
+		return 1
+	}
 	return 0
 }
 
@@ -219,7 +222,9 @@ func loadStudyFile(path string, stderr io.Writer) (*models.Study, int) {
 	return s, 0
 }
 
-func writePredictTable(w io.Writer, d *models.Design, preds []models.HypothesisPrediction) {
+// writePredictTable writes the table; its error is the first failed write
+// (the tabwriters' Flush reports it).
+func writePredictTable(w io.Writer, d *models.Design, preds []models.HypothesisPrediction) error {
 	fmt.Fprintf(w, "design %s: %d streams, %d items, validity %.2f, measures %s\n\n",
 		d.Name, d.Streams, d.Items, d.Validity, strings.Join(d.Measures, ","))
 	// Names and families read left-aligned: pad them to one width so the
@@ -250,7 +255,9 @@ func writePredictTable(w io.Writer, d *models.Design, preds []models.HypothesisP
 				p.Valid.RTms[c], p.Valid.Accuracy[c], p.Invalid.RTms[c], p.Invalid.Accuracy[c], p.Invalid.Misdirected[c], cens)
 		}
 	}
-	tw.Flush()
+	if err := tw.Flush(); err != nil {
+		return err
+	}
 	fmt.Fprintln(w)
 	fmt.Fprintf(w, "parameters used (free ones at the median of their generating distribution unless --set):\n")
 	for _, p := range preds {
@@ -271,7 +278,7 @@ func writePredictTable(w io.Writer, d *models.Design, preds []models.HypothesisP
 		}
 		fmt.Fprintln(tw)
 	}
-	tw.Flush()
+	return tw.Flush()
 }
 
 func formatParams(m map[string]float64) string {

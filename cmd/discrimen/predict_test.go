@@ -3,6 +3,7 @@ package main
 import (
 	"bytes"
 	"encoding/json"
+	"errors"
 	"os"
 	"path/filepath"
 	"reflect"
@@ -246,5 +247,30 @@ func TestPredictBadSet(t *testing.T) {
 				}
 			}
 		})
+	}
+}
+
+// shortWriter accepts n bytes, then fails every write.
+type shortWriter struct{ n int }
+
+var errShortWrite = errors.New("disk full")
+
+func (w *shortWriter) Write(p []byte) (int, error) {
+	if len(p) > w.n {
+		k := w.n
+		w.n = 0
+		return k, errShortWrite
+	}
+	w.n -= len(p)
+	return len(p), nil
+}
+
+// TestPredictTableWriteFails: a table that cannot be written (a full disk,
+// a closed pipe) is exit 1 with the reason, not exit 0 with half a table.
+func TestPredictTableWriteFails(t *testing.T) {
+	var errOut bytes.Buffer
+	code := cmdPredict(nil, &shortWriter{n: 300}, &errOut)
+	if code != 1 || !strings.Contains(errOut.String(), "disk full") {
+		t.Fatalf("exit %d, stderr %q; want 1 naming the write error", code, errOut.String())
 	}
 }

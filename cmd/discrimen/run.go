@@ -62,13 +62,13 @@ func cmdRun(args []string, stdout, stderr io.Writer) int {
 					progressbar.OptionClearOnFinish(),
 				)
 			}
-			bar.Set(done)
+			_ = bar.Set(done) // the bar only draws on stderr; a failed draw must not stop the run
 		}
 		fmt.Fprintf(stderr, "discrimen: building prediction grids for %s ...\n", study.Name)
 	}
 	rep, err := recovery.Run(ctx, study, opt)
 	if bar != nil {
-		bar.Finish()
+		_ = bar.Finish() // as above: drawing only
 	}
 	if err != nil {
 		if errors.Is(err, recovery.ErrCanceled) {

@@ -100,7 +100,7 @@ func cmdServe(args []string, stdout, stderr io.Writer) int {
 		fmt.Fprintln(stderr, "discrimen serve:", err)
 		return 1
 	}
-	defer client.Close()
+	defer closeClient(client, log)
 	h, err := buildAPI(cfg, client, reg)
 	if err != nil {
 		fmt.Fprintln(stderr, "discrimen serve:", err)

@@ -34,7 +34,9 @@ func TestMain(m *testing.M) {
 	}
 	binDir = dir
 	code := m.Run()
-	os.RemoveAll(dir)
+	if err := os.RemoveAll(dir); err != nil {
+		fmt.Fprintln(os.Stderr, "removing the test binaries:", err)
+	}
 	os.Exit(code)
 }
 
@@ -110,7 +112,9 @@ func startChildEnv(t testing.TB, name string, env []string, args ...string) *chi
 		select {
 		case <-c.done:
 		default:
-			c.cmd.Process.Kill()
+			if err := c.cmd.Process.Kill(); err != nil {
+				t.Logf("killing %s: %v", c.name, err) // it may have exited meanwhile; done says
+			}
 			<-c.done
 		}
 		if t.Failed() {
@@ -147,7 +151,9 @@ func (c *child) waitFor(t testing.TB, re *regexp.Regexp, timeout time.Duration) 
 // stop sends SIGTERM and returns the exit code.
 func (c *child) stop(t testing.TB, timeout time.Duration) int {
 	t.Helper()
-	c.cmd.Process.Signal(syscall.SIGTERM)
+	if err := c.cmd.Process.Signal(syscall.SIGTERM); err != nil {
+		t.Fatalf("SIGTERM to %s: %v", c.name, err)
+	}
 	select {
 	case <-c.done:
 	case <-time.After(timeout):
@@ -209,7 +215,9 @@ func submitAndWait(t testing.TB, base, key, study string, timeout time.Duration)
 		ID        string `json:"id"`
 		StatusURL string `json:"status_url"`
 	}
-	json.Unmarshal(body, &sub)
+	if err := json.Unmarshal(body, &sub); err != nil {
+		t.Fatalf("POST body %s: %v", body, err)
+	}
 	deadline := time.Now().Add(timeout)
 	for {
 		code, body := httpDo(t, "GET", base+sub.StatusURL, key, nil)

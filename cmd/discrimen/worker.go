@@ -223,14 +223,22 @@ func cmdWorker(args []string, stdout, stderr io.Writer) int {
 	if *metricsAddr != "" {
 		mux := http.NewServeMux()
 		mux.Handle("GET /metrics", promhttp.HandlerFor(reg, promhttp.HandlerOpts{}))
-		mux.HandleFunc("GET /healthz", func(w http.ResponseWriter, _ *http.Request) { io.WriteString(w, "{\"status\": \"ok\"}\n") })
+		mux.HandleFunc("GET /healthz", func(w http.ResponseWriter, _ *http.Request) {
+			_, _ = io.WriteString(w, "{\"status\": \"ok\"}\n") // a failed write means the prober left
+		})
 		metrics = api.NewHTTPServer(*metricsAddr, mux, log)
 		ln, err := listen(*metricsAddr)
 		if err != nil {
 			fmt.Fprintln(stderr, "discrimen worker:", err)
 			return 1
 		}
-		go metrics.Serve(ln)
+		go func() {
+			// The worker runs on without its metrics; the log says why
+			// they stopped.
+			if err := metrics.Serve(ln); !errors.Is(err, http.ErrServerClosed) {
+				log.Warn("worker metrics stopped", "addr", ln.Addr().String(), "err", err)
+			}
+		}()
 		log.Info("worker metrics", "addr", ln.Addr().String())
 	}
 	if err := srv.Start(); err != nil {
@@ -243,7 +251,9 @@ func cmdWorker(args []string, stdout, stderr io.Writer) int {
 	srv.Shutdown()
 	if metrics != nil {
 		sctx, cancel := context.WithTimeout(context.Background(), 5*time.Second)
-		metrics.Shutdown(sctx)
+		if err := metrics.Shutdown(sctx); err != nil {
+			log.Warn("stopping the metrics server", "err", err)
+		}
 		cancel()
 	}
 	return 0

@@ -35,7 +35,11 @@ func TestWorkerKilled(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	defer client.Close()
+	t.Cleanup(func() {
+		if err := client.Close(); err != nil {
+			t.Errorf("closing the client: %v", err)
+		}
+	})
 	workerArgs := []string{"worker", "--redis", r.URL, "--concurrency", "1", "--shard-fits", "30", "--metrics-listen", ""}
 	a := startChild(t, "worker A", workerArgs...)
 	a.waitFor(t, regexpMust(`msg="worker ready"`), 30*time.Second)
@@ -54,7 +58,10 @@ func TestWorkerKilled(t *testing.T) {
 		if err != nil {
 			t.Fatal(err)
 		}
-		runs, _ := client.Runs(ctx, st.ID)
+		runs, err := client.Runs(ctx, st.ID)
+		if err != nil {
+			t.Fatal(err)
+		}
 		if s.ShardsDone >= 2 && len(runs) > s.ShardsDone {
 			break
 		}

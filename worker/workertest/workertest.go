@@ -69,13 +69,16 @@ func New(tb testing.TB, dbOffset int) *Redis {
 	if db == 0 {
 		tb.Fatalf("workertest: refusing to flush database 0; point %s at a spare database such as /9", EnvVar)
 	}
-	pw, _ := u.User.Password()
+	pw, _ := u.User.Password() // no password in the URL means none
 	opt := asynq.RedisClientOpt{Addr: u.Host, Password: pw, DB: db}
 	c := redis.NewClient(&redis.Options{Addr: u.Host, Password: pw, DB: db})
-	defer c.Close()
 	ctx, cancel := context.WithTimeout(context.Background(), 5*time.Second)
 	defer cancel()
-	if err := c.FlushDB(ctx).Err(); err != nil {
+	err = c.FlushDB(ctx).Err()
+	if cerr := c.Close(); err == nil {
+		err = cerr
+	}
+	if err != nil {
 		tb.Fatalf("workertest: flushing %s db %d: %v", u.Host, db, err)
 	}
 	u.Path = fmt.Sprintf("/%d", db)
@@ -86,7 +89,11 @@ func New(tb testing.TB, dbOffset int) *Redis {
 // of the test.
 func (r *Redis) Client(tb testing.TB) *redis.Client {
 	c := redis.NewClient(&redis.Options{Addr: r.Opt.Addr, Password: r.Opt.Password, DB: r.Opt.DB})
-	tb.Cleanup(func() { c.Close() })
+	tb.Cleanup(func() {
+		if err := c.Close(); err != nil {
+			tb.Errorf("workertest: closing the test's Redis client: %v", err)
+		}
+	})
 	return c
 }
 
