@@ -5,6 +5,7 @@ import (
 	"discrimen/internal/parallel"
 	"errors"
 	"fmt"
+	"math"
 	"runtime"
 	"sort"
 	"strconv"
@@ -181,11 +182,28 @@ func (c *Compiled) RunShard(ctx context.Context, spec ShardSpec, progress func(f
 		ds := Simulate(datasetRand(c.Study.Seed, d.Name, gen.Name, p, "trials"), d, gen, p, truth, pr)
 		sum := summarise(d, ds)
 		pres := ParticipantResult{Participant: p, Truth: truth}
-		for j, f := range fitters {
-			fit := f.fit(sum, j == spec.Generator)
+		for _, f := range fitters {
+			fit := f.fit(sum, false)
 			fit.Design, fit.Generator, fit.Participant = d.Name, gen.Name, p
+			fit.TruthLogL = math.NaN()
 			pres.Fits = append(pres.Fits, fit)
 		}
+		for j, in := range inContention(pres.Fits) {
+			if in {
+				fitters[j].polish(sum, &pres.Fits[j])
+			}
+		}
+		self := &pres.Fits[spec.Generator]
+		fs := fitters[spec.Generator]
+		if !self.Failed {
+			sp := newSpace(fs.grid, sum)
+			th := thetaOf(sp, self)
+			if sp.totalDims > 0 {
+				self.SE, self.SEReliable, self.SENote = fs.standardErrors(sum, sp, th)
+			}
+			self.Intervals = fs.profileIntervals(sum, sp, th, -self.LogL)
+		}
+		self.TruthLogL = fs.truthLogL(sum, truth.Free)
 		res.Participants = append(res.Participants, pres)
 		if progress != nil {
 			progress(len(fitters))

@@ -285,6 +285,7 @@ func (c *Compiled) designReport(di int, parts [][]ParticipantResult) DesignRepor
 		Mimicry:               []MimicryReport{},
 		Recovery:              []RecoveryPoints{},
 	}
+	dr.FitFailures.MaxTruthGap = NullFloat(math.NaN())
 	for g := 0; g < H; g++ {
 		for _, p := range parts[g] {
 			for _, f := range p.Fits {
@@ -293,6 +294,17 @@ func (c *Compiled) designReport(di int, parts [][]ParticipantResult) DesignRepor
 					dr.FitFailures.Failed++
 				} else if !f.Converged {
 					dr.FitFailures.NotConverged++
+				}
+			}
+			if g < len(p.Fits) && !math.IsNaN(p.Fits[g].TruthLogL) {
+				f := p.Fits[g]
+				dr.FitFailures.TruthChecked++
+				gap := f.TruthLogL - f.LogL
+				if f.Failed || gap > truthTolerance {
+					dr.FitFailures.BelowTruth++
+				}
+				if !f.Failed && (math.IsNaN(float64(dr.FitFailures.MaxTruthGap)) || gap > float64(dr.FitFailures.MaxTruthGap)) {
+					dr.FitFailures.MaxTruthGap = NullFloat(gap)
 				}
 			}
 		}
