@@ -104,10 +104,13 @@ type htmlView struct {
 // settings it was made with. Missing marks a report without the block
 // (every value is then a dash).
 type methodView struct {
-	Missing                                bool
-	Starts, StartSpacing, RescoreWindow    string
-	LapseMax, ARMax                        string
-	SERoughStep, SEFineStep, SEChange, ITI string
+	Missing                                    bool
+	Starts, StartSpacing, RescoreWindow        string
+	LapseMax, ARMax                            string
+	SERoughStep, SEFineStep, SEChange, ITI     string
+	GridTolerance, JumpWidth, ContentionWindow string
+	ModeTries, ModeWindow, ProfileThreshold    string
+	TruthTolerance                             string
 }
 
 // newMethodView formats m for the method notes: counts under eleven in
@@ -116,13 +119,17 @@ func newMethodView(m recovery.Method) methodView {
 	if m == (recovery.Method{}) {
 		const dash = "—"
 		return methodView{Missing: true, Starts: dash, StartSpacing: dash, RescoreWindow: dash, LapseMax: dash, ARMax: dash,
-			SERoughStep: dash, SEFineStep: dash, SEChange: dash, ITI: dash}
+			SERoughStep: dash, SEFineStep: dash, SEChange: dash, ITI: dash, GridTolerance: dash, JumpWidth: dash,
+			ContentionWindow: dash, ModeTries: dash, ModeWindow: dash, ProfileThreshold: dash, TruthTolerance: dash}
 	}
 	return methodView{
 		Starts: strconv.Itoa(m.Starts), StartSpacing: countWord(m.StartSpacing), RescoreWindow: fmtG(m.RescoreWindow, 3),
 		LapseMax: fmtG(m.LapseMax, 3), ARMax: fmtG(m.ARMax, 3),
 		SERoughStep: fmtG(100*m.SERoughStep, 3) + "%", SEFineStep: fractionOf(m.SEFineStep), SEChange: fmtG(100*m.SEMaxChange, 3) + "%",
-		ITI: fmtG(float64(m.ITIms)/1000, 3) + " s",
+		ITI:           fmtG(float64(m.ITIms)/1000, 3) + " s",
+		GridTolerance: fmtG(m.GridTolerance, 3), JumpWidth: fmtG(m.JumpWidth, 3), ContentionWindow: fmtG(m.ContentionWindow, 3),
+		ModeTries: countWord(m.ModeTries), ModeWindow: fmtG(m.ModeWindow, 3), ProfileThreshold: fmtG(m.ProfileThreshold, 5),
+		TruthTolerance: fmtG(m.TruthTolerance, 3),
 	}
 }
 

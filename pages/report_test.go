@@ -416,12 +416,12 @@ func TestHTMLMethodNotesReadReport(t *testing.T) {
 		not    []string
 	}{
 		{"this build", recovery.CurrentMethod(), []string{
-			"from the 3 best grid nodes, at least two grid steps apart", "within 5 units of −ln L", "(in (0, 0.5))", "(in (−0.99, 0.99))",
+			"from the 3 best grid nodes, at least two grid steps apart", "within 1 of the best one in −ln L", "costs more than 0.5 of ln L", "within 1.9207 = χ²₁(0.95)/2", "more than 1e−06 below it", "(in (0, 0.5))", "(in (−0.99, 0.99))",
 			"steps of 1% of each range", "steps of half those", "by more than 20% between", "assume an inter-trial interval of 1 s.",
 		}, []string{"does not record the constants"}},
 		{"other settings", recovery.Method{Starts: 7, StartSpacing: 12, RescoreWindow: 2.5, LapseMax: 0.4, ARMax: 0.9,
 			SERoughStep: 0.02, SEFineStep: 0.25, SEMaxChange: 0.3, ITIms: 1500}, []string{
-			"from the 7 best grid nodes, at least 12 grid steps apart", "within 2.5 units of −ln L", "(in (0, 0.4))", "(in (−0.9, 0.9))",
+			"from the 7 best grid nodes, at least 12 grid steps apart", "within 2.5 of the best one in −ln L", "(in (0, 0.4))", "(in (−0.9, 0.9))",
 			"steps of 2% of each range", "steps of 0.25 times those", "by more than 30% between", "assume an inter-trial interval of 1.5 s.",
 		}, []string{"from the 3 best", "steps of half those", "does not record the constants"}},
 		{"no method block", recovery.Method{}, []string{"does not record the constants of its method", "from the — best grid nodes", "(in (0, —))"},

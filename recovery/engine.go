@@ -188,9 +188,19 @@ func (c *Compiled) RunShard(ctx context.Context, spec ShardSpec, progress func(f
 			fit.TruthLogL = math.NaN()
 			pres.Fits = append(pres.Fits, fit)
 		}
-		for j, in := range inContention(pres.Fits) {
-			if in {
-				fitters[j].polish(sum, &pres.Fits[j])
+		// Every candidate in contention is polished alike; the self-fit is
+		// polished too (its ln L is checked against the truth's), and if
+		// that brings it into contention, whoever joins the contention
+		// with it is polished in turn, so no winner is decided between a
+		// polished and an unpolished fit.
+		fitters[spec.Generator].polish(sum, &pres.Fits[spec.Generator])
+		for changed := true; changed; {
+			changed = false
+			for j, in := range inContention(pres.Fits) {
+				if in && !pres.Fits[j].Polished && !pres.Fits[j].Failed {
+					fitters[j].polish(sum, &pres.Fits[j])
+					changed = true
+				}
 			}
 		}
 		self := &pres.Fits[spec.Generator]

@@ -17,8 +17,10 @@ const (
 	// apart along some parameter (Chebyshev distance of grid indices).
 	startSpacing = 2
 	// rescoreWindow: every run whose grid −ln L ends within this of the
-	// best run's is re-scored with exact predictions.
-	rescoreWindow = 5
+	// best run's is re-scored with exact predictions. The refined grids
+	// are within gridTolerance of exact −ln L except at jumps, which they
+	// locate, so a window of one ln unit keeps every run that can win.
+	rescoreWindow = 1
 )
 
 // The stopping rules of every Nelder–Mead run (searchSettings).
@@ -176,15 +178,30 @@ func (f *fitter) starts(s *sufficientStats, sp space) [][]float64 {
 		node int
 		v    float64
 	}
+	// Starts come from the grid's original uniform nodes (refinement's
+	// added nodes are for accuracy, not coverage), every startStride-th
+	// one in each parameter of a grid of two or more.
+	stride := 1
+	if dims >= 2 {
+		stride = startStride
+	}
 	nodes := c.Nodes()
-	all := make([]scored, nodes)
+	all := make([]scored, 0, nodes)
+	_, lapse, ar := sp.split(base)
 	for n := 0; n < nodes; n++ {
-		_, lapse, ar := sp.split(base)
+		coarse := true
+		for i := 0; i < dims; i++ {
+			a := c.axes[i][c.axisIndex(n, i)]
+			coarse = coarse && a == math.Trunc(a) && int(a)%stride == 0
+		}
+		if !coarse {
+			continue
+		}
 		v := logLik(s, c.lay, c.node(n), lapse, ar, nil)
 		if math.IsNaN(v) {
 			v = math.Inf(1)
 		}
-		all[n] = scored{n, v}
+		all = append(all, scored{n, v})
 	}
 	sort.SliceStable(all, func(i, j int) bool { return all[i].v < all[j].v })
 	var picked []int
@@ -197,9 +214,9 @@ func (f *fitter) starts(s *sufficientStats, sp space) [][]float64 {
 		for _, p := range picked {
 			d := 0
 			for i := 0; i < dims; i++ {
-				a := (sc.node / c.strides[i]) % c.points
-				b := (p / c.strides[i]) % c.points
-				d = max(d, abs(a-b))
+				a := c.axes[i][c.axisIndex(sc.node, i)]
+				b := c.axes[i][c.axisIndex(p, i)]
+				d = max(d, int(math.Abs(a-b)+1e-9))
 			}
 			far = far && d >= startSpacing
 		}
@@ -222,6 +239,15 @@ func (f *fitter) starts(s *sufficientStats, sp space) [][]float64 {
 func searchSettings(dims int) nmSettings {
 	return nmSettings{Size: searchSimplex, MaxEvals: searchEvalsPerDim * dims, Absolute: searchAbsolute, Relative: searchRelative,
 		Stall: searchStallPerDim * dims, Spread: searchSpread}
+}
+
+// localSettings are searchSettings with a simplex of 0.1 instead of 0.5:
+// a search that should stay in the mode it starts in, on a likelihood with
+// many modes a few grid steps apart.
+func localSettings(dims int) nmSettings {
+	set := searchSettings(dims)
+	set.Size = 0.1
+	return set
 }
 
 func abs(x int) int {
@@ -291,10 +317,16 @@ func (f *fitter) fit(s *sufficientStats, withSE bool) Fit {
 			continue
 		}
 		scored = append(scored, r.theta)
+		// The exact prediction at the run's end, with lapse and eeg_ar
+		// re-fitted to it (they were fitted to the surrogate's).
+		th := append([]float64(nil), r.theta...)
+		f.grid.exactInto(th[:sp.dimsHyp], f.pred, f.ws, f.pr)
+		f.nuisanceSearch(s, sp, th)
 		var e Measurement
-		v := f.negLogLik(s, sp, r.theta, true, &e)
+		_, lapse, ar := sp.split(th)
+		v := logLik(s, f.grid.lay, f.pred, lapse, ar, &e)
 		if v < nll {
-			nll, est, bestTheta = v, e, r.theta
+			nll, est, bestTheta = v, e, th
 			status, converged = r.status, r.converged
 		}
 	}
@@ -486,18 +518,27 @@ func (f *fitter) truthLogL(s *sufficientStats, truth []float64) float64 {
 	return -f.nuisanceSearch(s, sp, theta)
 }
 
-// Exact polish settings: polishRounds rounds of a parabolic step along
-// each hypothesis parameter, the first with a step of one grid cell, each
-// later one polishShrink times shorter.
+// Exact polish settings: polishRounds rounds of a compass step along
+// each hypothesis parameter, the first with a step of polishFirstStep grid
+// cells (the refined grid puts the estimate within one), each later one
+// polishShrink times shorter.
 const (
-	polishRounds = 4
-	polishShrink = 0.25
+	polishRounds    = 3
+	polishShrink    = 0.25
+	polishFirstStep = 0.5 // grid cells
+	// modeWindow: another mode of the grid within this of the estimate's
+	// −ln L (lapse and eeg_ar held) is searched too.
+	modeWindow = 2
+	modeTries  = 2
+	// startStride thins the nodes that starts are picked from on grids of
+	// two or more parameters.
+	startStride = 2
 	// polishStop ends the rounds early once a round lowers −ln L by less.
-	polishStop = 1e-5
+	polishStop = 1e-7
 	// contentionWindow: a candidate is in contention for a dataset, and
 	// polished, when under any criterion it ends within this (in criterion
 	// units, 2 ln-units each) of that criterion's best candidate.
-	contentionWindow = 6
+	contentionWindow = 2
 )
 
 // thetaOf rebuilds the natural search vector of a finished fit.
@@ -518,8 +559,8 @@ func thetaOf(sp space, out *Fit) []float64 {
 // truth):
 //
 //  1. a profile pass: −ln L at every grid node with the fit's lapse and
-//     eeg_ar; a node better than the estimate's own grid value starts one
-//     more grid search, re-scored exactly;
+//     eeg_ar; the best local minima away from the estimate within
+//     modeWindow of it are scored exactly;
 //  2. a coordinate search on exact predictions over the hypothesis
 //     parameters (exactCoordinatePolish), each point's measurement terms
 //     re-fitted.
@@ -547,27 +588,47 @@ func (f *fitter) polish(s *sufficientStats, out *Fit) {
 		_, lapse, ar := sp.split(theta)
 		g.Interpolate(theta[:sp.dimsHyp], f.pred, f.ws)
 		here := logLik(s, g.lay, f.pred, lapse, ar, nil)
-		bestNode, bestV := -1, here
-		for n := 0; n < g.Nodes(); n++ {
-			if v := logLik(s, g.lay, g.node(n), lapse, ar, nil); v < bestV-1e-9 {
-				bestNode, bestV = n, v
+		// Other modes: grid nodes at least two grid steps from the
+		// estimate in some parameter that are local minima of the grid's
+		// −ln L (lapse and eeg_ar held) and better than, or within
+		// modeWindow of, the estimate's own grid value. The grid may be
+		// least trustworthy where modes crowd, so the best modeTries of
+		// them are scored exactly, each with its measurement terms
+		// re-fitted, rather than searched on the grid.
+		nodes := g.Nodes()
+		table := make([]float64, nodes)
+		for n := range table {
+			table[n] = logLik(s, g.lay, g.node(n), lapse, ar, nil)
+		}
+		type mode struct {
+			node int
+			v    float64
+		}
+		var modes []mode
+		for n := range table {
+			if !(table[n] <= here+modeWindow) {
+				continue
+			}
+			far, local := false, true
+			for i := 0; i < sp.dimsHyp; i++ {
+				k := g.axisIndex(n, i)
+				far = far || math.Abs(g.axes[i][k]-g.coord(i, theta[i])) >= 2
+				if k > 0 && table[n-g.strides[i]] < table[n] {
+					local = false
+				}
+				if k < len(g.axes[i])-1 && table[n+g.strides[i]] < table[n] {
+					local = false
+				}
+			}
+			if far && local {
+				modes = append(modes, mode{n, table[n]})
 			}
 		}
-		if bestNode >= 0 {
-			start := append([]float64(nil), theta...)
-			g.nodeParams(bestNode, start[:sp.dimsHyp])
-			z0 := make([]float64, sp.totalDims)
-			sp.toSearch(start, z0)
-			th := make([]float64, sp.totalDims)
-			res := nelderMead(func(z []float64) float64 {
-				sp.toNatural(z, th)
-				return f.negLogLik(s, sp, th, false, nil)
-			}, z0, searchSettings(sp.totalDims))
-			out.Evaluations += res.Evals
-			if !math.IsInf(res.F, 0) && !math.IsNaN(res.F) {
-				sp.toNatural(res.X, th)
-				try(th)
-			}
+		sort.SliceStable(modes, func(a, b int) bool { return modes[a].v < modes[b].v })
+		for _, m := range modes[:min(len(modes), modeTries)] {
+			th := append([]float64(nil), theta...)
+			g.nodeParams(m.node, th[:sp.dimsHyp])
+			try(th)
 		}
 	}
 	if sp.dimsHyp > 0 {
@@ -610,13 +671,13 @@ func inContention(fits []Fit) []bool {
 	return out
 }
 
-// exactCoordinatePolish lowers the exact −ln L from *best (at *theta) by
-// parabolic steps along one hypothesis parameter at a time: with the
-// values at x−h, x and x+h it moves to the parabola's vertex (clamped to
-// [x−2h, x+2h] and the range) when that is lower, else to the lower
-// neighbour when one is lower. The measurement terms are re-fitted at
-// every point. Each of polishRounds rounds visits every parameter, with h
-// one grid cell in the first and polishShrink times the last after.
+// exactCoordinatePolish lowers the exact −ln L from *best (at *theta) by a
+// compass search along one hypothesis parameter at a time: it moves to
+// x−h when that is lower, else to x+h when that is lower (the likelihood
+// has kinks, where a parabola through three points points the wrong way).
+// The measurement terms are re-fitted at every point. Each of
+// polishRounds rounds visits every parameter, with h polishFirstStep grid
+// cells in the first and polishShrink times the last after.
 func (f *fitter) exactCoordinatePolish(s *sufficientStats, sp space, start []float64, best *float64, theta *[]float64) {
 	g := f.grid
 	x := append([]float64(nil), start...)
@@ -627,7 +688,7 @@ func (f *fitter) exactCoordinatePolish(s *sufficientStats, sp space, start []flo
 	cells := float64(max(g.points, 9) - 1)
 	h := make([]float64, sp.dimsHyp)
 	for j := range h {
-		h[j] = (sp.hi[j] - sp.lo[j]) / cells
+		h[j] = polishFirstStep * (sp.hi[j] - sp.lo[j]) / cells
 	}
 	fx := *best
 	for round := 0; round < polishRounds; round++ {
@@ -639,27 +700,20 @@ func (f *fitter) exactCoordinatePolish(s *sufficientStats, sp space, start []flo
 				return eval(th), th
 			}
 			fl, tl := at(x[j] - h[j])
-			fr, tr := at(x[j] + h[j])
-			// Vertex of the parabola through (−h, fl), (0, fx), (h, fr).
-			den := fl - 2*fx + fr
 			cand, fc := x, fx
 			if fl < fc {
 				cand, fc = tl, fl
-			}
-			if fr < fc {
+			} else if fr, tr := at(x[j] + h[j]); fr < fc {
+				// The right side is tried only when the left did not gain.
 				cand, fc = tr, fr
-			}
-			if den > 0 {
-				step := 0.5 * h[j] * (fl - fr) / den
-				step = math.Max(-2*h[j], math.Min(2*h[j], step))
-				if fv, tv := at(x[j] + step); fv < fc {
-					cand, fc = tv, fv
-				}
 			}
 			x, fx = cand, fc
 			h[j] *= polishShrink
 		}
-		if before-fx < polishStop {
+		// A round that moved nothing with its step may still move with
+		// the next, shorter one; only a round that moved and gained
+		// almost nothing ends the polish.
+		if fx < before && before-fx < polishStop {
 			break
 		}
 	}

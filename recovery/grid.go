@@ -5,6 +5,7 @@ import (
 	"discrimen/internal/parallel"
 	"fmt"
 	"math"
+	"sort"
 
 	"discrimen/models"
 )
@@ -26,9 +27,13 @@ type PredictionGrid struct {
 	lay        layout
 	lo, hi     []float64
 	logScale   []bool
-	points     int
-	values     []float64 // node-major: node index × lay.size()
+	points     int         // initial nodes per parameter (uniform in grid units)
+	axes       [][]float64 // node positions per parameter, in grid units [0, points−1], ascending
+	values     []float64   // node-major: node index × lay.size()
 	strides    []int
+	// refine records what refinement did: nodes added, cells still over
+	// tolerance at the narrowest width (jumps), and their positions.
+	refine refineResult
 }
 
 // BuildPredictionGrid computes the grid of exact predictions with the given number
@@ -53,12 +58,14 @@ func BuildPredictionGrid(ctx context.Context, l *models.Listener, d *models.Desi
 	if c.points == 0 {
 		return c, nil
 	}
-	total := 1
-	c.strides = make([]int, dims)
-	for i := dims - 1; i >= 0; i-- {
-		c.strides[i] = total
-		total *= c.points
+	c.axes = make([][]float64, dims)
+	for i := range c.axes {
+		c.axes[i] = make([]float64, c.points)
+		for k := range c.axes[i] {
+			c.axes[i][k] = float64(k)
+		}
 	}
+	total := c.setStrides()
 	size := c.lay.size()
 	c.values = make([]float64, total*size)
 	type scratch struct {
@@ -85,8 +92,28 @@ func BuildPredictionGrid(ctx context.Context, l *models.Listener, d *models.Desi
 	if err != nil {
 		return nil, fmt.Errorf("recovery: prediction grid for %s: %w", h.Name, err)
 	}
+	if dims == 1 {
+		if err := c.refine1D(ctx, workers); err != nil {
+			return nil, fmt.Errorf("recovery: refining the prediction grid for %s: %w", h.Name, err)
+		}
+	}
 	return c, nil
 }
+
+// setStrides computes the node-major strides from the axes and returns the
+// number of nodes.
+func (c *PredictionGrid) setStrides() int {
+	total := 1
+	c.strides = make([]int, len(c.axes))
+	for i := len(c.axes) - 1; i >= 0; i-- {
+		c.strides[i] = total
+		total *= len(c.axes[i])
+	}
+	return total
+}
+
+// axisIndex is node's index along parameter i.
+func (c *PredictionGrid) axisIndex(node, i int) int { return (node / c.strides[i]) % len(c.axes[i]) }
 
 // Nodes returns the number of grid nodes (0 without a grid).
 func (c *PredictionGrid) Nodes() int { return len(c.values) / max(1, c.lay.size()) }
@@ -113,8 +140,7 @@ func (c *PredictionGrid) value(i int, g float64) float64 {
 
 func (c *PredictionGrid) nodeParams(node int, x []float64) {
 	for i := range x {
-		k := (node / c.strides[i]) % c.points
-		x[i] = c.value(i, float64(k))
+		x[i] = c.value(i, c.axes[i][c.axisIndex(node, i)])
 	}
 }
 
@@ -141,11 +167,10 @@ func (c *PredictionGrid) Interpolate(x, dst []float64, ws *models.Workspace) {
 	var frac [4]float64
 	for i := 0; i < dims; i++ {
 		g := c.coord(i, x[i])
-		k := int(g)
-		if k >= c.points-1 {
-			k = c.points - 2
-		}
-		base[i], frac[i] = k, g-float64(k)
+		ax := c.axes[i]
+		k := sort.SearchFloat64s(ax, g) - 1 // last node at or below g
+		k = max(0, min(k, len(ax)-2))
+		base[i], frac[i] = k, math.Max(0, math.Min(1, (g-ax[k])/(ax[k+1]-ax[k])))
 	}
 	for j := range dst[:size] {
 		dst[j] = 0
@@ -206,12 +231,14 @@ type SurrogateError struct {
 	// neighbouring grid nodes (an invalid trial flipping between a
 	// recovered and a misdirected report), where no grid closes the gap.
 	Jumps bool `json:"jumps"`
+	// JumpsAt are the parameter values of the jumps (one-parameter grids).
+	JumpsAt []float64 `json:"jumps_at"`
 }
 
 // MeasureError compares interpolated with exact predictions at n points
 // drawn uniformly (in grid units) from the seeded stream.
 func (c *PredictionGrid) MeasureError(seed uint64, n int) SurrogateError {
-	e := SurrogateError{Hypothesis: c.Hypothesis.Name, Points: n, GridNodes: c.Nodes()}
+	e := SurrogateError{Hypothesis: c.Hypothesis.Name, Points: n, GridNodes: c.Nodes(), JumpsAt: []float64{}}
 	dims := len(c.Names)
 	if dims == 0 || c.points == 0 {
 		e.Points = 0
@@ -223,6 +250,7 @@ func (c *PredictionGrid) MeasureError(seed uint64, n int) SurrogateError {
 	ws := c.listener.NewWorkspace()
 	x := make([]float64, dims)
 	var rtErr, nErr []float64
+	typ := newTypicalData(c.design, c.lay)
 	for range n {
 		for i := range x {
 			x[i] = c.value(i, r.Float64()*float64(c.points-1))
@@ -239,6 +267,7 @@ func (c *PredictionGrid) MeasureError(seed uint64, n int) SurrogateError {
 		for bb := 0; bb < c.lay.bmax; bb++ {
 			ne = math.Max(ne, math.Abs(a[c.lay.eeg(bb)]-b[c.lay.eeg(bb)]))
 		}
+		e.LogLikError = math.Max(e.LogLikError, typ.effect(b, a))
 		rtErr = append(rtErr, rt)
 		nErr = append(nErr, ne)
 		e.MaxRTms = math.Max(e.MaxRTms, rt)
@@ -247,5 +276,9 @@ func (c *PredictionGrid) MeasureError(seed uint64, n int) SurrogateError {
 	}
 	e.MedianRTms = median(rtErr)
 	e.MedianNeural = median(nErr)
+	e.Jumps = len(c.refine.Jumps) > 0
+	e.JumpsAt = append([]float64{}, c.refine.Jumps...)
+	e.LogLikError = math.Max(e.LogLikError, c.refine.Worst)
+	e.OverTolerance = e.LogLikError > gridTolerance
 	return e
 }

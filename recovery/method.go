@@ -39,7 +39,7 @@ type Method struct {
 	// SurrogatePoints is the number of random points at which each grid's
 	// interpolation error is measured against exact predictions.
 	SurrogatePoints int `json:"surrogate_points"`
-	// Standard errors: the rough Hessian pass steps SERoughStep of each
+	// Standard errors (secondary to the profile intervals, on the grid): the rough Hessian pass steps SERoughStep of each
 	// parameter's range, the fine pass SEFineStep of the rough SE; an SE
 	// that changes by more than SEMaxChange (relative) between steps h and
 	// 2h is unreliable; a parameter within SEEdge of its range of a bound
@@ -60,6 +60,30 @@ type Method struct {
 	BMSMaxIterations int     `json:"bms_max_iterations"`
 	// ITIms is the inter-trial interval, in ms, that testing minutes assume.
 	ITIms int `json:"iti_ms"`
+	// Grid refinement of one-parameter grids: a cell is split while its
+	// midpoint's interpolation error costs more than GridTolerance of ln L
+	// for a typical dataset; a cell narrower than JumpWidth of the range
+	// still over tolerance is a jump; at most RefineBudget nodes are added.
+	GridTolerance float64 `json:"grid_tolerance"`
+	JumpWidth     float64 `json:"jump_width"`
+	RefineBudget  int     `json:"refine_budget"`
+	// Exact polish of every candidate within ContentionWindow criterion
+	// units of a dataset's best (and of every self-fit): up to ModeTries
+	// other grid modes within ModeWindow ln-units scored exactly, then
+	// PolishRounds compass rounds per parameter from PolishFirstStep grid
+	// cells, each PolishShrink times the last.
+	ContentionWindow float64 `json:"contention_window"`
+	ModeWindow       float64 `json:"mode_window"`
+	ModeTries        int     `json:"mode_tries"`
+	PolishRounds     int     `json:"polish_rounds"`
+	PolishFirstStep  float64 `json:"polish_first_step"`
+	PolishShrink     float64 `json:"polish_shrink"`
+	// ProfileThreshold is χ²₁(0.95)/2, the rise of the profile −ln L that
+	// bounds a 95% profile-likelihood interval.
+	ProfileThreshold float64 `json:"profile_threshold"`
+	// TruthTolerance: a self-fit whose ln L ends more than this below the
+	// ln L at the generating parameters counts as below the truth.
+	TruthTolerance float64 `json:"truth_tolerance"`
 }
 
 // CurrentMethod returns the constants this build of recovery fits and
@@ -76,6 +100,10 @@ func CurrentMethod() Method {
 		FlatSE:       flatSE,
 		TieTolerance: TieTolerance,
 		BMSTolerance: bmsTol, BMSMaxIterations: bmsMaxIter,
-		ITIms: itiMs,
+		ITIms:         itiMs,
+		GridTolerance: gridTolerance, JumpWidth: jumpWidth, RefineBudget: refineBudget,
+		ContentionWindow: contentionWindow, ModeWindow: modeWindow, ModeTries: modeTries,
+		PolishRounds: polishRounds, PolishFirstStep: polishFirstStep, PolishShrink: polishShrink,
+		ProfileThreshold: profileThreshold, TruthTolerance: truthTolerance,
 	}
 }

@@ -2,6 +2,7 @@ package recovery
 
 import (
 	"math"
+	"sort"
 )
 
 // profileThreshold is χ²₁(0.95)/2: a 95% profile-likelihood interval holds
@@ -83,16 +84,16 @@ func (f *fitter) profileIntervals(s *sufficientStats, sp space, theta []float64,
 		}
 		table[n] = v
 	}
-	P := g.points
 	nuis := append([]float64(nil), theta...)
 	for j := 0; j < D; j++ {
+		P := len(g.axes[j])
 		prof := make([]float64, P)
 		arg := make([]int, P)
 		for a := range prof {
 			prof[a], arg[a] = math.Inf(1), -1
 		}
 		for n := 0; n < nodes; n++ {
-			a := (n / g.strides[j]) % P
+			a := g.axisIndex(n, j)
 			if table[n] < prof[a] {
 				prof[a], arg[a] = table[n], n
 			}
@@ -101,20 +102,41 @@ func (f *fitter) profileIntervals(s *sufficientStats, sp space, theta []float64,
 		for _, v := range prof {
 			m = math.Min(m, v)
 		}
-		// Re-fit the searched measurement terms at the grid values that
-		// can matter: near or inside the set under the fixed terms.
+		// Re-fit the searched measurement terms where it can move the
+		// set's edge: at the minimum, then at each value just outside the
+		// set, walking outwards while the re-fit brings it inside. Values
+		// inside stay inside (a re-fit only lowers −ln L).
 		if sp.lapse >= 0 || sp.ar >= 0 {
-			for a := range prof {
-				if arg[a] < 0 || prof[a] > m+profileThreshold+3 {
-					continue
+			refit := make([]bool, P)
+			do := func(a int) {
+				if a < 0 || a >= P || refit[a] || arg[a] < 0 {
+					return
 				}
+				refit[a] = true
 				copy(f.pred, g.node(arg[a]))
 				copy(nuis, theta)
 				prof[a] = math.Min(prof[a], f.nuisanceSearch(s, sp, nuis))
 			}
-			m = math.Inf(1)
-			for _, v := range prof {
-				m = math.Min(m, v)
+			lowest := 0
+			for a := range prof {
+				if prof[a] < prof[lowest] {
+					lowest = a
+				}
+			}
+			do(lowest)
+			m = math.Min(m, prof[lowest])
+			for a := 0; a < P; a++ {
+				if prof[a] > m+profileThreshold {
+					continue
+				}
+				for _, dir := range []int{-1, 1} {
+					for b := a + dir; b >= 0 && b < P && prof[b] > m+profileThreshold && !refit[b]; b += dir {
+						do(b)
+						if prof[b] > m+profileThreshold {
+							break
+						}
+					}
+				}
 			}
 		}
 		if math.IsInf(m, 0) {
@@ -139,7 +161,8 @@ func (f *fitter) readInterval(s *sufficientStats, sp space, theta []float64, nll
 			t = 0.5
 		}
 		t = math.Max(0, math.Min(1, t))
-		return g.value(j, float64(a)+t*float64(b-a))
+		ga, gb := g.axes[j][a], g.axes[j][b]
+		return g.value(j, ga+t*(gb-ga))
 	}
 	iv := NoInterval()
 	var pieces [][2]float64
@@ -218,7 +241,12 @@ func (f *fitter) readInterval(s *sufficientStats, sp space, theta []float64, nll
 	return iv
 }
 
-// nearestValue is the grid value index of parameter j nearest to v.
+// nearestValue is the index of the node of parameter j nearest to v.
 func nearestValue(g *PredictionGrid, j int, v float64) int {
-	return int(math.Round(g.coord(j, v)))
+	u, ax := g.coord(j, v), g.axes[j]
+	k := sort.SearchFloat64s(ax, u)
+	if k == len(ax) || (k > 0 && u-ax[k-1] < ax[k]-u) {
+		k--
+	}
+	return k
 }

@@ -7,6 +7,7 @@ import (
 	"fmt"
 	"math"
 	"strconv"
+	"strings"
 
 	"discrimen/models"
 )
@@ -147,6 +148,8 @@ type RecoveryPoints struct {
 	Max        NullFloat   `json:"max"`
 	Truth      []NullFloat `json:"truth"`
 	Estimate   []NullFloat `json:"estimate"`
+	// Intervals are the 95% profile-likelihood intervals of the estimates.
+	Intervals []Interval `json:"intervals"`
 }
 
 // TradeoffReport is one pair of a hypothesis's parameters.
@@ -350,6 +353,27 @@ func (c *Compiled) designReport(di int, parts [][]ParticipantResult) DesignRepor
 				rel = append(rel, f.SEReliable)
 			}
 			pr := RecoverParam(truth, e, se, rel)
+			// Coverage of the 95% profile intervals over every participant:
+			// a failed fit, or one without an interval, does not cover.
+			covered := 0
+			for _, p := range parts[g] {
+				f := p.Fits[g]
+				if !f.Failed && pi < len(f.Intervals) && f.Intervals[pi].Contains(p.Truth.Free[pi]) {
+					covered++
+				}
+			}
+			pr.Coverage = math.NaN()
+			if len(parts[g]) > 0 {
+				pr.Coverage = float64(covered) / float64(len(parts[g]))
+			}
+			var ivs []Interval
+			for _, p := range parts[g] {
+				if f := p.Fits[g]; !f.Failed && pi < len(f.Intervals) {
+					ivs = append(ivs, f.Intervals[pi])
+				} else {
+					ivs = append(ivs, NoInterval())
+				}
+			}
 			// Flatness is read from the size of every finite SE (reliable
 			// or not): a step-sensitive SE still tells the scale of the
 			// likelihood's width.
@@ -370,7 +394,7 @@ func (c *Compiled) designReport(di int, parts [][]ParticipantResult) DesignRepor
 				Hypothesis: h.Name, Parameter: name, N: pr.N, R: NullFloat(pr.R), Bias: NullFloat(pr.Bias), RMSE: NullFloat(pr.RMSE),
 				Slope: NullFloat(pr.Slope), Coverage: NullFloat(pr.Coverage), Flat: flat, MedianSE: NullFloat(medSE), ReliableSEs: reliable,
 			})
-			dr.Recovery = append(dr.Recovery, RecoveryPoints{Hypothesis: h.Name, Parameter: name, Min: NullFloat(*p.Min), Max: NullFloat(*p.Max), Truth: nums(truth), Estimate: nums(e)})
+			dr.Recovery = append(dr.Recovery, RecoveryPoints{Hypothesis: h.Name, Parameter: name, Min: NullFloat(*p.Min), Max: NullFloat(*p.Max), Truth: nums(truth), Estimate: nums(e), Intervals: ivs})
 		}
 		if len(names) >= 2 {
 			for _, p := range parts[g] {
@@ -461,7 +485,8 @@ func (r *Report) FitsCSV() ([]byte, error) {
 	w := csv.NewWriter(&buf)
 	w.Write([]string{"design", "generator", "participant", "candidate", "parameter_names", "estimates", "standard_errors", "se_reliable",
 		"true_values", "loglik", "k", "n", "aic", "aicc", "bic", "converged", "status", "evaluations", "failed",
-		"rt_base", "rt_scale", "rt_sd", "lapse", "eeg_offset", "eeg_gain", "eeg_sd", "eeg_ar"})
+		"rt_base", "rt_scale", "rt_sd", "lapse", "eeg_offset", "eeg_gain", "eeg_sd", "eeg_ar",
+		"interval_low", "interval_high", "interval_open_low", "interval_open_high", "interval_pieces", "truth_loglik", "polished"})
 	g := func(v float64) string {
 		if math.IsNaN(v) || math.IsInf(v, 0) {
 			return "NA"
@@ -496,10 +521,21 @@ func (r *Report) FitsCSV() ([]byte, error) {
 					truth = join(grp.Truth.Free)
 				}
 				m := f.Measurement
+				var lo, hi, ol, oh, pcs []string
+				for _, iv := range f.Intervals {
+					lo, hi = append(lo, g(float64(iv.Low))), append(hi, g(float64(iv.High)))
+					ol, oh = append(ol, strconv.FormatBool(iv.OpenLow)), append(oh, strconv.FormatBool(iv.OpenHigh))
+					var ps []string
+					for _, p := range iv.Pieces {
+						ps = append(ps, g(float64(p[0]))+".."+g(float64(p[1])))
+					}
+					pcs = append(pcs, strings.Join(ps, "|"))
+				}
 				w.Write([]string{f.Design, f.Generator, strconv.Itoa(f.Participant), f.Candidate, names(f.Names), join(f.Params), join(f.SE),
 					strconv.FormatBool(f.SEReliable), truth, g(f.LogL), strconv.Itoa(f.K), strconv.Itoa(f.N), g(f.AIC), g(f.AICc), g(f.BIC),
 					strconv.FormatBool(f.Converged), f.Status, strconv.Itoa(f.Evaluations), strconv.FormatBool(f.Failed),
-					g(m.RTBase), g(m.RTScale), g(m.RTSD), g(m.Lapse), g(m.EEGOffset), g(m.EEGGain), g(m.EEGSD), g(m.EEGAR)})
+					g(m.RTBase), g(m.RTScale), g(m.RTSD), g(m.Lapse), g(m.EEGOffset), g(m.EEGGain), g(m.EEGSD), g(m.EEGAR),
+					strings.Join(lo, ";"), strings.Join(hi, ";"), strings.Join(ol, ";"), strings.Join(oh, ";"), strings.Join(pcs, ";"), g(f.TruthLogL), strconv.FormatBool(f.Polished)})
 			}
 		}
 	}

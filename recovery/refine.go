@@ -1,0 +1,221 @@
+package recovery
+
+import (
+	"context"
+	"math"
+	"sort"
+
+	"discrimen/internal/parallel"
+	"discrimen/models"
+)
+
+// Grid refinement settings. A cell of a one-parameter grid is split at its
+// midpoint while the interpolation error there, as its effect on ln L for a
+// typical dataset of the design (typicalData), exceeds gridTolerance; a
+// cell narrower than jumpWidth of the range that is still over tolerance
+// holds a jump of the predictions themselves, which no grid closes; at most
+// refineBudget nodes are added per grid.
+const (
+	gridTolerance = 0.5
+	jumpWidth     = 1e-6
+	refineBudget  = 384
+)
+
+// refineResult is what refinement did to one grid.
+type refineResult struct {
+	Added int
+	// Jumps are the parameter values (natural units) of cells narrower
+	// than jumpWidth of the range still over tolerance.
+	Jumps []float64
+	// Worst is the largest ln L effect left at a tested midpoint that was
+	// not split (over tolerance only at a jump or when the budget ran out).
+	Worst float64
+	// Exhausted is set when the budget stopped the refinement.
+	Exhausted bool
+}
+
+// typicalData is the dataset a design records on average, used to express
+// a prediction error as its effect on ln L: trial counts per CTI and class
+// and the medians of the measurement priors.
+type typicalData struct {
+	lay                  layout
+	nValid, nInvalid     float64 // trials per CTI
+	items                float64
+	rt, acc, eeg         bool
+	rtScale, rtSD, lapse float64
+	eegGain, eegSD       float64
+}
+
+func newTypicalData(d *models.Design, lay layout) typicalData {
+	m := d.Measurement
+	n := float64(d.TrialsPerCTI)
+	return typicalData{
+		lay: lay, nValid: n * d.Validity, nInvalid: n * (1 - d.Validity), items: float64(d.Items),
+		rt: d.HasMeasure("rt"), acc: d.HasMeasure("accuracy"), eeg: d.HasMeasure("eeg"),
+		rtScale: m.RTScale.Median(), rtSD: m.RTSD.Median(), lapse: m.Lapse.Median(),
+		eegGain: m.EEGGain.Median(), eegSD: m.EEGSD.Median(),
+	}
+}
+
+// effect bounds the change of ln L, for a typical dataset generated from
+// predictions p, when it is evaluated at predictions q instead. Its core
+// is the Kullback–Leibler divergence of the data's distribution under q
+// from it under p, summed over observations (Kullback & Leibler 1951,
+// Annals of Mathematical Statistics 22:79), per group of observations:
+//
+//	RT (correct reports, normal): n·acc·(rt_scale·ΔRT)² / (2·rt_sd²)
+//	reports (categorical, lapse-mixed): n·Σ_k p_k ln(p_k/q_k)
+//	EEG bins (normal): (eeg_gain·Δe)² / (2·eeg_sd²)
+//
+// with the priors' medians for the measurement parameters; each group's K
+// is widened to K + 2√(2K), the linear term of a dataset whose means sit
+// two standard errors from the prediction (common practice: a bound, not
+// an expectation).
+func (t typicalData) effect(p, q []float64) float64 {
+	l := t.lay
+	mix := func(x float64) float64 { return math.Max((1-t.lapse)*x+t.lapse/t.items, 1e-9) }
+	// Each group of observations contributes its divergence K plus the
+	// linear term a dataset whose observed means sit two standard errors
+	// from the prediction adds, 2·√(2K) (for a normal mean, K = nΔ²/2σ²
+	// and the term is 2√n·|Δ|/σ): real data are not at the prediction.
+	group := func(k float64) float64 { return k + 2*math.Sqrt(2*k) }
+	kl := func(ps, qs []float64) float64 {
+		s := 0.0
+		for i := range ps {
+			a, b := mix(ps[i]), mix(qs[i])
+			s += a * math.Log(a/b)
+		}
+		return math.Max(s, 0)
+	}
+	e := 0.0
+	for c := 0; c < l.C; c++ {
+		if t.rt && t.rtSD > 0 {
+			k := t.rtScale * t.rtScale / (2 * t.rtSD * t.rtSD)
+			dv, di := p[l.vRT(c)]-q[l.vRT(c)], p[l.iRT(c)]-q[l.iRT(c)]
+			e += group(k*t.nValid*p[l.vAcc(c)]*dv*dv) + group(k*t.nInvalid*p[l.iAcc(c)]*di*di)
+		}
+		if t.acc {
+			pv, qv := p[l.vAcc(c)], q[l.vAcc(c)]
+			e += group(t.nValid * kl([]float64{pv, 1 - pv}, []float64{qv, 1 - qv}))
+			pt, pc, qt, qc := p[l.iAcc(c)], p[l.iMis(c)], q[l.iAcc(c)], q[l.iMis(c)]
+			e += group(t.nInvalid * kl([]float64{pt, pc, 1 - pt - pc}, []float64{qt, qc, 1 - qt - qc}))
+		}
+	}
+	if t.eeg && t.eegSD > 0 {
+		k := t.eegGain * t.eegGain / (2 * t.eegSD * t.eegSD)
+		kk := 0.0
+		for b := 0; b < l.bmax; b++ {
+			d := p[l.eeg(b)] - q[l.eeg(b)]
+			kk += k * d * d
+		}
+		e += group(kk)
+	}
+	return e
+}
+
+// refine1D splits the cells of a one-parameter grid where interpolation
+// costs more than gridTolerance of ln L for a typical dataset (see the
+// constants above). Every first-round midpoint is computed in parallel;
+// splits below them run in order, so the result does not depend on the
+// workers.
+func (c *PredictionGrid) refine1D(ctx context.Context, workers int) error {
+	if len(c.axes) != 1 || len(c.axes[0]) < 2 {
+		return nil
+	}
+	size := c.lay.size()
+	typ := newTypicalData(c.design, c.lay)
+	type node struct {
+		g    float64
+		pred []float64
+	}
+	ax := c.axes[0]
+	nodes := make([]node, len(ax))
+	for k := range ax {
+		nodes[k] = node{ax[k], append([]float64(nil), c.values[k*size:(k+1)*size]...)}
+	}
+	exact := func(g float64, dst []float64, ws *models.Workspace, p *models.Prediction) {
+		c.exactInto([]float64{c.value(0, g)}, dst, ws, p)
+	}
+	mids := make([]node, len(ax)-1)
+	type scratch struct {
+		ws *models.Workspace
+		p  *models.Prediction
+	}
+	scr := make([]*scratch, max(workers, 1))
+	err := parallel.For(ctx, len(mids), workers, func(w, k int) error {
+		if scr[w] == nil {
+			scr[w] = &scratch{c.listener.NewWorkspace(), c.listener.NewPrediction()}
+		}
+		g := 0.5 * (ax[k] + ax[k+1])
+		mids[k] = node{g, make([]float64, size)}
+		exact(g, mids[k].pred, scr[w].ws, scr[w].p)
+		return nil
+	})
+	if err != nil {
+		return err
+	}
+	ws, pr := c.listener.NewWorkspace(), c.listener.NewPrediction()
+	interp := make([]float64, size)
+	width := jumpWidth * float64(c.points-1) // in grid units
+	res := &c.refine
+	var added []node
+	// split tests cell (a, b) with its midpoint m already computed.
+	var split func(a, b, m node)
+	split = func(a, b, m node) {
+		for j := range interp {
+			interp[j] = 0.5 * (a.pred[j] + b.pred[j])
+		}
+		e := typ.effect(m.pred, interp)
+		if e <= gridTolerance {
+			return
+		}
+		if b.g-a.g <= width {
+			res.Jumps = append(res.Jumps, c.value(0, m.g))
+			res.Worst = math.Max(res.Worst, e)
+			return
+		}
+		if res.Added >= refineBudget {
+			res.Exhausted = true
+			res.Worst = math.Max(res.Worst, e)
+			return
+		}
+		res.Added++
+		added = append(added, m)
+		for _, half := range [][2]node{{a, m}, {m, b}} {
+			g := 0.5 * (half[0].g + half[1].g)
+			mm := node{g, make([]float64, size)}
+			exact(g, mm.pred, ws, pr)
+			split(half[0], half[1], mm)
+		}
+	}
+	for k := range mids {
+		if ctx.Err() != nil {
+			return ctx.Err()
+		}
+		split(nodes[k], nodes[k+1], mids[k])
+	}
+	// Neighbouring narrow cells of one jump (a jump with a short ramp)
+	// are one jump: merge those within 1e-4 of the range.
+	sort.Float64s(res.Jumps)
+	merged := res.Jumps[:0]
+	for _, j := range res.Jumps {
+		if len(merged) > 0 && j-merged[len(merged)-1] <= 1e-4*(c.hi[0]-c.lo[0]) {
+			continue
+		}
+		merged = append(merged, j)
+	}
+	res.Jumps = merged
+	if len(added) == 0 {
+		return nil
+	}
+	all := append(nodes, added...)
+	sort.Slice(all, func(i, j int) bool { return all[i].g < all[j].g })
+	c.axes[0] = make([]float64, len(all))
+	c.values = make([]float64, len(all)*size)
+	for k, n := range all {
+		c.axes[0][k] = n.g
+		copy(c.values[k*size:], n.pred)
+	}
+	c.setStrides()
+	return nil
+}
