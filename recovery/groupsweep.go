@@ -446,7 +446,10 @@ func groupReport(generators []string, dp designPools, sizes []int, cells [][]gro
 				gr.SampleSize[generators[g]] = &v
 			}
 		}
-		sentence := sampleSizeSentence(generators, g, sizes, gr.Confusion, gr.SampleSize[generators[g]], tried, r)
+		ci := func(n int) string {
+			return fmt.Sprintf(" (95%% interval %.0f–%.0f%%)", 100*float64(lo[n]), 100*float64(hi[n]))
+		}
+		sentence := sampleSizeSentence(generators, g, sizes, gr.Confusion, gr.SampleSize[generators[g]], tried, r, ci)
 		if ss := gr.SampleSize[generators[g]]; ss != nil && 2**ss > P {
 			sentence += fmt.Sprintf("; N = %d is above half its pool of %d, so that rate rests on heavily overlapping replicate groups", *ss, P)
 		}
@@ -531,9 +534,10 @@ func groupFlags(generators []string, dp designPools, sizes []int) []GroupFlag {
 }
 
 // sampleSizeSentence says in plain words where generator g reaches the
-// target rate; when it never does, it names the candidate that the group
-// analysis picks most often instead at the largest size tried.
-func sampleSizeSentence(gens []string, g int, sizes []int, conf [][][]NullFloat, ss *int, tried []int, r models.Replication) string {
+// target rate, with ci(n) the interval of the rate at sizes[n]; when it
+// never does, it names the candidate that the group analysis picks most
+// often instead at the largest size tried.
+func sampleSizeSentence(gens []string, g int, sizes []int, conf [][][]NullFloat, ss *int, tried []int, r models.Replication, ci func(n int) string) string {
 	gen := gens[g]
 	pct := func(x float64) string { return strconv.FormatFloat(math.Round(1000*x)/10, 'g', -1, 64) + "%" }
 	target := pct(r.TargetRate)
@@ -574,6 +578,7 @@ func sampleSizeSentence(gens []string, g int, sizes []int, conf [][][]NullFloat,
 		return out
 	}
 	var at float64
+	var atCI string
 	var below []string
 	for n, size := range sizes {
 		v := rate(n)
@@ -581,16 +586,16 @@ func sampleSizeSentence(gens []string, g int, sizes []int, conf [][][]NullFloat,
 			continue
 		}
 		if size == *ss {
-			at = v
+			at, atCI = v, ci(n)
 		}
 		if size > *ss && v < r.TargetRate {
 			below = append(below, fmt.Sprintf("%s at N = %d", pct(v), size))
 		}
 	}
 	if len(below) > 0 {
-		return fmt.Sprintf("%s is identified by the group analysis in %s of replicate studies at N = %d, but not at every larger size tried (%s)", gen, pct(at), *ss, strings.Join(below, ", "))
+		return fmt.Sprintf("%s is identified by the group analysis in %s%s of replicate studies at N = %d, but not at every larger size tried (%s)", gen, pct(at), atCI, *ss, strings.Join(below, ", "))
 	}
-	return fmt.Sprintf("%s is identified by the group analysis in %s of replicate studies from N = %d", gen, pct(at), *ss)
+	return fmt.Sprintf("%s is identified by the group analysis in %s%s of replicate studies from N = %d", gen, pct(at), atCI, *ss)
 }
 
 // groupInterval returns the 95% interval of a group recovery rate with
