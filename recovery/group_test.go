@@ -564,6 +564,7 @@ func TestGroupIntervalCarriesPoolError(t *testing.T) {
 		t.Errorf("N = 25 of 30: rate %v, interval [%v, %v], %d bootstrap analyses; want a rate ≥ 0.9, a lower end ≤ 0.6 and 1200 analyses",
 			mid.Recovery[0][0], lo, mid.CIHigh[0][0], mid.BootstrapRuns)
 	}
+	t.Logf("N = 25 of 30: rate %.3f [%.3f, %.3f] (n_eff %.2f)", mid.Recovery[0][0], mid.CILow[0][0], mid.CIHigh[0][0], mid.EffectiveReplicates[0][0])
 	if len(mid.Flags) != 1 || mid.Flags[0].Reason != "N = 25 is above half the pool of 30: replicate groups overlap heavily (any two share at least 20 participants, 20.8 on average)" {
 		t.Errorf("N = 25 of 30: flags %+v", mid.Flags)
 	}
