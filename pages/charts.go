@@ -531,6 +531,7 @@ type lineSpec struct {
 	YMin, YMax     *float64 // fixed y range when set
 	XMin, XMax     *float64 // fixed x range when set
 	XTicks         []float64
+	XTickLabels    []string // optional labels of XTicks (default: the value)
 	HLine          *float64 // a dashed reference level
 	VLine          *float64 // a dotted reference time (for example target onset)
 	W, H           float64  // points
@@ -638,8 +639,12 @@ func lineChart(s lineSpec) (template.HTML, error) {
 	}
 	if len(s.XTicks) > 0 {
 		var t plot.ConstantTicks
-		for _, v := range s.XTicks {
-			t = append(t, plot.Tick{Value: v, Label: strconv.FormatFloat(v, 'g', -1, 64)})
+		for i, v := range s.XTicks {
+			label := strconv.FormatFloat(v, 'g', -1, 64)
+			if i < len(s.XTickLabels) {
+				label = s.XTickLabels[i]
+			}
+			t = append(t, plot.Tick{Value: v, Label: label})
 		}
 		p.X.Tick.Marker = t
 		span := p.X.Max - p.X.Min

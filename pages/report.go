@@ -111,6 +111,7 @@ type methodView struct {
 	GridTolerance, JumpWidth, ContentionWindow string
 	ModeTries, ModeWindow, ProfileThreshold    string
 	TruthTolerance                             string
+	GroupBootstrapRounds                       string
 }
 
 // newMethodView formats m for the method notes: counts under eleven in
@@ -120,7 +121,13 @@ func newMethodView(m recovery.Method) methodView {
 		const dash = "—"
 		return methodView{Missing: true, Starts: dash, StartSpacing: dash, RescoreWindow: dash, LapseMax: dash, ARMax: dash,
 			SERoughStep: dash, SEFineStep: dash, SEChange: dash, ITI: dash, GridTolerance: dash, JumpWidth: dash,
-			ContentionWindow: dash, ModeTries: dash, ModeWindow: dash, ProfileThreshold: dash, TruthTolerance: dash}
+			ContentionWindow: dash, ModeTries: dash, ModeWindow: dash, ProfileThreshold: dash, TruthTolerance: dash,
+			GroupBootstrapRounds: dash}
+	}
+	// A report made before the group bootstrap has no rounds.
+	rounds := "—"
+	if m.GroupBootstrapRounds > 0 {
+		rounds = strconv.Itoa(m.GroupBootstrapRounds)
 	}
 	return methodView{
 		Starts: strconv.Itoa(m.Starts), StartSpacing: countWord(m.StartSpacing), RescoreWindow: fmtG(m.RescoreWindow, 3),
@@ -129,7 +136,7 @@ func newMethodView(m recovery.Method) methodView {
 		ITI:           fmtG(float64(m.ITIms)/1000, 3) + " s",
 		GridTolerance: fmtG(m.GridTolerance, 3), JumpWidth: fmtG(m.JumpWidth, 3), ContentionWindow: fmtG(m.ContentionWindow, 3),
 		ModeTries: countWord(m.ModeTries), ModeWindow: fmtG(m.ModeWindow, 3), ProfileThreshold: fmtG(m.ProfileThreshold, 5),
-		TruthTolerance: fmtG(m.TruthTolerance, 3),
+		TruthTolerance: fmtG(m.TruthTolerance, 3), GroupBootstrapRounds: rounds,
 	}
 }
 
@@ -201,6 +208,8 @@ type groupView struct {
 	ConfusionN   int
 	Replicates   int
 	Sizes        string
+	Columns      []groupColumn
+	Flags        []groupFlagView
 	Rows         []sampleRow
 	Target       string
 	Threshold    string
@@ -211,8 +220,32 @@ type groupView struct {
 	NotConverged int
 }
 
+// sampleRow is one generator's row of the group table: its rate at each
+// size and the participants it needs.
 type sampleRow struct {
 	Hypothesis, Colour, N string
+	Cells                 []groupCellView
+}
+
+// groupColumn heads one group size of the table; Flagged marks a size
+// above half of some pool.
+type groupColumn struct {
+	N       int
+	Flagged bool
+}
+
+// groupCellView is a rate with its 95% interval and the effective number
+// of replicates behind it, formatted; empty for a skipped size.
+type groupCellView struct {
+	Rate, Interval, Effective string
+}
+
+// groupFlagView is one flagged size: its reason, and the generators it
+// concerns when they are not all of them.
+type groupFlagView struct {
+	N          int
+	Reason     string
+	Generators string
 }
 
 type generatorHealth struct {
@@ -457,9 +490,26 @@ func groupPage(r *recovery.Report, d *recovery.DesignReport, names []string) (*g
 	if threshold > 0 {
 		gv.Threshold = fmtG(threshold, 3)
 	}
+	// Sizes above half of some pool are marked: a * on the axis, a ring
+	// around the points, a star in the table's heading, and a note each.
+	flagged := map[int]bool{}
+	for _, f := range g.Flags {
+		flagged[f.GroupSize] = true
+		fv := groupFlagView{N: f.GroupSize, Reason: f.Reason}
+		if len(f.Generators) < len(rows) {
+			fv.Generators = strings.Join(f.Generators, ", ")
+		}
+		gv.Flags = append(gv.Flags, fv)
+	}
 	xs := make([]float64, len(g.GroupSizes))
+	labels := make([]string, len(g.GroupSizes))
 	for k, n := range g.GroupSizes {
 		xs[k] = float64(n)
+		labels[k] = strconv.Itoa(n)
+		if flagged[n] {
+			labels[k] += "*"
+		}
+		gv.Columns = append(gv.Columns, groupColumn{N: n, Flagged: flagged[n]})
 	}
 	// Shift each generator's points a little sideways so that interval
 	// bars at the same group size stay apart.
@@ -480,6 +530,7 @@ func groupPage(r *recovery.Report, d *recovery.DesignReport, names []string) (*g
 			}
 			sr.X = append(sr.X, xs[k]+off)
 			sr.Y = append(sr.Y, float64(g.Recovery[gi][k]))
+			sr.Hollow = append(sr.Hollow, flagged[g.GroupSizes[k]])
 			lo, hi := math.NaN(), math.NaN()
 			if gi < len(g.CILow) && k < len(g.CILow[gi]) {
 				lo = float64(g.CILow[gi][k])
@@ -494,7 +545,7 @@ func groupPage(r *recovery.Report, d *recovery.DesignReport, names []string) (*g
 	zero, one := 0.0, 1.0
 	chart, err := lineChart(lineSpec{
 		Label: "Group recovery against group size for design " + d.Name, XLabel: "participants per group",
-		YLabel: "share of groups recovering the generator", Series: series, YMin: &zero, YMax: &one, XTicks: xs, HLine: hline, W: 380, H: 250,
+		YLabel: "share of groups recovering the generator", Series: series, YMin: &zero, YMax: &one, XTicks: xs, XTickLabels: labels, HLine: hline, W: 380, H: 250,
 	})
 	if err != nil {
 		return nil, err
@@ -520,8 +571,11 @@ func groupPage(r *recovery.Report, d *recovery.DesignReport, names []string) (*g
 	for _, n := range g.GroupSizes {
 		maxN = max(maxN, n)
 	}
-	for _, name := range rows {
+	for gi, name := range rows {
 		row := sampleRow{Hypothesis: name, Colour: hexColour(hypColour(colour[name])), N: "—"}
+		for k := range g.GroupSizes {
+			row.Cells = append(row.Cells, groupCellAt(g, gi, k))
+		}
 		if n, ok := g.SampleSize[name]; ok {
 			if n != nil {
 				row.N = strconv.Itoa(*n)
@@ -532,6 +586,34 @@ func groupPage(r *recovery.Report, d *recovery.DesignReport, names []string) (*g
 		gv.Rows = append(gv.Rows, row)
 	}
 	return gv, nil
+}
+
+// groupCellAt formats generator gi's rate at the k-th group size: the
+// rate, its interval and the effective number of replicates, each "—"
+// where the report has none.
+func groupCellAt(g *recovery.GroupReport, gi, k int) groupCellView {
+	at := func(m [][]recovery.NullFloat) float64 {
+		if gi < len(m) && k < len(m[gi]) {
+			return float64(m[gi][k])
+		}
+		return math.NaN()
+	}
+	rate := at(g.Recovery)
+	if !finite(rate) {
+		return groupCellView{Rate: "—"}
+	}
+	c := groupCellView{Rate: fmtPct(rate)}
+	if lo, hi := at(g.CILow), at(g.CIHigh); finite(lo) && finite(hi) {
+		c.Interval = strings.TrimSuffix(fmtPct(lo), "%") + "–" + fmtPct(hi)
+	}
+	if e := at(g.EffectiveReplicates); finite(e) {
+		if e >= 10 {
+			c.Effective = strconv.FormatFloat(math.Round(e), 'f', 0, 64)
+		} else {
+			c.Effective = strconv.FormatFloat(e, 'f', 1, 64)
+		}
+	}
+	return c
 }
 
 // predictionSeries holds every hypothesis's prediction curves, in the

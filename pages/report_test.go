@@ -106,9 +106,13 @@ func htmlDesign(name string, measures []string, group bool) recovery.DesignRepor
 	if group {
 		d.Group = &recovery.GroupReport{
 			Generators: names, GroupSizes: []int{3, 6, 12}, Replicates: 20, PXPThreshold: 0.95, TargetRate: 0.8,
-			Recovery: htmlMatrix([]float64{0.5, 0.85, 0.95}, []float64{0.2, 0.4, 0.7}, []float64{0.1, 0.3, 0.45}),
-			CILow:    htmlMatrix([]float64{0.3, 0.64, 0.76}, []float64{0.08, 0.22, 0.48}, []float64{0.03, 0.15, 0.26}),
-			CIHigh:   htmlMatrix([]float64{0.7, 0.95, 0.99}, []float64{0.42, 0.61, 0.85}, []float64{0.3, 0.52, 0.65}),
+			Recovery:            htmlMatrix([]float64{0.5, 0.85, 0.95}, []float64{0.2, 0.4, 0.7}, []float64{0.1, 0.3, 0.45}),
+			CILow:               htmlMatrix([]float64{0.3, 0.64, 0.76}, []float64{0.08, 0.22, 0.48}, []float64{0.03, 0.15, 0.26}),
+			CIHigh:              htmlMatrix([]float64{0.7, 0.95, 0.99}, []float64{0.42, 0.61, 0.85}, []float64{0.3, 0.52, 0.65}),
+			EffectiveReplicates: htmlMatrix([]float64{20, 4, 1}, []float64{15.4, 3.96, 1}, []float64{12, 4.04, 1}),
+			Pool:                []int{12, 12, 12},
+			Flags: []recovery.GroupFlag{{GroupSize: 12, Pool: 12, Generators: names,
+				Reason: "N = 12 is above half the pool of 12: replicate groups overlap heavily (every replicate group is the whole pool)"}},
 			Confusion: [][][]recovery.NullFloat{
 				htmlMatrix([]float64{0.5, 0, 0}, []float64{0, 0.2, 0.1}, []float64{0, 0.2, 0.1}),
 				htmlMatrix([]float64{0.85, 0, 0}, []float64{0, 0.4, 0.1}, []float64{0, 0.3, 0.3}),
@@ -339,10 +343,24 @@ func TestHTMLReport(t *testing.T) {
 
 	// Group analysis and ranking are rendered.
 	grp := sectionBody(t, page, "group")
-	for _, want := range []string{"not reached by 12", `<td class="num">6</td>`, "180 group analyses", "6 participants suffice for flat"} {
+	for _, want := range []string{"not reached by 12", `<td class="num">6</td>`, "180 group analyses", "6 participants suffice for flat",
+		// The flagged size: a note, a star in the heading, none on the others.
+		`<li><span class="badge">N = 12*</span> N = 12 is above half the pool of 12: replicate groups overlap heavily (every replicate group is the whole pool).</li>`,
+		`<th class="num">N = 6</th><th class="num">N = 12*</th>`,
+		// flat at N = 6: rate, interval and effective replicates.
+		`<td class="num">85% <span class="note">(64–95%)</span><br><span class="note">worth 4.0 studies</span></td>`,
+		`<td class="num">45% <span class="note">(26–65%)</span><br><span class="note">worth 1.0 studies</span></td>`,
+		"Ringed points and sizes marked * are above half the pool"} {
 		if !strings.Contains(grp, want) {
 			t.Errorf("group section lacks %q", want)
 		}
+	}
+	// The chart marks the flagged size on its axis.
+	if _, text := checkSVGs(t, grp); !strings.Contains(text, "12*") || strings.Contains(text, "6*") {
+		t.Errorf("group chart's axis does not mark 12 (and only 12) with *: %q", text)
+	}
+	if !strings.Contains(sectionBody(t, page, "method"), "resamples each pool with replacement 200 times") {
+		t.Error("method notes do not quote the bootstrap rounds")
 	}
 	verdict := sectionBody(t, page, "verdict")
 	if !strings.Contains(verdict, `<tr class="best"><td class="num">1</td><td>behaviour</td>`) {

@@ -8,7 +8,10 @@ import (
 )
 
 // BenchmarkDemoStudy runs the whole demo study (six hypotheses, 100
-// participants each, two designs: 7,200 fits) in this process.
+// participants each, two designs: 7,200 fits) in this process, and reports
+// how many self-fits ended below the truth's ln L (below-truth, of
+// truth-checked): the full-demo check that the test over every testdata
+// study at 10 participants cannot afford.
 //
 //	go test ./recovery -run XXX -bench DemoStudy -benchtime 1x
 func BenchmarkDemoStudy(b *testing.B) {
@@ -20,6 +23,13 @@ func BenchmarkDemoStudy(b *testing.B) {
 		}
 		b.ReportMetric(float64(r.Timing.Fits)/r.Timing.TotalSeconds, "fits/s")
 		b.ReportMetric(r.Timing.GridSeconds, "grid-s")
+		below, checked := 0, 0
+		for _, d := range r.Designs {
+			below += d.FitFailures.BelowTruth
+			checked += d.FitFailures.TruthChecked
+		}
+		b.ReportMetric(float64(below), "below-truth")
+		b.ReportMetric(float64(checked), "truth-checked")
 	}
 }
 

@@ -352,7 +352,10 @@ func TestSampleSizeNullWhenUnreachable(t *testing.T) {
 	if !strings.Contains(gr.Summary[1], "; at N = 40 the group analysis names ") || !strings.HasSuffix(gr.Summary[2], "(0% at every size)") {
 		t.Errorf("summaries %q and %q: want a rival named for worse and none for same (tied α has no winner)", gr.Summary[1], gr.Summary[2])
 	}
-	if want := "clear is identified by the group analysis in 100% of replicate studies from N = 10"; gr.Summary[0] != want {
+	// Every bootstrap round recovers clear, so ρ is the floor (10/60)²:
+	// n_eff = 50/(1 + 49/36) = 21.2, and Wilson's lower end for 21.2 of
+	// 21.2 is 21.2/(21.2 + 1.96²) = 0.85.
+	if want := "clear is identified by the group analysis in 100% (95% interval 85–100%) of replicate studies from N = 10"; gr.Summary[0] != want {
 		t.Errorf("summary %q, want %q", gr.Summary[0], want)
 	}
 	b, err := json.Marshal(gr)
@@ -403,24 +406,214 @@ func TestGroupSkipsAndDrops(t *testing.T) {
 	}
 }
 
-// TestGroupDeterministic: the same seed gives the same report with 1 and 3
-// workers and on a second run; another seed draws other groups.
+// TestGroupDeterministic: the same seed gives the same report, bootstrap
+// rounds included, with 1 and 4 workers and on a second run; another seed
+// draws other groups.
 func TestGroupDeterministic(t *testing.T) {
 	gens := []string{"a", "b", "c"}
 	var pools [][][]float64
 	for g := range gens {
 		pools = append(pools, controlledPool(uint64(300+g), 50, 3, g, 0.8, 2))
 	}
-	r := models.Replication{GroupSizes: []int{5, 15, 30}, Replicates: 100, PXPThreshold: 0.9, TargetRate: 0.8}
+	r := models.Replication{GroupSizes: []int{5, 15, 30, 50}, Replicates: 100, PXPThreshold: 0.9, TargetRate: 0.8}
 	a := sweepOne(7, gens, pools, r, 1)
-	b := sweepOne(7, gens, pools, r, 3)
-	c := sweepOne(7, gens, pools, r, 3)
+	b := sweepOne(7, gens, pools, r, 4)
+	c := sweepOne(7, gens, pools, r, 4)
 	if !reflect.DeepEqual(a, b) || !reflect.DeepEqual(b, c) {
 		t.Errorf("same seed, different group reports:\n%+v\n%+v", a, b)
 	}
-	d := sweepOne(8, gens, pools, r, 3)
-	if reflect.DeepEqual(a.Successes, d.Successes) {
-		t.Errorf("seeds 7 and 8 give identical successes %v", a.Successes)
+	// 3 generators × 3 sizes below the pool × 200 rounds of ⌈25/N⌉ ≥ 2 groups.
+	if want := 3 * 200 * (5 + 2 + 2); a.BootstrapRuns != want {
+		t.Errorf("%d bootstrap analyses, want %d", a.BootstrapRuns, want)
+	}
+	d := sweepOne(8, gens, pools, r, 4)
+	if reflect.DeepEqual(a.Successes, d.Successes) || reflect.DeepEqual(a.CILow, d.CILow) {
+		t.Errorf("seeds 7 and 8 give identical successes %v and intervals %v", a.Successes, a.CILow)
+	}
+}
+
+// TestGroupInterval checks groupInterval against the formulas in its
+// comment, worked by hand here: ρ̂ from the rounds' spread net of their
+// binomial spread, clamped to [(N/P)², N/P], n_eff = min(B, R/(1+(R−1)ρ)),
+// and Wilson's interval at n_eff trials.
+func TestGroupInterval(t *testing.T) {
+	wilson := func(p, n float64) [2]float64 { lo, hi := WilsonInterval(p*n, n); return [2]float64{lo, hi} }
+	// Four rounds of m = 4 groups: p_b = 1, 0.5, 0.5, 0; p̄ = 0.5,
+	// S² = (0.25 + 0 + 0 + 0.25)/3 = 1/6, within = (0 + 0.25 + 0.25 + 0)/4/3 = 1/24,
+	// σ̂² = 1/6 − 1/24 = 1/8, ρ̂ = (1/8)/(1/4) = 0.5.
+	rounds := []int{4, 2, 2, 0}
+	for _, c := range []struct {
+		name      string
+		overlap   float64
+		succ, R   int
+		rounds    []int
+		perRound  int
+		wantNEff  float64
+		wantLoHis [2]float64
+	}{
+		// ρ = 0.5 is inside [0.36, 0.6]: n_eff = 100/(1 + 99·0.5) = 1.980…, under B = 4.
+		{"estimate", 0.6, 70, 100, rounds, 4, 100 / (1 + 99*0.5), wilson(0.7, 100/(1+99*0.5))},
+		// N/P = 0.3 caps ρ̂ at 0.3 (Hoeffding): n_eff = 100/30.7.
+		{"Hoeffding cap", 0.3, 70, 100, rounds, 4, 100 / (1 + 99*0.3), wilson(0.7, 100/(1+99*0.3))},
+		// No round varies: ρ = (N/P)² = 0.01, n_eff = min(B = 4, 100/1.99) = 4.
+		{"floor, then the rounds", 0.1, 100, 100, []int{4, 4, 4, 4}, 4, 4, wilson(1, 4)},
+		// 1000 rounds at the floor 0.0001: n_eff = 500/1.0499 = 476.2…
+		{"floor", 0.01, 0, 500, make([]int, 1000), 3, 500 / (1 + 499*1e-4), wilson(0, 500/(1+499*1e-4))},
+		// A whole pool is one study: n_eff = 1, no rounds.
+		{"whole pool", 1, 500, 500, nil, 0, 1, wilson(1, 1)},
+	} {
+		t.Run(c.name, func(t *testing.T) {
+			lo, hi, n := groupInterval(c.succ, c.R, c.overlap, c.rounds, c.perRound)
+			if !scalar.EqualWithinAbsOrRel(n, c.wantNEff, 1e-12, 1e-12) || !scalar.EqualWithinAbs(lo, c.wantLoHis[0], 1e-12) || !scalar.EqualWithinAbs(hi, c.wantLoHis[1], 1e-12) {
+				t.Errorf("groupInterval = [%v, %v] at n_eff %v, want [%v, %v] at %v", lo, hi, n, c.wantLoHis[0], c.wantLoHis[1], c.wantNEff)
+			}
+		})
+	}
+	// One success of one study: Wilson's lower end z²/(1+z²)·… = 1/(1 + z²).
+	lo, _, _ := groupInterval(3, 3, 1, nil, 0)
+	if want := 1 / (1 + normal975*normal975); !scalar.EqualWithinAbs(lo, want, 1e-12) {
+		t.Errorf("whole pool, all recovered: lower end %v, want 1/(1 + z²) = %v", lo, want)
+	}
+	for _, f := range []func(){
+		func() { groupInterval(5, 4, 0.5, rounds, 4) },
+		func() { groupInterval(1, 4, 0, rounds, 4) },
+		func() { groupInterval(1, 4, 0.5, rounds, 1) },
+		func() { groupInterval(1, 4, 0.5, []int{1}, 4) },
+	} {
+		statsMustPanic(t, f)
+	}
+}
+
+// ninetyPercentPool returns n participants of which the first 9 in every 10
+// favour candidate 0 by 2 nats over the other k−1 and the tenth favours
+// candidate 1 by 2 nats, with N(0, 0.5²) noise: candidate 0 wins 90% of the
+// participants.
+func ninetyPercentPool(seed uint64, n, k int) [][]float64 {
+	lme := randomEvidence(seed, n, make([]float64, k), 0.5)
+	for i := range lme {
+		if i%10 == 9 {
+			lme[i][1] += 2
+		} else {
+			lme[i][0] += 2
+		}
+	}
+	return lme
+}
+
+// TestGroupIntervalCarriesPoolError guards the issue "Verdicts no more
+// certain than the simulation": groups as large as a pool of 30 are 500
+// copies of one group, all recovered, and the plain Wilson interval of
+// 500/500 is 0.99–1.00. The reported interval must instead be that of one
+// study, the size must be flagged, and a pool four times larger (the same
+// first 30 participants and more, the same seed) must give a narrower
+// interval at the same size, without a flag.
+func TestGroupIntervalCarriesPoolError(t *testing.T) {
+	gens := []string{"a", "b", "c"}
+	r := models.Replication{GroupSizes: []int{30}, Replicates: 500, PXPThreshold: 0.95, TargetRate: 0.8}
+	run := func(P int) *GroupReport {
+		pools := [][][]float64{ninetyPercentPool(11, P, 3), controlledPool(12, P, 3, 1, 3, 1), controlledPool(13, P, 3, 2, 3, 1)}
+		wins := 0
+		for _, row := range pools[0] {
+			if floats.MaxIdx(row) == 0 {
+				wins++
+			}
+		}
+		if wins != P*9/10 {
+			t.Fatalf("pool of %d: candidate 0 wins %d participants, want 90%%", P, wins)
+		}
+		return sweepOne(21, gens, pools, r, 2)
+	}
+	small, large := run(30), run(120)
+	if small.Successes[0][0] != 500 {
+		t.Fatalf("pool of 30: %d of 500 copies of the whole pool recovered, want all (the case of the issue)", small.Successes[0][0])
+	}
+	if lo, _ := WilsonInterval(500, 500); lo < 0.99 {
+		t.Fatalf("plain Wilson lower end of 500/500 is %v, want the degenerate ≥ 0.99", lo)
+	}
+	width := func(g *GroupReport) float64 { return float64(g.CIHigh[0][0] - g.CILow[0][0]) }
+	if n := float64(small.EffectiveReplicates[0][0]); n != 1 {
+		t.Errorf("N = P: effective replicates %v, want 1", n)
+	}
+	if lo := float64(small.CILow[0][0]); lo > 0.25 || float64(small.CIHigh[0][0]) != 1 {
+		t.Errorf("N = P = 30: interval [%v, %v], want Wilson's for 1 of 1, [0.21, 1]", lo, float64(small.CIHigh[0][0]))
+	}
+	if ws, wl := width(small), width(large); !(ws > 1.5*wl) || wl < 0.02 {
+		t.Errorf("interval width %v from a pool of 30, %v from a pool of 120: want the first over 1.5 times the second, and the second beyond plain Wilson", ws, wl)
+	}
+	want := []GroupFlag{{GroupSize: 30, Pool: 30, Generators: gens, Reason: "N = 30 is above half the pool of 30: replicate groups overlap heavily (every replicate group is the whole pool)"}}
+	if !reflect.DeepEqual(small.Flags, want) || !reflect.DeepEqual(small.Pool, []int{30, 30, 30}) {
+		t.Errorf("pool of 30: flags %+v, pool %v; want %+v and [30 30 30]", small.Flags, small.Pool, want)
+	}
+	if len(large.Flags) != 0 || !reflect.DeepEqual(large.Pool, []int{120, 120, 120}) {
+		t.Errorf("pool of 120, N = 30: flags %+v, pool %v; want none and [120 120 120]", large.Flags, large.Pool)
+	}
+	b, _ := json.Marshal(small)
+	for _, key := range []string{`"pool":[30,30,30]`, `"flags":[{"group_size":30,"pool":30,"generators":["a","b","c"],"reason":"N = 30 is above half`, `"effective_replicates":[[1],`, `"bootstrap_rounds":200`} {
+		if !strings.Contains(string(b), key) {
+			t.Errorf("JSON lacks %s: %s", key, b)
+		}
+	}
+	t.Logf("N = 30: pool of 30 [%.3f, %.3f] (n_eff %.2f); pool of 120 rate %.3f [%.3f, %.3f] (n_eff %.1f)",
+		small.CILow[0][0], small.CIHigh[0][0], small.EffectiveReplicates[0][0], large.Recovery[0][0], large.CILow[0][0], large.CIHigh[0][0], large.EffectiveReplicates[0][0])
+
+	// Flagged but below the pool (25 of 30): the bootstrap runs, and the
+	// interval is still far from 500 independent replicates.
+	r.GroupSizes = []int{25}
+	mid := run(30)
+	if lo := float64(mid.CILow[0][0]); float64(mid.Recovery[0][0]) < 0.9 || lo > 0.6 || mid.BootstrapRuns != 3*200*2 {
+		t.Errorf("N = 25 of 30: rate %v, interval [%v, %v], %d bootstrap analyses; want a rate ≥ 0.9, a lower end ≤ 0.6 and 1200 analyses",
+			mid.Recovery[0][0], lo, mid.CIHigh[0][0], mid.BootstrapRuns)
+	}
+	t.Logf("N = 25 of 30: rate %.3f [%.3f, %.3f] (n_eff %.2f)", mid.Recovery[0][0], mid.CILow[0][0], mid.CIHigh[0][0], mid.EffectiveReplicates[0][0])
+	if len(mid.Flags) != 1 || mid.Flags[0].Reason != "N = 25 is above half the pool of 30: replicate groups overlap heavily (any two share at least 20 participants, 20.8 on average)" {
+		t.Errorf("N = 25 of 30: flags %+v", mid.Flags)
+	}
+}
+
+// TestGroupIntervalCoverage draws 60 fresh pools of one generator and
+// checks that the intervals cover the mean rate over pools (the rate of a
+// fresh group of N, up to the mean's own error) in at least 85% of them at
+// every size, where the plain Wilson interval over the replicates covers it
+// in well under half at the larger sizes: the pool's sampling error is
+// real, and the intervals carry it.
+func TestGroupIntervalCoverage(t *testing.T) {
+	if testing.Short() {
+		t.Skip("60 sweeps")
+	}
+	gens := []string{"a", "b", "c", "d"}
+	r := models.Replication{GroupSizes: []int{6, 15, 30}, Replicates: 300, PXPThreshold: 0.95, TargetRate: 0.8}
+	const pools, P = 60, 60
+	rates := make([][]float64, len(r.GroupSizes))
+	var reports []*GroupReport
+	for k := 0; k < pools; k++ {
+		ps := [][][]float64{controlledPool(uint64(5000+k), P, 4, 0, 3, 2.5)}
+		for g := 1; g < 4; g++ {
+			ps = append(ps, controlledPool(uint64(6000+k), 2, 4, g, 1, 1)) // too small for any size
+		}
+		gr := sweepOne(uint64(k+1), gens, ps, r, runtime.GOMAXPROCS(0))
+		reports = append(reports, gr)
+		for n := range r.GroupSizes {
+			rates[n] = append(rates[n], float64(gr.Recovery[0][n]))
+		}
+	}
+	for n, N := range r.GroupSizes {
+		mean := floats.Sum(rates[n]) / pools
+		covered, plain := 0, 0
+		for _, gr := range reports {
+			if float64(gr.CILow[0][n]) <= mean && mean <= float64(gr.CIHigh[0][n]) {
+				covered++
+			}
+			if lo, hi := WilsonInterval(float64(gr.Successes[0][n]), float64(r.Replicates)); lo <= mean && mean <= hi {
+				plain++
+			}
+		}
+		t.Logf("N = %d of %d: mean rate %.3f; covered by %d of %d intervals (plain Wilson: %d)", N, P, mean, covered, pools, plain)
+		if covered < pools*85/100 {
+			t.Errorf("N = %d: %d of %d intervals cover the mean rate %.3f, want at least 85%%", N, covered, pools, mean)
+		}
+		if N >= 15 && plain > pools/2 {
+			t.Errorf("N = %d: the plain Wilson interval covers the mean rate in %d of %d pools; the check has lost its point", N, plain, pools)
+		}
 	}
 }
 
@@ -674,20 +867,27 @@ func TestDemoGroupAndRanking(t *testing.T) {
 	}
 }
 
-// BenchmarkGroupSweep: one design, 6 generators × 100 participants × 6
-// candidates, 3 sizes × 500 replicates (9,000 group analyses), all cores.
+// BenchmarkGroupSweep: one design of the demo's size, 6 generators × 100
+// participants × 6 candidates, the default group sizes for that pool
+// (models.DefaultGroupSizes(100): 5, 10, 20, 50) × 500 replicates, with
+// the bootstrap rounds over each pool, on all cores. The demo study runs
+// the sweep once per design, so twice this against BenchmarkDemoStudy is
+// the sweep's share of a run.
 //
-//	go test ./recovery -run XXX -bench GroupSweep
+//	go test ./recovery -run XXX -bench GroupSweep -benchtime 5x
 func BenchmarkGroupSweep(b *testing.B) {
 	gens := []string{"g0", "g1", "g2", "g3", "g4", "g5"}
 	dp := designPools{Name: "bench"}
 	for g := range gens {
 		dp.Pools = append(dp.Pools, newEvidencePool(controlledPool(uint64(400+g), 100, 6, g, 1+0.5*float64(g), 3), 6))
 	}
-	r := models.Replication{GroupSizes: []int{10, 20, 40}, Replicates: 500, PXPThreshold: 0.95, TargetRate: 0.8}
+	r := models.Replication{GroupSizes: models.DefaultGroupSizes(100), Replicates: 500, PXPThreshold: 0.95, TargetRate: 0.8}
+	var gr *GroupReport
 	for b.Loop() {
-		sweepGroups(1, gens, []designPools{dp}, r, runtime.GOMAXPROCS(0))
+		gr = sweepGroups(1, gens, []designPools{dp}, r, runtime.GOMAXPROCS(0))[0]
 	}
+	b.ReportMetric(float64(gr.BMSRuns), "replicate-analyses")
+	b.ReportMetric(float64(gr.BootstrapRuns), "bootstrap-analyses")
 }
 
 // TestVaryDesignsRanked: a vary block expands one design into variants
@@ -730,4 +930,56 @@ func TestVaryDesignsRanked(t *testing.T) {
 		t.Errorf("verdict %q does not start with the preferred design %q", rep.Verdict, rep.Preferred)
 	}
 	t.Logf("%+v\n%s", rep.Ranking, rep.Verdict)
+}
+
+// TestSmallStudyWithoutReplication: a study of 20 participants per
+// generator with no replication block validates (the default group sizes
+// follow the pool: 5 and 10, at most half of it) and runs end to end, with
+// a group report whose intervals carry the pool's error and no flag.
+func TestSmallStudyWithoutReplication(t *testing.T) {
+	s := mustStudy(t, `{
+	  "name": "twenty participants (invented)", "seed": 3,
+	  "designs": [{"name": "short", "cti_ms": [300, 900], "trials_per_cti": 10, "participants": 20, "measures": ["rt", "accuracy"]}],
+	  "hypotheses": [
+	    {"name": "flat", "family": "constant", "params": {"level": {"min": 0.3, "max": 1.5}}},
+	    {"name": "ramp", "family": "linear", "params": {"slope": {"min": 0.5, "max": 3}}}
+	  ]
+	}`)
+	if !reflect.DeepEqual(s.Replication.GroupSizes, []int{5, 10}) || s.Replication.Replicates != 500 {
+		t.Fatalf("default replication %+v, want group sizes [5 10] and 500 replicates", s.Replication)
+	}
+	rep, err := Run(context.Background(), s, Options{Workers: 2})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(rep.Designs) != 1 || rep.Designs[0].Group == nil {
+		t.Fatalf("designs %d, group report missing", len(rep.Designs))
+	}
+	g := rep.Designs[0].Group
+	if !reflect.DeepEqual(g.GroupSizes, []int{5, 10}) || !reflect.DeepEqual(g.Pool, []int{20, 20}) || len(g.Flags) != 0 {
+		t.Errorf("group sizes %v, pool %v, flags %+v; want [5 10], [20 20] and none (10 is half the pool)", g.GroupSizes, g.Pool, g.Flags)
+	}
+	if g.BMSRuns != 2*2*500 || !reflect.DeepEqual(g.BootstrapGroups, [][]int{{2, 2}, {2, 2}}) || g.BootstrapRuns != 2*2*200*2 {
+		t.Errorf("%d replicate analyses, bootstrap groups %v, %d bootstrap analyses; want 2000, [[2 2] [2 2]], 1600", g.BMSRuns, g.BootstrapGroups, g.BootstrapRuns)
+	}
+	for gi, row := range g.Recovery {
+		for n, v := range row {
+			lo, hi, ne := float64(g.CILow[gi][n]), float64(g.CIHigh[gi][n]), float64(g.EffectiveReplicates[gi][n])
+			// n_eff ≤ 500/(1 + 499·(N/P)²): 500/32.2 at N = 5, 500/125.8 at N = 10.
+			limit := 500 / (1 + 499*math.Pow(float64(g.GroupSizes[n])/20, 2))
+			if !(lo <= float64(v) && float64(v) <= hi) || !(ne >= 1 && ne <= limit+1e-9) {
+				t.Errorf("%s at N = %d: rate %v, interval [%v, %v], n_eff %v (want at most %v)", g.Generators[gi], g.GroupSizes[n], v, lo, hi, ne, limit)
+			}
+		}
+	}
+	js, err := rep.JSON()
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, key := range []string{`"pool": [`, `"flags": []`, `"effective_replicates"`, `"group_bootstrap_rounds": 200`} {
+		if !strings.Contains(string(js), key) {
+			t.Errorf("report.json lacks %s", key)
+		}
+	}
+	t.Logf("recovery %v, intervals %v–%v, n_eff %v\n%s", g.Recovery, g.CILow, g.CIHigh, g.EffectiveReplicates, strings.Join(g.Summary, "\n"))
 }

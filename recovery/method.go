@@ -58,6 +58,9 @@ type Method struct {
 	// random-effects model selection.
 	BMSTolerance     float64 `json:"bms_tolerance"`
 	BMSMaxIterations int     `json:"bms_max_iterations"`
+	// GroupBootstrapRounds is the number of times the outer bootstrap of
+	// the group recovery intervals resamples each generator's pool.
+	GroupBootstrapRounds int `json:"group_bootstrap_rounds"`
 	// ITIms is the inter-trial interval, in ms, that testing minutes assume.
 	ITIms int `json:"iti_ms"`
 	// Grid refinement of one-parameter grids: a cell is split while its
@@ -99,7 +102,7 @@ func CurrentMethod() Method {
 		SERoughStep:     seRoughStep, SEFineStep: seFineStep, SEMaxChange: hessianMaxSEChange, SEEdge: seEdge,
 		FlatSE:       flatSE,
 		TieTolerance: TieTolerance,
-		BMSTolerance: bmsTol, BMSMaxIterations: bmsMaxIter,
+		BMSTolerance: bmsTol, BMSMaxIterations: bmsMaxIter, GroupBootstrapRounds: groupBootstrapRounds,
 		ITIms:         itiMs,
 		GridTolerance: gridTolerance, JumpWidth: jumpWidth, RefineBudget: refineBudget,
 		ContentionWindow: contentionWindow, ModeWindow: modeWindow, ModeTries: modeTries,

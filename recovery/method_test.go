@@ -25,6 +25,7 @@ func TestCurrentMethodQuotesTheCode(t *testing.T) {
 		{"grid_nodes_4d", m.GridNodes4D, gridPoints[4]},
 		{"surrogate_points", m.SurrogatePoints, surrogatePoints},
 		{"bms_max_iterations", m.BMSMaxIterations, bmsMaxIter},
+		{"group_bootstrap_rounds", m.GroupBootstrapRounds, groupBootstrapRounds},
 		{"iti_ms", m.ITIms, itiMs},
 	}
 	for _, c := range ints {
