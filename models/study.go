@@ -46,25 +46,25 @@ var RankingObjectives = []string{ObjectiveInformation, ObjectiveInformationPerMi
 // Design is one experiment being planned (model.md §1). Times are in
 // milliseconds. A zero field means its documented default (see Defaults).
 type Design struct {
-	Name             string      `json:"name"`
-	Streams          int         `json:"streams"`
-	Items            int         `json:"items"`
-	Validity         float64     `json:"validity"`
-	CTIms            []int       `json:"cti_ms"`
-	CTIWeights       []float64   `json:"cti_weights,omitempty"`
-	TrialsPerCTI     int         `json:"trials_per_cti"`
-	Participants     int         `json:"participants"`
-	Measures         []string    `json:"measures"`
-	PresentationMs   int         `json:"presentation_ms"`
-	ResponseWindowMs int         `json:"response_window_ms"`
-	EpochMs          int         `json:"epoch_ms"`
-	EEGBinMs         int         `json:"eeg_bin_ms"`
-	CueMs            int         `json:"cue_ms,omitempty"`
+	Name             string    `json:"name"`
+	Streams          int       `json:"streams"`
+	Items            int       `json:"items"`
+	Validity         float64   `json:"validity"`
+	CTIms            []int     `json:"cti_ms"`
+	CTIWeights       []float64 `json:"cti_weights,omitempty"`
+	TrialsPerCTI     int       `json:"trials_per_cti"`
+	Participants     int       `json:"participants"`
+	Measures         []string  `json:"measures"`
+	PresentationMs   int       `json:"presentation_ms"`
+	ResponseWindowMs int       `json:"response_window_ms"`
+	EpochMs          int       `json:"epoch_ms"`
+	EEGBinMs         int       `json:"eeg_bin_ms"`
+	CueMs            int       `json:"cue_ms,omitempty"`
 	// ITIms is the inter-trial interval, counted in the minutes of testing
 	// only; default 1000.
 	ITIms       int         `json:"iti_ms"`
-	Agent            Agent       `json:"agent"`
-	Measurement      Measurement `json:"measurement"`
+	Agent       Agent       `json:"agent"`
+	Measurement Measurement `json:"measurement"`
 	// Vary expands this design into variants, one per listed alternative
 	// value of a field (model.md §8). Empty means the design stands alone.
 	Vary []Variation `json:"vary,omitempty"`
