@@ -58,8 +58,6 @@ type Method struct {
 	// random-effects model selection.
 	BMSTolerance     float64 `json:"bms_tolerance"`
 	BMSMaxIterations int     `json:"bms_max_iterations"`
-	// ITIms is the inter-trial interval, in ms, that testing minutes assume.
-	ITIms int `json:"iti_ms"`
 }
 
 // CurrentMethod returns the constants this build of recovery fits and
@@ -76,6 +74,5 @@ func CurrentMethod() Method {
 		FlatSE:       flatSE,
 		TieTolerance: TieTolerance,
 		BMSTolerance: bmsTol, BMSMaxIterations: bmsMaxIter,
-		ITIms: itiMs,
 	}
 }
