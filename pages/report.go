@@ -531,7 +531,7 @@ func newRankingView(r *recovery.Report) *rankingView {
 			if !m.Paired {
 				pairing = "not paired: the designs' participant counts differ"
 			}
-			v.Bootstrap = fmt.Sprintf("%s%% percentile intervals of a bootstrap over the synthetic participants, %d rounds, %s", fmtG(100*m.Level, 3), m.BootstrapRounds, pairing)
+			v.Bootstrap = fmt.Sprintf("%s%% percentile interval from a bootstrap over the synthetic participants (%d rounds, %s)", fmtG(100*m.Level, 3), m.BootstrapRounds, pairing)
 		}
 	}
 	fmtFig := func(x recovery.NullFloat, perMinute bool) string {

@@ -366,7 +366,7 @@ func TestHTMLReport(t *testing.T) {
 	// rank 1, whether the target is reached.
 	for _, want := range []string{
 		"Ranked by the fewest minutes per participant among designs whose BIC recovery rate reaches the target of 0.80",
-		"95% percentile intervals of a bootstrap over the synthetic participants, 1000 rounds, the same participants resampled for every design",
+		"Under each figure: its 95% percentile interval from a bootstrap over the synthetic participants (1000 rounds, the same participants resampled for every design).",
 		`<th class="num objective">recovery rate</th>`, `<th class="num">rank 1 minus this</th>`, `<th>reaches the target</th>`,
 		`<td class="num objective">0.83<span class="ci">0.74 to 0.91</span></td>`,
 		`<td class="num">0.62<span class="ci">0.52 to 0.73</span></td>`,

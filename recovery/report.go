@@ -529,9 +529,9 @@ func verdict(names []string, dr DesignReport) []string {
 	if npairs == 0 {
 		return out
 	}
-	out = append(out, fmt.Sprintf("Of the %d pairs of hypotheses, under BIC %d %s told apart, %d only one way, %d not at all, and for %d the %d synthetic participants per hypothesis do not settle it. "+
-		"A direction, \"A's data won by B\", is the share of A's synthetic participants whose lowest BIC is B's; it is clean when its 95%% interval lies below %s and confused when the interval lies at or above %s. "+
-		"A pair is told apart when both directions are clean, one way only when one is clean and the other confused, not at all when one is confused and the other not clean.",
+	out = append(out, fmt.Sprintf("Of the %d pairs of hypotheses, under BIC %d %s told apart, %d only one way and %d not at all; for %d the %d synthetic participants per hypothesis do not settle it. "+
+		"The rule: \"A's data won by B\" is the share of A's synthetic participants whose lowest BIC is B's; that direction is clean when its 95%% interval lies below %s, confused when the interval lies at or above %s; "+
+		"a pair is told apart when both directions are clean, one way only when one is clean and the other confused, not at all when one is confused and the other not clean.",
 		npairs, len(groups[toldApart]), plural(len(groups[toldApart]), "is", "are"), len(groups[oneWayOnly]), len(groups[notToldApart]), len(groups[unsettledPair]),
 		dr.Participants, pct(pairConfusion), pct(pairConfusion)))
 	withCI := func(p pair) string {
@@ -545,7 +545,7 @@ func verdict(names []string, dr DesignReport) []string {
 		out = append(out, "Told apart one way only: "+withCI(p)+".")
 	}
 	for _, p := range groups[unsettledPair] {
-		out = append(out, fmt.Sprintf("Not settled by %d synthetic participants per hypothesis: %s.", dr.Participants, withCI(p)))
+		out = append(out, "Not settled: "+withCI(p)+".")
 	}
 	if g := groups[toldApart]; len(g) > 0 {
 		var parts []string
@@ -579,17 +579,17 @@ func weaknesses(dr DesignReport) []string {
 		case math.IsNaN(r):
 			why = append(why, fmt.Sprintf("r cannot be computed (%d usable %s)", p.N, plural(p.N, "estimate", "estimates")))
 		case r < weakR:
-			why = append(why, fmt.Sprintf("r = %s between truth and estimate (below %s)", f2(p.R), f2(weakR)))
+			why = append(why, fmt.Sprintf("r = %s between truth and estimate (want %s or more)", f2(p.R), f2(weakR)))
 		}
 		switch {
 		case math.IsNaN(cov):
 			why = append(why, "no reliable standard error, so the coverage of its intervals is unknown")
 		case cov < coverageLow || cov > coverageHigh:
-			why = append(why, fmt.Sprintf("its 95%% intervals cover the truth in %s of participants (outside %s; from %d reliable %s of %d estimates)",
-				pct(cov), pctRange(coverageLow, coverageHigh), p.ReliableSEs, plural(p.ReliableSEs, "SE", "SEs"), p.N))
+			why = append(why, fmt.Sprintf("its 95%% intervals hold the true value in %s of the participants checked (want %s; %d of %d estimates have a reliable SE)",
+				pct(cov), pctRange(coverageLow, coverageHigh), p.ReliableSEs, p.N))
 		}
 		if at > atBoundMax {
-			why = append(why, fmt.Sprintf("%s of its estimates end at an end of its range (over %s)", pct(at), pct(atBoundMax)))
+			why = append(why, fmt.Sprintf("%s of its estimates end at an end of its range (want %s or fewer)", pct(at), pct(atBoundMax)))
 		}
 		if p.Flat {
 			why = append(why, fmt.Sprintf("its median SE, %s, is more than a quarter of its range", strconv.FormatFloat(float64(p.MedianSE), 'g', 3, 64)))

@@ -97,7 +97,7 @@ func TestVerdictNamesEveryPair(t *testing.T) {
 		{2, 3}: "Not told apart: under BIC, late-surge's data won by early-lift in 34% (95% interval 25–44%); early-lift's data won by late-surge in 12% (7–20%).",
 		{4, 5}: "Not told apart: under BIC, lamp-switch's data won by timed-expectation in 30%",
 		{0, 1}: "Told apart one way only: under BIC, steady-watch's data won by linear-ramp in 0% (95% interval 0–4%); linear-ramp's data won by steady-watch in 34%",
-		{1, 4}: "Not settled by 100 synthetic participants per hypothesis: under BIC, linear-ramp's data won by lamp-switch in 8% (95% interval 4–15%)",
+		{1, 4}: "Not settled: under BIC, linear-ramp's data won by lamp-switch in 8% (95% interval 4–15%)",
 		{0, 3}: "Told apart, under BIC: ",
 		{0, 2}: "Told apart, under BIC: ",
 	} {
@@ -108,7 +108,7 @@ func TestVerdictNamesEveryPair(t *testing.T) {
 	if !strings.Contains(lines[[2]int{0, 3}], "steady-watch's data won by early-lift in 0% and early-lift's data won by steady-watch in 2%") {
 		t.Errorf("told-apart line %q lacks steady-watch/early-lift with directions", lines[[2]int{0, 3}])
 	}
-	if want := "Of the 15 pairs of hypotheses, under BIC 11 are told apart, 1 only one way, 2 not at all, and for 1 the 100 synthetic participants per hypothesis do not settle it."; !strings.HasPrefix(v[1], want) {
+	if want := "Of the 15 pairs of hypotheses, under BIC 11 are told apart, 1 only one way and 2 not at all; for 1 the 100 synthetic participants per hypothesis do not settle it."; !strings.HasPrefix(v[1], want) {
 		t.Errorf("second line %q, want it to start %q", v[1], want)
 	}
 	if want := "Under BIC this design recovers the generating hypothesis in 76% of synthetic participants on average (normalised mutual information "; !strings.HasPrefix(v[0], want) {
@@ -165,21 +165,21 @@ func TestVerdictWeaknesses(t *testing.T) {
 		want string
 	}{
 		{"r below 0.8", func(d *DesignReport) { d.ParamRecovery[0].R = 0.45 },
-			"Parameter slope of ramp is poorly recovered: r = 0.45 between truth and estimate (below 0.80)."},
+			"Parameter slope of ramp is poorly recovered: r = 0.45 between truth and estimate (want 0.80 or more)."},
 		{"r unknown", func(d *DesignReport) { d.ParamRecovery[0].R = NullFloat(math.NaN()); d.ParamRecovery[0].N = 1 },
 			"Parameter slope of ramp is poorly recovered: r cannot be computed (1 usable estimate)."},
 		{"coverage low", func(d *DesignReport) { d.ParamRecovery[0].Coverage = 0.62 },
-			"Parameter slope of ramp is poorly recovered: its 95% intervals cover the truth in 62% of participants (outside 85–99%; from 90 reliable SEs of 100 estimates)."},
+			"Parameter slope of ramp is poorly recovered: its 95% intervals hold the true value in 62% of the participants checked (want 85–99%; 90 of 100 estimates have a reliable SE)."},
 		{"coverage high", func(d *DesignReport) { d.ParamRecovery[0].Coverage = 1 },
-			"its 95% intervals cover the truth in 100% of participants (outside 85–99%; from 90 reliable SEs of 100 estimates)."},
+			"its 95% intervals hold the true value in 100% of the participants checked (want 85–99%; 90 of 100 estimates have a reliable SE)."},
 		{"coverage unknown", func(d *DesignReport) { d.ParamRecovery[0].Coverage = NullFloat(math.NaN()) },
 			"no reliable standard error, so the coverage of its intervals is unknown"},
 		{"at a bound", func(d *DesignReport) { d.ParamRecovery[0].AtBound = 0.14 },
-			"Parameter slope of ramp is poorly recovered: 14% of its estimates end at an end of its range (over 10%)."},
+			"Parameter slope of ramp is poorly recovered: 14% of its estimates end at an end of its range (want 10% or fewer)."},
 		{"flat", func(d *DesignReport) { d.ParamRecovery[0].Flat = true; d.ParamRecovery[0].MedianSE = 0.8 },
 			"its median SE, 0.8, is more than a quarter of its range."},
 		{"several at once", func(d *DesignReport) { d.ParamRecovery[0].R = 0.5; d.ParamRecovery[0].AtBound = 0.3 },
-			"r = 0.50 between truth and estimate (below 0.80); 30% of its estimates end at an end of its range (over 10%)."},
+			"r = 0.50 between truth and estimate (want 0.80 or more); 30% of its estimates end at an end of its range (want 10% or fewer)."},
 		{"grid over tolerance", func(d *DesignReport) { d.Surrogate[0].OverTolerance = true; d.Surrogate[0].LogLikError = 2.34 },
 			"The prediction grid of ramp is over tolerance: interpolation moves ln L by up to 2.34 for a typical dataset even after refinement"},
 		{"jumps", func(d *DesignReport) { d.Surrogate[0].Jumps = true },
