@@ -92,11 +92,14 @@ type htmlView struct {
 	R          *recovery.Report
 	Hypotheses []hypView
 	Designs    []designView
-	Ranking    []recovery.DesignRank
+	Ranking    *rankingView
 	HasGroup   bool
-	Sections   []sectionLink
-	Timing     string
-	Method     methodView
+	// ITINote names each design's inter-trial interval for the notes on
+	// testing minutes.
+	ITINote  string
+	Sections []sectionLink
+	Timing   string
+	Method   methodView
 }
 
 // methodView holds the method constants the notes quote, formatted from
@@ -107,7 +110,7 @@ type methodView struct {
 	Missing                                    bool
 	Starts, StartSpacing, RescoreWindow        string
 	LapseMax, ARMax                            string
-	SERoughStep, SEFineStep, SEChange, ITI     string
+	SERoughStep, SEFineStep, SEChange          string
 	GridTolerance, JumpWidth, ContentionWindow string
 	ModeTries, ModeWindow, ProfileThreshold    string
 	TruthTolerance                             string
@@ -120,7 +123,7 @@ func newMethodView(m recovery.Method) methodView {
 	if m == (recovery.Method{}) {
 		const dash = "—"
 		return methodView{Missing: true, Starts: dash, StartSpacing: dash, RescoreWindow: dash, LapseMax: dash, ARMax: dash,
-			SERoughStep: dash, SEFineStep: dash, SEChange: dash, ITI: dash, GridTolerance: dash, JumpWidth: dash,
+			SERoughStep: dash, SEFineStep: dash, SEChange: dash, GridTolerance: dash, JumpWidth: dash,
 			ContentionWindow: dash, ModeTries: dash, ModeWindow: dash, ProfileThreshold: dash, TruthTolerance: dash,
 			GroupBootstrapRounds: dash}
 	}
@@ -133,7 +136,6 @@ func newMethodView(m recovery.Method) methodView {
 		Starts: strconv.Itoa(m.Starts), StartSpacing: countWord(m.StartSpacing), RescoreWindow: fmtG(m.RescoreWindow, 3),
 		LapseMax: fmtG(m.LapseMax, 3), ARMax: fmtG(m.ARMax, 3),
 		SERoughStep: fmtG(100*m.SERoughStep, 3) + "%", SEFineStep: fractionOf(m.SEFineStep), SEChange: fmtG(100*m.SEMaxChange, 3) + "%",
-		ITI:           fmtG(float64(m.ITIms)/1000, 3) + " s",
 		GridTolerance: fmtG(m.GridTolerance, 3), JumpWidth: fmtG(m.JumpWidth, 3), ContentionWindow: fmtG(m.ContentionWindow, 3),
 		ModeTries: countWord(m.ModeTries), ModeWindow: fmtG(m.ModeWindow, 3), ProfileThreshold: fmtG(m.ProfileThreshold, 5),
 		TruthTolerance: fmtG(m.TruthTolerance, 3), GroupBootstrapRounds: rounds,
@@ -170,6 +172,7 @@ type designView struct {
 	Participants int
 	Trials       int
 	Minutes      float64
+	ITI          string
 	CTIs         string
 	Validity     string
 	Verdict      []string
@@ -262,8 +265,7 @@ func Report(r *recovery.Report) ([]byte, error) {
 	if r == nil {
 		panic("pages: Report: nil report")
 	}
-	v := htmlView{R: r, Ranking: append([]recovery.DesignRank(nil), r.Ranking...), Method: newMethodView(r.Method)}
-	sort.SliceStable(v.Ranking, func(a, b int) bool { return v.Ranking[a].Rank < v.Ranking[b].Rank })
+	v := htmlView{R: r, Ranking: newRankingView(r), Method: newMethodView(r.Method), ITINote: itiNote(r.Designs)}
 	hypIndex := map[string]int{}
 	specs := map[string]models.Hypothesis{}
 	if r.StudyFile != nil {
@@ -349,7 +351,7 @@ func designPage(r *recovery.Report, di int, hypIndex map[string]int, specs map[s
 	d := &r.Designs[di]
 	dv := designView{
 		Name: d.Name, Measures: strings.Join(d.Measures, ", "), Participants: d.Participants, Trials: d.TrialsPerParticipant,
-		Minutes: d.MinutesPerParticipant, Verdict: d.Verdict, Tradeoffs: d.Tradeoffs, Mimicry: d.Mimicry,
+		Minutes: d.MinutesPerParticipant, ITI: fmtITI(d.ITIms), Verdict: d.Verdict, Tradeoffs: d.Tradeoffs, Mimicry: d.Mimicry,
 		Health: d.FitFailures, Surrogate: d.Surrogate,
 	}
 	if sd := findDesign(r, d.Name); sd != nil {
@@ -449,6 +451,169 @@ func designPage(r *recovery.Report, di int, hypIndex map[string]int, specs map[s
 		return dv, err
 	}
 	return dv, nil
+}
+
+// fmtITI writes an inter-trial interval in seconds, or a dash for a
+// report made before designs recorded it.
+func fmtITI(ms int) string {
+	if ms <= 0 {
+		return "—"
+	}
+	return fmtG(float64(ms)/1000, 3) + " s"
+}
+
+// itiNote names the designs' inter-trial intervals: "1 s in every
+// design", or each design's.
+func itiNote(ds []recovery.DesignReport) string {
+	if len(ds) == 0 {
+		return "—"
+	}
+	same := true
+	for _, d := range ds {
+		same = same && d.ITIms == ds[0].ITIms
+	}
+	if same {
+		if len(ds) == 1 {
+			return fmtITI(ds[0].ITIms)
+		}
+		return fmtITI(ds[0].ITIms) + " in every design"
+	}
+	parts := make([]string, len(ds))
+	for i, d := range ds {
+		parts[i] = fmtITI(d.ITIms) + " for " + d.Name
+	}
+	return strings.Join(parts, ", ")
+}
+
+// rankingView is the ranking table: one row per design in rank order,
+// one cell per figure with its 95% bootstrap interval, the objective's
+// figure marked.
+type rankingView struct {
+	Objective string // in words
+	Headers   []rankHeader
+	Rows      []rankRow
+	Bootstrap string // how the intervals were made, or "" without them
+	Cheapest  bool   // show the reaches-target column
+	Target    string
+}
+
+type rankHeader struct {
+	Label     string
+	Objective bool
+}
+
+type rankRow struct {
+	Rank    int
+	Design  string
+	Best    bool
+	Cells   []rankCell
+	Diff    rankCell
+	Trials  int
+	Minutes float64
+	Reaches string
+}
+
+type rankCell struct {
+	Value, Interval string
+	Objective       bool
+}
+
+// rankFigures are the ranking's figures in table order: JSON name, header,
+// digits (0: two decimals), and the row's value and interval.
+var rankFigures = []struct {
+	name, label string
+	perMinute   bool
+	get         func(*recovery.DesignRank) (recovery.NullFloat, recovery.Bounds)
+}{
+	{"normalized_mi", "normalised MI", false, func(r *recovery.DesignRank) (recovery.NullFloat, recovery.Bounds) {
+		return r.NormalizedMI, r.NormalizedMIInterval
+	}},
+	{"worst_diagonal", "worst diagonal", false, func(r *recovery.DesignRank) (recovery.NullFloat, recovery.Bounds) {
+		return r.WorstDiagonal, r.WorstDiagonalInterval
+	}},
+	{"recovery_rate", "recovery rate", false, func(r *recovery.DesignRank) (recovery.NullFloat, recovery.Bounds) {
+		return r.RecoveryRate, r.RecoveryRateInterval
+	}},
+	{"parameter_r", "parameter r", false, func(r *recovery.DesignRank) (recovery.NullFloat, recovery.Bounds) {
+		return r.ParameterR, r.ParameterRInterval
+	}},
+	{"normalized_mi_per_minute", "normalised MI per minute", true, func(r *recovery.DesignRank) (recovery.NullFloat, recovery.Bounds) {
+		return r.NormalizedMIPerMinute, r.NormalizedMIPerMinuteInterval
+	}},
+}
+
+// rankObjectives names each ranking objective on the page.
+var rankObjectives = map[string]string{
+	models.ObjectiveInformation:          "normalised mutual information under BIC",
+	models.ObjectiveInformationPerMinute: "normalised mutual information under BIC per minute of testing",
+	models.ObjectiveWorstRecovery:        "the worst diagonal of the BIC confusion matrix",
+	models.ObjectiveCheapestReaching:     "the fewest minutes per participant among designs whose BIC recovery rate reaches the target",
+}
+
+func newRankingView(r *recovery.Report) *rankingView {
+	if len(r.Ranking) == 0 {
+		return nil
+	}
+	rows := append([]recovery.DesignRank(nil), r.Ranking...)
+	sort.SliceStable(rows, func(a, b int) bool { return rows[a].Rank < rows[b].Rank })
+	v := &rankingView{}
+	figure := ""
+	if m := r.RankedBy; m != nil {
+		figure = m.Figure
+		v.Objective = rankObjectives[m.Objective]
+		if v.Objective == "" {
+			v.Objective = m.Objective
+		}
+		v.Cheapest = m.Objective == models.ObjectiveCheapestReaching
+		v.Target = fmtProb(m.Target)
+		if m.BootstrapRounds > 0 {
+			pairing := "the same participants resampled for every design"
+			if !m.Paired {
+				pairing = "not paired: the designs' participant counts differ"
+			}
+			v.Bootstrap = fmt.Sprintf("%s%% percentile interval from a bootstrap over the synthetic participants (%d rounds, %s)", fmtG(100*m.Level, 3), m.BootstrapRounds, pairing)
+		}
+	}
+	fmtFig := func(x recovery.NullFloat, perMinute bool) string {
+		if perMinute {
+			return fmtG(float64(x), 3)
+		}
+		return fmtProb(float64(x))
+	}
+	interval := func(iv recovery.Bounds, perMinute bool) string {
+		if !finite(float64(iv.Low)) || !finite(float64(iv.High)) {
+			return ""
+		}
+		return fmtFig(iv.Low, perMinute) + " to " + fmtFig(iv.High, perMinute)
+	}
+	objPerMinute := false
+	for _, f := range rankFigures {
+		v.Headers = append(v.Headers, rankHeader{Label: f.label, Objective: f.name == figure})
+		if f.name == figure {
+			objPerMinute = f.perMinute
+		}
+	}
+	for i := range rows {
+		row := &rows[i]
+		rr := rankRow{Rank: row.Rank, Design: row.Design, Best: row.Design == r.Preferred, Trials: row.TrialsPerParticipant, Minutes: row.MinutesPerParticipant}
+		for _, f := range rankFigures {
+			x, iv := f.get(row)
+			rr.Cells = append(rr.Cells, rankCell{Value: fmtFig(x, f.perMinute), Interval: interval(iv, f.perMinute), Objective: f.name == figure})
+		}
+		if row.Rank > 1 {
+			rr.Diff = rankCell{Value: fmtFig(row.DifferenceToFirst, objPerMinute), Interval: interval(row.DifferenceInterval, objPerMinute)}
+		} else {
+			rr.Diff = rankCell{Value: "—"}
+		}
+		if row.ReachesTarget != nil {
+			rr.Reaches = "no"
+			if *row.ReachesTarget {
+				rr.Reaches = "yes"
+			}
+		}
+		v.Rows = append(v.Rows, rr)
+	}
+	return v
 }
 
 func joinInts(x []int) string {

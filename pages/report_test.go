@@ -144,11 +144,21 @@ func htmlReport(group bool) *recovery.Report {
 		Families: []string{"constant", "linear", "logistic"}, StudyFile: study,
 		Designs: []recovery.DesignReport{htmlDesign("behaviour", []string{"rt", "accuracy"}, group), htmlDesign("behaviour+eeg", []string{"rt", "accuracy", "eeg"}, false)},
 	}
+	r.Designs[0].ITIms, r.Designs[1].ITIms = 1000, 1500
 	if group {
-		r.Ranking = []recovery.DesignRank{
-			{Design: "behaviour+eeg", Rank: 2, NormalizedMI: 0.55, WorstDiagonal: 0.6, ParameterR: 0.7, TrialsPerParticipant: 90, MinutesPerParticipant: 4.65, NormalizedMIPerMinute: 0.118},
-			{Design: "behaviour", Rank: 1, NormalizedMI: 0.62, WorstDiagonal: 0.67, ParameterR: 0.8, TrialsPerParticipant: 90, MinutesPerParticipant: 4.65, NormalizedMIPerMinute: 0.133},
+		iv := func(lo, hi float64) recovery.Bounds {
+			return recovery.Bounds{Low: recovery.NullFloat(lo), High: recovery.NullFloat(hi)}
 		}
+		no, yes := false, true
+		r.Ranking = []recovery.DesignRank{
+			{Design: "behaviour+eeg", Rank: 2, Figure: 0.72, FigureInterval: iv(0.61, 0.8), DifferenceToFirst: 0.11, DifferenceInterval: iv(0.02, 0.2), ReachesTarget: &no,
+				NormalizedMI: 0.55, NormalizedMIInterval: iv(0.45, 0.66), WorstDiagonal: 0.6, WorstDiagonalInterval: iv(0.4, 0.75), RecoveryRate: 0.72, RecoveryRateInterval: iv(0.61, 0.8),
+				ParameterR: 0.7, ParameterRInterval: iv(0.6, 0.78), TrialsPerParticipant: 90, MinutesPerParticipant: 4.65, NormalizedMIPerMinute: 0.118, NormalizedMIPerMinuteInterval: iv(0.0968, 0.142)},
+			{Design: "behaviour", Rank: 1, Figure: 0.83, FigureInterval: iv(0.74, 0.91), DifferenceInterval: iv(0, 0), ReachesTarget: &yes,
+				NormalizedMI: 0.62, NormalizedMIInterval: iv(0.52, 0.73), WorstDiagonal: 0.67, WorstDiagonalInterval: iv(0.5, 0.83), RecoveryRate: 0.83, RecoveryRateInterval: iv(0.74, 0.91),
+				ParameterR: 0.8, ParameterRInterval: iv(0.71, 0.86), TrialsPerParticipant: 90, MinutesPerParticipant: 4.65, NormalizedMIPerMinute: 0.133, NormalizedMIPerMinuteInterval: iv(0.112, 0.157)},
+		}
+		r.RankedBy = &recovery.RankingMethod{Objective: models.ObjectiveCheapestReaching, Target: 0.8, Figure: "recovery_rate", BootstrapRounds: 1000, Level: 0.95, Paired: true}
 		r.Preferred = "behaviour"
 		r.Verdict = "behaviour tells the hypotheses apart best for the same testing time."
 	}
@@ -369,6 +379,30 @@ func TestHTMLReport(t *testing.T) {
 	if !strings.Contains(verdict, "Preferred design: behaviour.") {
 		t.Error("preferred design missing")
 	}
+	// The ranking table: every figure with its bootstrap interval, the
+	// objective's column (recovery rate) in bold, the paired difference to
+	// rank 1, whether the target is reached.
+	for _, want := range []string{
+		"Ranked by the fewest minutes per participant among designs whose BIC recovery rate reaches the target of 0.80",
+		"Under each figure: its 95% percentile interval from a bootstrap over the synthetic participants (1000 rounds, the same participants resampled for every design).",
+		`<th class="num objective">recovery rate</th>`, `<th class="num">rank 1 minus this</th>`, `<th>reaches the target</th>`,
+		`<td class="num objective">0.83<span class="ci">0.74 to 0.91</span></td>`,
+		`<td class="num">0.62<span class="ci">0.52 to 0.73</span></td>`,
+		`<td class="num">0.133<span class="ci">0.112 to 0.157</span></td>`,
+		`<td class="num">0.11<span class="ci">0.02 to 0.20</span></td><td>no</td><td class="num">90</td><td class="num">4.7</td></tr>`,
+		`<td class="num">—</td><td>yes</td>`,
+	} {
+		if !strings.Contains(verdict, want) {
+			t.Errorf("verdict section lacks %q", want)
+		}
+	}
+	// Each design's inter-trial interval in the study table and the notes.
+	study := sectionBody(t, page, "study")
+	for _, want := range []string{`<td>300, 600, 900</td><td class="num">1 s</td>`, `<td class="num">1.5 s</td>`, "inter-trial interval (1 s for behaviour, 1.5 s for behaviour&#43;eeg)"} {
+		if !strings.Contains(study, want) {
+			t.Errorf("study section lacks %q", want)
+		}
+	}
 	// Parameter summaries, a failed fit, the flat flag and the method notes.
 	params := sectionBody(t, page, "parameters")
 	for _, want := range []string{"r = 0.95", "coverage = 25%", "1 failed", "poorly identified", "bias = −0.04"} {
@@ -377,7 +411,7 @@ func TestHTMLReport(t *testing.T) {
 		}
 	}
 	method := sectionBody(t, page, "method")
-	for _, want := range []string{"Akaike 1974", "Schwarz 1978", "eLife 8:e49547", "J. Math. Psychol. 48:28", "NeuroImage 46:1004", "NeuroImage 84:971", "inter-trial interval of 1 s"} {
+	for _, want := range []string{"Akaike 1974", "Schwarz 1978", "eLife 8:e49547", "J. Math. Psychol. 48:28", "NeuroImage 46:1004", "NeuroImage 84:971", "(<code>iti_ms</code>): 1 s for behaviour, 1.5 s for behaviour&#43;eeg."} {
 		if !strings.Contains(method, want) {
 			t.Errorf("method notes lack %q", want)
 		}
@@ -435,15 +469,15 @@ func TestHTMLMethodNotesReadReport(t *testing.T) {
 	}{
 		{"this build", recovery.CurrentMethod(), []string{
 			"from the 3 best grid nodes, at least two grid steps apart", "within 1 of the best one in −ln L", "costs more than 0.5 of ln L", "within 1.9207 = χ²₁(0.95)/2", "more than 1e−06 below it", "(in (0, 0.5))", "(in (−0.99, 0.99))",
-			"steps of 1% of each range", "steps of half those", "by more than 20% between", "assume an inter-trial interval of 1 s.",
+			"steps of 1% of each range", "steps of half those", "by more than 20% between",
 		}, []string{"does not record the constants"}},
 		{"other settings", recovery.Method{Starts: 7, StartSpacing: 12, RescoreWindow: 2.5, LapseMax: 0.4, ARMax: 0.9,
-			SERoughStep: 0.02, SEFineStep: 0.25, SEMaxChange: 0.3, ITIms: 1500}, []string{
+			SERoughStep: 0.02, SEFineStep: 0.25, SEMaxChange: 0.3}, []string{
 			"from the 7 best grid nodes, at least 12 grid steps apart", "within 2.5 of the best one in −ln L", "(in (0, 0.4))", "(in (−0.9, 0.9))",
-			"steps of 2% of each range", "steps of 0.25 times those", "by more than 30% between", "assume an inter-trial interval of 1.5 s.",
+			"steps of 2% of each range", "steps of 0.25 times those", "by more than 30% between",
 		}, []string{"from the 3 best", "steps of half those", "does not record the constants"}},
 		{"no method block", recovery.Method{}, []string{"does not record the constants of its method", "from the — best grid nodes", "(in (0, —))"},
-			[]string{"from the 3 best", "interval of 1 s"}},
+			[]string{"from the 3 best"}},
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
@@ -462,14 +496,37 @@ func TestHTMLMethodNotesReadReport(t *testing.T) {
 					t.Errorf("method notes hold %q", w)
 				}
 			}
-			// The study section's note on testing minutes quotes the same interval.
-			iti := c.want[len(c.want)-1]
-			if c.method.ITIms == 0 {
-				iti = "interval of —."
+		})
+	}
+}
+
+// TestHTMLITIFromDesigns: the notes on testing minutes quote each
+// design's own iti_ms (not a method constant), as one value when the
+// designs share it, and a dash for a report made before designs recorded
+// it.
+func TestHTMLITIFromDesigns(t *testing.T) {
+	for _, c := range []struct {
+		name   string
+		a, b   int
+		study  string
+		method string
+	}{
+		{"different", 1000, 2500, "inter-trial interval (1 s for behaviour, 2.5 s for behaviour&#43;eeg)", "(<code>iti_ms</code>): 1 s for behaviour, 2.5 s for behaviour&#43;eeg."},
+		{"shared", 1200, 1200, "inter-trial interval (1.2 s in every design)", "(<code>iti_ms</code>): 1.2 s in every design."},
+		{"not recorded", 0, 0, "inter-trial interval (— in every design)", "(<code>iti_ms</code>): — in every design."},
+	} {
+		t.Run(c.name, func(t *testing.T) {
+			r := htmlReport(true)
+			r.Designs[0].ITIms, r.Designs[1].ITIms = c.a, c.b
+			page := renderHTML(t, r)
+			if !strings.Contains(sectionBody(t, page, "study"), c.study) {
+				t.Errorf("study section lacks %q", c.study)
 			}
-			iti = strings.TrimPrefix(iti, "assume an ")
-			if !strings.Contains(sectionBody(t, page, "study"), iti) {
-				t.Errorf("study section lacks %q", iti)
+			if !strings.Contains(sectionBody(t, page, "method"), c.method) {
+				t.Errorf("method notes lack %q", c.method)
+			}
+			if got := strings.Count(sectionBody(t, page, "study"), `<td class="num">`+fmtITI(c.a)+`</td>`); got < 1 {
+				t.Errorf("study table lacks the ITI column value %q", fmtITI(c.a))
 			}
 		})
 	}

@@ -665,102 +665,6 @@ func TestExceedanceQuadraturePanics(t *testing.T) {
 	}
 }
 
-// rankedDesign builds a design report with the given BIC normalised MI,
-// confusion diagonal, parameter r values and cost.
-func rankedDesign(name string, nmi float64, diag []float64, rs []float64, minutes float64, trials int) DesignReport {
-	conf := make([][]NullFloat, len(diag))
-	for i, d := range diag {
-		conf[i] = make([]NullFloat, len(diag))
-		for j := range conf[i] {
-			conf[i][j] = NullFloat((1 - d) / float64(len(diag)-1))
-		}
-		conf[i][i] = NullFloat(d)
-	}
-	var pr []ParamRecoveryReport
-	for _, r := range rs {
-		pr = append(pr, ParamRecoveryReport{R: NullFloat(r)})
-	}
-	return DesignReport{Name: name, MinutesPerParticipant: minutes, TrialsPerParticipant: trials, ParamRecovery: pr,
-		Criteria: map[Criterion]CriterionReport{"bic": {Confusion: conf, NormalizedMI: NullFloat(nmi)}}}
-}
-
-// TestRankDesigns: the order follows normalised MI, then (within 0.01) the
-// worst diagonal, then mean parameter r (NaN skipped), then fewer minutes,
-// whatever the order the designs are listed in (model.md §8).
-func TestRankDesigns(t *testing.T) {
-	nan := math.NaN()
-	for _, c := range []struct {
-		name    string
-		designs []DesignReport
-		want    []string
-		verdict []string
-	}{
-		{"MI decides", []DesignReport{
-			rankedDesign("behaviour", 0.55, []float64{0.4, 0.9}, []float64{0.8}, 13.3, 160),
-			rankedDesign("behaviour-eeg", 0.71, []float64{0.62, 0.9}, []float64{0.85}, 13.3, 160),
-		}, []string{"behaviour-eeg", "behaviour"}, []string{
-			"Prefer behaviour-eeg over behaviour: it carries more information",
-			"Normalised MI 0.71 vs 0.55, worst-case recovery 0.62 vs 0.40, mean parameter r 0.85 vs 0.80, at the same 13.3 minutes per participant.",
-		}},
-		{"MI tie, worst diagonal decides", []DesignReport{
-			rankedDesign("a", 0.705, []float64{0.40, 0.95}, []float64{0.9}, 10, 100),
-			rankedDesign("b", 0.700, []float64{0.62, 0.80}, []float64{0.5}, 12, 120),
-		}, []string{"b", "a"}, []string{"normalised MI ties within 0.01", "at 12.0 vs 10.0 minutes (120 vs 100 trials) per participant"}},
-		{"MI and diagonal tie, parameter r decides", []DesignReport{
-			rankedDesign("a", 0.70, []float64{0.6, 0.9}, []float64{0.5, nan}, 10, 100),
-			rankedDesign("b", 0.70, []float64{0.6, 0.9}, []float64{0.7, nan, 0.9}, 12, 120),
-		}, []string{"b", "a"}, []string{"parameters are recovered better", "mean parameter r 0.80 vs 0.50"}},
-		{"all tie, fewer minutes", []DesignReport{
-			rankedDesign("long", 0.70, []float64{0.6, 0.9}, []float64{0.8}, 20, 200),
-			rankedDesign("short", 0.705, []float64{0.6, 0.9}, []float64{0.8}, 10, 100),
-		}, []string{"short", "long"}, []string{"in less testing time"}},
-		{"NaN MI last, three designs", []DesignReport{
-			rankedDesign("broken", nan, []float64{nan, nan}, nil, 5, 50),
-			rankedDesign("mid", 0.5, []float64{0.5, 0.5}, []float64{0.5}, 5, 50),
-			rankedDesign("top", 0.9, []float64{0.9, 0.9}, []float64{0.9}, 5, 50),
-		}, []string{"top", "mid", "broken"}, []string{"Prefer top over mid, the runner-up of 3 designs"}},
-		{"one design", []DesignReport{rankedDesign("only", 0.6, []float64{0.5, 0.7}, []float64{0.7}, 13.3, 160)},
-			[]string{"only"}, []string{"Only one design, only: normalised MI 0.60, worst-case recovery 0.50, mean parameter r 0.70, at 13.3 minutes (160 trials) per participant."}},
-	} {
-		t.Run(c.name, func(t *testing.T) {
-			rep := &Report{Designs: c.designs}
-			rankDesigns(rep)
-			var got []string
-			for i, r := range rep.Ranking {
-				got = append(got, r.Design)
-				if r.Rank != i+1 {
-					t.Errorf("row %d has rank %d", i, r.Rank)
-				}
-			}
-			if !reflect.DeepEqual(got, c.want) || rep.Preferred != c.want[0] {
-				t.Errorf("order %v, preferred %q; want %v", got, rep.Preferred, c.want)
-			}
-			for _, w := range c.verdict {
-				if !strings.Contains(rep.Verdict, w) {
-					t.Errorf("verdict %q lacks %q", rep.Verdict, w)
-				}
-			}
-			// The listed order must not matter.
-			rev := &Report{}
-			for i := len(c.designs) - 1; i >= 0; i-- {
-				rev.Designs = append(rev.Designs, c.designs[i])
-			}
-			rankDesigns(rev)
-			a, _ := json.Marshal(rep.Ranking)
-			b, _ := json.Marshal(rev.Ranking)
-			if string(a) != string(b) {
-				t.Errorf("reversed input ranks %+v, want %+v", rev.Ranking, rep.Ranking)
-			}
-		})
-	}
-	rep := &Report{Designs: []DesignReport{rankedDesign("x", 0.6, []float64{0.5, 0.7}, []float64{0.7, nan}, 12, 160)}}
-	rankDesigns(rep)
-	r := rep.Ranking[0]
-	if r.WorstDiagonal != 0.5 || r.ParameterR != 0.7 || r.TrialsPerParticipant != 160 || !scalar.EqualWithinAbs(float64(r.NormalizedMIPerMinute), 0.05, 1e-12) {
-		t.Errorf("row %+v: want worst diagonal 0.5, parameter r 0.7 (NaN skipped), 160 trials, 0.05 MI per minute", r)
-	}
-}
-
 // demoRun runs the demo study once per test binary.
 var demoRun = sync.OnceValues(func() (*Report, error) {
 	data, err := os.ReadFile("../testdata/studies/radio-watch.json")
@@ -926,8 +830,8 @@ func TestVaryDesignsRanked(t *testing.T) {
 			t.Errorf("%s: group report %+v", d.Name, d.Group)
 		}
 	}
-	if !strings.HasPrefix(rep.Verdict, "Prefer "+rep.Preferred+" over ") {
-		t.Errorf("verdict %q does not start with the preferred design %q", rep.Verdict, rep.Preferred)
+	if !strings.Contains(rep.Verdict, "Prefer "+rep.Preferred+" over ") {
+		t.Errorf("verdict %q does not name the preferred design %q", rep.Verdict, rep.Preferred)
 	}
 	t.Logf("%+v\n%s", rep.Ranking, rep.Verdict)
 }

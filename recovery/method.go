@@ -61,8 +61,6 @@ type Method struct {
 	// GroupBootstrapRounds is the number of times the outer bootstrap of
 	// the group recovery intervals resamples each generator's pool.
 	GroupBootstrapRounds int `json:"group_bootstrap_rounds"`
-	// ITIms is the inter-trial interval, in ms, that testing minutes assume.
-	ITIms int `json:"iti_ms"`
 	// Grid refinement of one-parameter grids: a cell is split while its
 	// midpoint's interpolation error costs more than GridTolerance of ln L
 	// for a typical dataset; a cell narrower than JumpWidth of the range
@@ -103,7 +101,6 @@ func CurrentMethod() Method {
 		FlatSE:       flatSE,
 		TieTolerance: TieTolerance,
 		BMSTolerance: bmsTol, BMSMaxIterations: bmsMaxIter, GroupBootstrapRounds: groupBootstrapRounds,
-		ITIms:         itiMs,
 		GridTolerance: gridTolerance, JumpWidth: jumpWidth, RefineBudget: refineBudget,
 		ContentionWindow: contentionWindow, ModeWindow: modeWindow, ModeTries: modeTries,
 		PolishRounds: polishRounds, PolishFirstStep: polishFirstStep, PolishShrink: polishShrink,

@@ -61,6 +61,7 @@ type Report struct {
 	Families   []string        `json:"families"`
 	Designs    []DesignReport  `json:"designs"`
 	Ranking    []DesignRank    `json:"design_ranking,omitempty"`
+	RankedBy   *RankingMethod  `json:"ranking,omitempty"`
 	Preferred  string          `json:"preferred_design,omitempty"`
 	Verdict    string          `json:"ranking_verdict,omitempty"`
 	Method     Method          `json:"method"`
@@ -94,6 +95,7 @@ type DesignReport struct {
 	Participants          int                           `json:"participants"`
 	TrialsPerParticipant  int                           `json:"trials_per_participant"`
 	MinutesPerParticipant float64                       `json:"minutes_per_participant"`
+	ITIms                 int                           `json:"iti_ms"`
 	Criteria              map[Criterion]CriterionReport `json:"criteria"`
 	ParamRecovery         []ParamRecoveryReport         `json:"parameter_recovery"`
 	Tradeoffs             []TradeoffReport              `json:"tradeoffs"`
@@ -196,32 +198,19 @@ type FitFailures struct {
 	MaxTruthGap  NullFloat `json:"max_truth_gap"`
 }
 
-// DesignRank is one row of the design ranking (model.md §8).
-type DesignRank struct {
-	Design                string    `json:"design"`
-	Rank                  int       `json:"rank"`
-	NormalizedMI          NullFloat `json:"normalized_mi"`
-	WorstDiagonal         NullFloat `json:"worst_diagonal"`
-	ParameterR            NullFloat `json:"parameter_r"`
-	TrialsPerParticipant  int       `json:"trials_per_participant"`
-	MinutesPerParticipant float64   `json:"minutes_per_participant"`
-	NormalizedMIPerMinute NullFloat `json:"normalized_mi_per_minute"`
-}
-
 func quantilesReport(q Quantiles) QuantilesReport {
 	return QuantilesReport{N: q.N, Mean: NullFloat(q.Mean), Q05: NullFloat(q.Q05), Q25: NullFloat(q.Q25), Q50: NullFloat(q.Q50), Q75: NullFloat(q.Q75), Q95: NullFloat(q.Q95)}
 }
 
-// itiMs is the inter-trial interval that testing time assumes (our
-// assumption, stated in the report).
-const itiMs = 1000
-
-// minutesPerParticipant estimates testing time: each trial lasts its CTI,
-// the response window and an inter-trial interval of itiMs.
+// minutesPerParticipant estimates testing time (model.md §8): each trial
+// lasts its CTI, the response window and the design's inter-trial
+// interval,
+//
+//	minutes = Σ_CTI trials_per_cti · (cti_ms + response_window_ms + iti_ms) / 60000
 func minutesPerParticipant(d *models.Design) float64 {
 	ms := 0.0
 	for _, c := range d.CTIms {
-		ms += float64(d.TrialsPerCTI) * float64(c+d.ResponseWindowMs+itiMs)
+		ms += float64(d.TrialsPerCTI) * float64(c+d.ResponseWindowMs+d.ITIms)
 	}
 	return ms / 60000
 }
@@ -254,8 +243,8 @@ func (c *Compiled) Assemble(results []*ShardResult) (*Report, error) {
 		byDesign[r.Spec.Design][r.Spec.Generator] = append(byDesign[r.Spec.Design][r.Spec.Generator], r.Participants...)
 	}
 	rep.Fits = make([][]DatasetFits, len(c.Designs))
+	samples := make([]rankSample, len(c.Designs))
 	for di := range c.Designs {
-		d := &c.Designs[di]
 		dr := c.designReport(di, byDesign[di])
 		rep.Designs = append(rep.Designs, dr)
 		for g := 0; g < H; g++ {
@@ -263,12 +252,12 @@ func (c *Compiled) Assemble(results []*ShardResult) (*Report, error) {
 				rep.Fits[di] = append(rep.Fits[di], DatasetFits{Truth: p.Truth, Fits: p.Fits})
 			}
 		}
-		_ = d
+		samples[di] = newRankSample(dr.MinutesPerParticipant, byDesign[di])
 	}
 	if err := c.groupLevel(rep, byDesign); err != nil {
 		return nil, err
 	}
-	rankDesigns(rep)
+	rankDesigns(rep, s.Ranking, samples)
 	return rep, nil
 }
 
@@ -280,6 +269,7 @@ func (c *Compiled) designReport(di int, parts [][]ParticipantResult) DesignRepor
 		Name: d.Name, Measures: d.Measures, Participants: d.Participants,
 		TrialsPerParticipant:  d.TrialsPerCTI * len(d.CTIms),
 		MinutesPerParticipant: minutesPerParticipant(d),
+		ITIms:                 d.ITIms,
 		Criteria:              map[Criterion]CriterionReport{},
 		Surrogate:             c.Surrogate[di],
 		Predictions:           c.Predictions[di],
@@ -392,7 +382,8 @@ func (c *Compiled) designReport(di int, parts [][]ParticipantResult) DesignRepor
 			flat := FlatProfile(medSE, *p.Min, *p.Max)
 			dr.ParamRecovery = append(dr.ParamRecovery, ParamRecoveryReport{
 				Hypothesis: h.Name, Parameter: name, N: pr.N, R: NullFloat(pr.R), Bias: NullFloat(pr.Bias), RMSE: NullFloat(pr.RMSE),
-				Slope: NullFloat(pr.Slope), Coverage: NullFloat(pr.Coverage), Flat: flat, MedianSE: NullFloat(medSE), ReliableSEs: reliable,
+				Slope: NullFloat(pr.Slope), Coverage: NullFloat(pr.Coverage), AtBound: NullFloat(AtBoundShare(e, *p.Min, *p.Max)),
+				Flat: flat, MedianSE: NullFloat(medSE), ReliableSEs: reliable,
 			})
 			dr.Recovery = append(dr.Recovery, RecoveryPoints{Hypothesis: h.Name, Parameter: name, Min: NullFloat(*p.Min), Max: NullFloat(*p.Max), Truth: nums(truth), Estimate: nums(e), Intervals: ivs})
 		}
@@ -427,43 +418,241 @@ func (c *Compiled) designReport(di int, parts [][]ParticipantResult) DesignRepor
 			dr.Mimicry = append(dr.Mimicry, MimicryReport{A: m.A, B: m.B, WhenA: quantilesReport(m.WhenA), WhenB: quantilesReport(m.WhenB)})
 		}
 	}
-	dr.Verdict = verdict(s, d, dr)
+	names := make([]string, H)
+	for i, h := range s.Hypotheses {
+		names[i] = h.Name
+	}
+	dr.Verdict = verdict(names, dr)
 	return dr
 }
 
-// verdict states in plain words what the design can and cannot tell apart
-// under BIC: a pair is told apart when each is recovered as itself at least
-// 80% of the time and mistaken for the other less than 10% of the time.
-func verdict(s *models.Study, d *models.Design, dr DesignReport) []string {
+// The verdict's thresholds, our choices, each stated in the prose it
+// produces.
+const (
+	// pairConfusion: one direction of a pair, "A's data won by B" (the
+	// share of A's synthetic participants whose lowest BIC is B's), is
+	// clean when its 95% Wilson interval lies wholly below this share and
+	// confused when it lies wholly at or above it.
+	pairConfusion = 0.10
+	// weakR, coverageLow/High and atBoundMax mark a parameter as poorly
+	// recovered: Pearson r below weakR, coverage of its 95% intervals
+	// outside [coverageLow, coverageHigh], or more than atBoundMax of its
+	// estimates at an end of the range (AtBoundShare).
+	weakR        = 0.8
+	coverageLow  = 0.85
+	coverageHigh = 0.99
+	atBoundMax   = 0.10
+)
+
+// direction is the state of one direction of a pair of hypotheses.
+type direction int
+
+const (
+	clean     direction = iota // 95% interval below pairConfusion
+	unsettled                  // interval straddles pairConfusion
+	confused                   // interval at or above pairConfusion
+)
+
+// pairClass groups the pairs of the verdict.
+type pairClass int
+
+const (
+	toldApart pairClass = iota
+	oneWayOnly
+	unsettledPair
+	notToldApart
+)
+
+// cell is one off-diagonal cell of the BIC confusion matrix: the share of
+// the row generator's datasets won by the column candidate, with its 95%
+// Wilson interval (the report's own CILow, CIHigh; the point itself when
+// the report has no interval).
+type cell struct{ p, lo, hi float64 }
+
+func confusionCell(cr CriterionReport, i, j int) cell {
+	at := func(m [][]NullFloat) (float64, bool) {
+		if i < len(m) && j < len(m[i]) {
+			return float64(m[i][j]), true
+		}
+		return math.NaN(), false
+	}
+	c := cell{}
+	c.p, _ = at(cr.Confusion)
+	lo, okLo := at(cr.CILow)
+	hi, okHi := at(cr.CIHigh)
+	if !okLo || !okHi {
+		lo, hi = c.p, c.p
+	}
+	c.lo, c.hi = lo, hi
+	return c
+}
+
+func (c cell) state() direction {
+	switch {
+	case c.hi < pairConfusion:
+		return clean
+	case c.lo >= pairConfusion:
+		return confused
+	}
+	return unsettled // also when the share is NaN: the simulation does not say
+}
+
+// classify applies the pair rule: told apart when both directions are
+// clean; not told apart when one is confused and the other is not clean;
+// told apart one way only when one is clean and the other confused; and
+// otherwise unsettled: an interval straddles the threshold, and more
+// synthetic participants would be needed to say.
+func classify(ab, ba direction) pairClass {
+	switch {
+	case ab == clean && ba == clean:
+		return toldApart
+	case (ab == confused && ba != clean) || (ba == confused && ab != clean):
+		return notToldApart
+	case ab == confused || ba == confused:
+		return oneWayOnly
+	}
+	return unsettledPair
+}
+
+// pct writes a share as a whole percentage, keeping "0%" and "100%" for
+// exact values.
+func pct(x float64) string {
+	switch {
+	case math.IsNaN(x) || math.IsInf(x, 0):
+		return "n/a"
+	case x > 0 && x < 0.005:
+		return "under 1%"
+	case x < 1 && x > 0.995:
+		return "over 99%"
+	}
+	return strconv.FormatFloat(100*x, 'f', 0, 64) + "%"
+}
+
+// pctRange writes a 95% interval of a share, "3–12%".
+func pctRange(lo, hi float64) string {
+	if math.IsNaN(lo) || math.IsNaN(hi) {
+		return "n/a"
+	}
+	return strconv.FormatFloat(100*lo, 'f', 0, 64) + "–" + strconv.FormatFloat(100*hi, 'f', 0, 64) + "%"
+}
+
+// verdict states in plain words, under BIC, what the design tells apart:
+// every pair of hypotheses with both directions of its confusion, grouped
+// by the pair rule of classify (not told apart, one way only, unsettled,
+// told apart, in that order), then every weakness the report records
+// (poorly recovered parameters, grids over tolerance or with jumps,
+// searches that ended below the truth, failed fits). names lists the
+// hypotheses in the order of the confusion matrix.
+func verdict(names []string, dr DesignReport) []string {
 	cr := dr.Criteria[BICCriterion]
-	H := len(s.Hypotheses)
-	var apart, confused []string
+	H := len(names)
+	out := []string{fmt.Sprintf("Under BIC this design recovers the generating hypothesis in %s of synthetic participants on average (normalised mutual information %s), with %d trials per participant and %d synthetic participants per hypothesis.",
+		pct(float64(cr.RecoveryRate)), f2(cr.NormalizedMI), dr.TrialsPerParticipant, dr.Participants)}
+	type pair struct {
+		a, b   int
+		ab, ba cell
+	}
+	groups := make([][]pair, notToldApart+1)
 	for a := 0; a < H; a++ {
 		for b := a + 1; b < H; b++ {
-			pab, pba := float64(cr.Confusion[a][b]), float64(cr.Confusion[b][a])
-			paa, pbb := float64(cr.Confusion[a][a]), float64(cr.Confusion[b][b])
-			pair := s.Hypotheses[a].Name + " and " + s.Hypotheses[b].Name
-			switch {
-			case paa >= 0.8 && pbb >= 0.8 && pab < 0.1 && pba < 0.1:
-				apart = append(apart, pair)
-			case pab >= 0.2 || pba >= 0.2:
-				confused = append(confused, fmt.Sprintf("%s (mistaken for each other in %.0f%% and %.0f%% of datasets)", pair, 100*pab, 100*pba))
-			}
+			p := pair{a: a, b: b, ab: confusionCell(cr, a, b), ba: confusionCell(cr, b, a)}
+			k := classify(p.ab.state(), p.ba.state())
+			groups[k] = append(groups[k], p)
 		}
 	}
+	npairs := H * (H - 1) / 2
+	if npairs == 0 {
+		return out
+	}
+	out = append(out, fmt.Sprintf("Of the %d pairs of hypotheses, under BIC %d %s told apart, %d only one way and %d not at all; for %d the %d synthetic participants per hypothesis do not settle it. "+
+		"The rule: \"A's data won by B\" is the share of A's synthetic participants whose lowest BIC is B's; that direction is clean when its 95%% interval lies below %s, confused when the interval lies at or above %s; "+
+		"a pair is told apart when both directions are clean, one way only when one is clean and the other confused, not at all when one is confused and the other not clean.",
+		npairs, len(groups[toldApart]), plural(len(groups[toldApart]), "is", "are"), len(groups[oneWayOnly]), len(groups[notToldApart]), len(groups[unsettledPair]),
+		dr.Participants, pct(pairConfusion), pct(pairConfusion)))
+	withCI := func(p pair) string {
+		return fmt.Sprintf("under BIC, %s's data won by %s in %s (95%% interval %s); %s's data won by %s in %s (%s)",
+			names[p.a], names[p.b], pct(p.ab.p), pctRange(p.ab.lo, p.ab.hi), names[p.b], names[p.a], pct(p.ba.p), pctRange(p.ba.lo, p.ba.hi))
+	}
+	for _, p := range groups[notToldApart] {
+		out = append(out, "Not told apart: "+withCI(p)+".")
+	}
+	for _, p := range groups[oneWayOnly] {
+		out = append(out, "Told apart one way only: "+withCI(p)+".")
+	}
+	for _, p := range groups[unsettledPair] {
+		out = append(out, "Not settled: "+withCI(p)+".")
+	}
+	if g := groups[toldApart]; len(g) > 0 {
+		var parts []string
+		for _, p := range g {
+			parts = append(parts, fmt.Sprintf("%s's data won by %s in %s and %s's data won by %s in %s",
+				names[p.a], names[p.b], pct(p.ab.p), names[p.b], names[p.a], pct(p.ba.p)))
+		}
+		out = append(out, "Told apart, under BIC: "+strings.Join(parts, "; ")+".")
+	}
+	out = append(out, weaknesses(dr)...)
+	return out
+}
+
+func plural(n int, one, many string) string {
+	if n == 1 {
+		return one
+	}
+	return many
+}
+
+// weaknesses lists what the report records against its own figures: each
+// poorly recovered parameter (r, coverage, estimates at a bound, a flat
+// profile), each grid over tolerance or with jumps, searches that ended
+// below the truth, failed fits and datasets without a winner.
+func weaknesses(dr DesignReport) []string {
 	var out []string
-	out = append(out, fmt.Sprintf("Under BIC this design recovers the generating hypothesis in %.0f%% of synthetic participants on average (normalised mutual information %.2f).",
-		100*float64(cr.RecoveryRate), float64(cr.NormalizedMI)))
-	if len(apart) > 0 {
-		out = append(out, fmt.Sprintf("It can tell apart %d of %d pairs, for example %s.", len(apart), H*(H-1)/2, apart[0]))
-	}
-	for _, c := range confused {
-		out = append(out, "It cannot reliably tell apart "+c+" at "+strconv.Itoa(d.TrialsPerCTI*len(d.CTIms))+" trials per participant.")
-	}
 	for _, p := range dr.ParamRecovery {
-		if p.Flat {
-			out = append(out, fmt.Sprintf("Parameter %s of %s is poorly identified (median SE %.3g, more than a quarter of its range; r = %.2f).", p.Parameter, p.Hypothesis, float64(p.MedianSE), float64(p.R)))
+		var why []string
+		r, cov, at := float64(p.R), float64(p.Coverage), float64(p.AtBound)
+		switch {
+		case math.IsNaN(r):
+			why = append(why, fmt.Sprintf("r cannot be computed (%d usable %s)", p.N, plural(p.N, "estimate", "estimates")))
+		case r < weakR:
+			why = append(why, fmt.Sprintf("r = %s between truth and estimate (want %s or more)", f2(p.R), f2(weakR)))
 		}
+		switch {
+		case math.IsNaN(cov):
+			why = append(why, "no reliable standard error, so the coverage of its intervals is unknown")
+		case cov < coverageLow || cov > coverageHigh:
+			why = append(why, fmt.Sprintf("its 95%% intervals hold the true value in %s of the participants checked (want %s; %d of %d estimates have a reliable SE)",
+				pct(cov), pctRange(coverageLow, coverageHigh), p.ReliableSEs, p.N))
+		}
+		if at > atBoundMax {
+			why = append(why, fmt.Sprintf("%s of its estimates end at an end of its range (want %s or fewer)", pct(at), pct(atBoundMax)))
+		}
+		if p.Flat {
+			why = append(why, fmt.Sprintf("its median SE, %s, is more than a quarter of its range", strconv.FormatFloat(float64(p.MedianSE), 'g', 3, 64)))
+		}
+		if len(why) > 0 {
+			out = append(out, fmt.Sprintf("Parameter %s of %s is poorly recovered: %s.", p.Parameter, p.Hypothesis, strings.Join(why, "; ")))
+		}
+	}
+	for _, e := range dr.Surrogate {
+		if e.OverTolerance {
+			out = append(out, fmt.Sprintf("The prediction grid of %s is over tolerance: interpolation moves ln L by up to %s for a typical dataset even after refinement, so searches on it can settle on the wrong optimum.",
+				e.Hypothesis, strconv.FormatFloat(e.LogLikError, 'g', 3, 64)))
+		}
+		if e.Jumps {
+			out = append(out, fmt.Sprintf("The exact predictions of %s jump between neighbouring grid nodes (an invalid trial flips between a recovered and a misdirected report); no grid closes that gap, so fits of %s near the jump are less certain than these figures say.",
+				e.Hypothesis, e.Hypothesis))
+		}
+	}
+	ff := dr.FitFailures
+	if ff.BelowTruth > 0 {
+		out = append(out, fmt.Sprintf("In %d of %d self-fits the search ended below the ln L of the generating parameters (by up to %s): those fits are not maximum-likelihood fits, so the figures above carry search error as well as the design's own.",
+			ff.BelowTruth, ff.TruthChecked, strconv.FormatFloat(float64(ff.MaxTruthGap), 'g', 3, 64)))
+	}
+	if ff.Failed > 0 {
+		out = append(out, fmt.Sprintf("%d of %d fits failed (no finite likelihood); a failed fit never wins a dataset.", ff.Failed, ff.Total))
+	}
+	if ff.NoWinner > 0 {
+		out = append(out, fmt.Sprintf("%d datasets had no BIC winner and are left out of the confusion matrix.", ff.NoWinner))
 	}
 	return out
 }

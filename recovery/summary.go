@@ -404,3 +404,37 @@ type Mimicry struct {
 func MimicryPair(a, b string, dBICWhenA, dBICWhenB []float64) Mimicry {
 	return Mimicry{A: a, B: b, WhenA: NewQuantiles(dBICWhenA), WhenB: NewQuantiles(dBICWhenB)}
 }
+
+// atBoundEdge is AtBoundShare's margin as a fraction of the range.
+const atBoundEdge = 0.001
+
+// AtBoundShare is the share of the finite estimates of one parameter that
+// end at an end of its allowed range [lo, hi]:
+//
+//	AtBound = #{est : est ≤ lo + 0.001·(hi − lo) or est ≥ hi − 0.001·(hi − lo)} / #{finite est}
+//
+// A search that ends there has usually been stopped by the range rather
+// than by the data, so its estimate, standard error and coverage are
+// those of the range (the 0.1% margin is our choice). NaN and ±Inf
+// estimates (failed fits) are skipped; AtBoundShare is NaN when none is
+// left. It panics unless lo < hi.
+func AtBoundShare(est []float64, lo, hi float64) float64 {
+	if !(lo < hi) {
+		panic(fmt.Sprintf("recovery: AtBoundShare: range [%v, %v], want lo < hi", lo, hi))
+	}
+	edge := atBoundEdge * (hi - lo)
+	var n, at int
+	for _, v := range est {
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			continue
+		}
+		n++
+		if v <= lo+edge || v >= hi-edge {
+			at++
+		}
+	}
+	if n == 0 {
+		return math.NaN()
+	}
+	return float64(at) / float64(n)
+}
