@@ -279,6 +279,14 @@ func (c *PredictionGrid) MeasureError(seed uint64, n int) SurrogateError {
 	e.Jumps = len(c.refine.Jumps) > 0
 	e.JumpsAt = append([]float64{}, c.refine.Jumps...)
 	e.LogLikError = math.Max(e.LogLikError, c.refine.Worst)
-	e.OverTolerance = e.LogLikError > gridTolerance
+	// A one-parameter grid is refined until every cell is within
+	// tolerance but at a jump, where no grid can be: it is over tolerance
+	// only when the refinement ran out of budget. A larger grid is not
+	// refined; the random points decide.
+	if dims == 1 {
+		e.OverTolerance = c.refine.Exhausted && c.refine.Worst > gridTolerance
+	} else {
+		e.OverTolerance = e.LogLikError > gridTolerance
+	}
 	return e
 }

@@ -618,10 +618,10 @@ func weaknesses(dr DesignReport) []string {
 		}
 		switch {
 		case math.IsNaN(cov):
-			why = append(why, "no reliable standard error, so the coverage of its intervals is unknown")
+			why = append(why, "no profile interval, so the coverage of its intervals is unknown")
 		case cov < coverageLow || cov > coverageHigh:
-			why = append(why, fmt.Sprintf("its 95%% intervals hold the true value in %s of the participants checked (want %s; %d of %d estimates have a reliable SE)",
-				pct(cov), pctRange(coverageLow, coverageHigh), p.ReliableSEs, p.N))
+			why = append(why, fmt.Sprintf("its 95%% profile intervals hold the true value in %s of the participants (want %s)",
+				pct(cov), pctRange(coverageLow, coverageHigh)))
 		}
 		if at > atBoundMax {
 			why = append(why, fmt.Sprintf("%s of its estimates end at an end of its range (want %s or fewer)", pct(at), pct(atBoundMax)))
@@ -639,8 +639,25 @@ func weaknesses(dr DesignReport) []string {
 				e.Hypothesis, strconv.FormatFloat(e.LogLikError, 'g', 3, 64)))
 		}
 		if e.Jumps {
-			out = append(out, fmt.Sprintf("The exact predictions of %s jump between neighbouring grid nodes (an invalid trial flips between a recovered and a misdirected report); no grid closes that gap, so fits of %s near the jump are less certain than these figures say.",
-				e.Hypothesis, e.Hypothesis))
+			at := ""
+			if len(e.JumpsAt) > 0 {
+				var vs []string
+				for _, v := range e.JumpsAt {
+					vs = append(vs, strconv.FormatFloat(v, 'g', 3, 64))
+				}
+				name, n := "its parameter", 0
+				for _, p := range dr.ParamRecovery {
+					if p.Hypothesis == e.Hypothesis {
+						name, n = p.Parameter, n+1
+					}
+				}
+				if n != 1 {
+					name = "its parameter"
+				}
+				at = fmt.Sprintf(" at %s = %s", name, strings.Join(vs, ", "))
+			}
+			out = append(out, fmt.Sprintf("The exact predictions of %s jump%s (an invalid trial flips between a recovered and a misdirected report; across a jump ln L moves by up to %s for a typical dataset); no grid closes that gap, so fits of %s near a jump are less certain than these figures say.",
+				e.Hypothesis, at, strconv.FormatFloat(e.LogLikError, 'g', 3, 64), e.Hypothesis))
 		}
 	}
 	ff := dr.FitFailures
