@@ -213,7 +213,7 @@ func (c *Compiled) RunShard(ctx context.Context, spec ShardSpec, progress func(f
 			}
 			self.Intervals = fs.profileIntervals(sum, sp, th, -self.LogL)
 		}
-		self.TruthLogL = fs.truthLogL(sum, truth.Free)
+		self.TruthLogL = fs.truthLogL(sum, truth.Free, pr)
 		res.Participants = append(res.Participants, pres)
 		if progress != nil {
 			progress(len(fitters))

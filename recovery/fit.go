@@ -29,7 +29,7 @@ const (
 	searchEvalsPerDim = 400  // evaluation limit per searched dimension
 	searchAbsolute    = 1e-6 // an improvement smaller than this...
 	searchRelative    = 1e-9 // ...plus this times |best| does not count
-	searchStallPerDim = 12   // iterations without a counted improvement, per dimension
+	searchStallPerDim = 8    // iterations without a counted improvement, per dimension
 	searchSpread      = 1e-9 // converged at once when every vertex's value lies within this
 )
 
@@ -501,10 +501,11 @@ func (f *fitter) nuisanceSearch(s *sufficientStats, sp space, theta []float64) f
 
 // truthLogL is ln L at the generating hypothesis parameters truth, with the
 // measurement terms fitted as in any fit on exact predictions: the
-// reference a self-fit's search must reach. It starts the nuisance search
+// reference a self-fit's search must reach; pr is the exact prediction at
+// truth, which the dataset was simulated from. It starts the nuisance search
 // from the same defaults as the fit's own starts, never from the true
 // measurement values.
-func (f *fitter) truthLogL(s *sufficientStats, truth []float64) float64 {
+func (f *fitter) truthLogL(s *sufficientStats, truth []float64, pr *models.Prediction) float64 {
 	sp := newSpace(f.grid, s)
 	theta := make([]float64, sp.totalDims)
 	copy(theta, truth)
@@ -514,7 +515,7 @@ func (f *fitter) truthLogL(s *sufficientStats, truth []float64) float64 {
 	if sp.ar >= 0 {
 		theta[sp.ar] = sp.defaultAR
 	}
-	f.grid.exactInto(truth, f.pred, f.ws, f.pr)
+	f.grid.lay.flatten(pr, f.pred)
 	return -f.nuisanceSearch(s, sp, theta)
 }
 
@@ -626,9 +627,13 @@ func (f *fitter) polish(s *sufficientStats, out *Fit) {
 		}
 		sort.SliceStable(modes, func(a, b int) bool { return modes[a].v < modes[b].v })
 		for _, m := range modes[:min(len(modes), modeTries)] {
+			// A node's stored prediction is exact: no new prediction.
 			th := append([]float64(nil), theta...)
 			g.nodeParams(m.node, th[:sp.dimsHyp])
-			try(th)
+			copy(f.pred, g.node(m.node))
+			if v := f.nuisanceSearch(s, sp, th); v < bestNLL {
+				bestNLL, bestTheta = v, th
+			}
 		}
 	}
 	if sp.dimsHyp > 0 {

@@ -115,9 +115,7 @@ func (t typicalData) effect(p, q []float64) float64 {
 
 // refine1D splits the cells of a one-parameter grid where interpolation
 // costs more than gridTolerance of ln L for a typical dataset (see the
-// constants above). Every first-round midpoint is computed in parallel;
-// splits below them run in order, so the result does not depend on the
-// workers.
+// constants above).
 func (c *PredictionGrid) refine1D(ctx context.Context, workers int) error {
 	if len(c.axes) != 1 || len(c.axes[0]) < 2 {
 		return nil
@@ -136,63 +134,59 @@ func (c *PredictionGrid) refine1D(ctx context.Context, workers int) error {
 	exact := func(g float64, dst []float64, ws *models.Workspace, p *models.Prediction) {
 		c.exactInto([]float64{c.value(0, g)}, dst, ws, p)
 	}
-	mids := make([]node, len(ax)-1)
 	type scratch struct {
 		ws *models.Workspace
 		p  *models.Prediction
 	}
 	scr := make([]*scratch, max(workers, 1))
-	err := parallel.For(ctx, len(mids), workers, func(w, k int) error {
-		if scr[w] == nil {
-			scr[w] = &scratch{c.listener.NewWorkspace(), c.listener.NewPrediction()}
-		}
-		g := 0.5 * (ax[k] + ax[k+1])
-		mids[k] = node{g, make([]float64, size)}
-		exact(g, mids[k].pred, scr[w].ws, scr[w].p)
-		return nil
-	})
-	if err != nil {
-		return err
-	}
-	ws, pr := c.listener.NewWorkspace(), c.listener.NewPrediction()
 	interp := make([]float64, size)
 	width := jumpWidth * float64(c.points-1) // in grid units
 	res := &c.refine
 	var added []node
-	// split tests cell (a, b) with its midpoint m already computed.
-	var split func(a, b, m node)
-	split = func(a, b, m node) {
-		for j := range interp {
-			interp[j] = 0.5 * (a.pred[j] + b.pred[j])
-		}
-		e := typ.effect(m.pred, interp)
-		if e <= gridTolerance {
-			return
-		}
-		if b.g-a.g <= width {
-			res.Jumps = append(res.Jumps, c.value(0, m.g))
-			res.Worst = math.Max(res.Worst, e)
-			return
-		}
-		if res.Added >= refineBudget {
-			res.Exhausted = true
-			res.Worst = math.Max(res.Worst, e)
-			return
-		}
-		res.Added++
-		added = append(added, m)
-		for _, half := range [][2]node{{a, m}, {m, b}} {
-			g := 0.5 * (half[0].g + half[1].g)
-			mm := node{g, make([]float64, size)}
-			exact(g, mm.pred, ws, pr)
-			split(half[0], half[1], mm)
-		}
+	// The cells are tested level by level: every midpoint of a level in
+	// parallel, then the splits decided in order of position, so the
+	// result does not depend on the workers.
+	type cell struct{ a, b node }
+	level := make([]cell, len(ax)-1)
+	for k := range level {
+		level[k] = cell{nodes[k], nodes[k+1]}
 	}
-	for k := range mids {
-		if ctx.Err() != nil {
-			return ctx.Err()
+	for len(level) > 0 {
+		mids := make([]node, len(level))
+		err := parallel.For(ctx, len(level), workers, func(w, k int) error {
+			if scr[w] == nil {
+				scr[w] = &scratch{c.listener.NewWorkspace(), c.listener.NewPrediction()}
+			}
+			g := 0.5 * (level[k].a.g + level[k].b.g)
+			mids[k] = node{g, make([]float64, size)}
+			exact(g, mids[k].pred, scr[w].ws, scr[w].p)
+			return nil
+		})
+		if err != nil {
+			return err
 		}
-		split(nodes[k], nodes[k+1], mids[k])
+		var next []cell
+		for k, cl := range level {
+			a, b, m := cl.a, cl.b, mids[k]
+			for j := range interp {
+				interp[j] = 0.5 * (a.pred[j] + b.pred[j])
+			}
+			e := typ.effect(m.pred, interp)
+			switch {
+			case e <= gridTolerance:
+			case b.g-a.g <= width:
+				res.Jumps = append(res.Jumps, c.value(0, m.g))
+				res.Worst = math.Max(res.Worst, e)
+			case res.Added >= refineBudget:
+				res.Exhausted = true
+				res.Worst = math.Max(res.Worst, e)
+			default:
+				res.Added++
+				added = append(added, m)
+				next = append(next, cell{a, m}, cell{m, b})
+			}
+		}
+		level = next
 	}
 	// Neighbouring narrow cells of one jump (a jump with a short ramp)
 	// are one jump: merge those within 1e-4 of the range.
