@@ -564,10 +564,10 @@ func verdict(names []string, dr DesignReport) []string {
 	if npairs == 0 {
 		return out
 	}
-	out = append(out, fmt.Sprintf("Of the %d pairs of hypotheses, under BIC %d %s told apart, %d only one way and %d not at all; for %d the %d synthetic participants per hypothesis do not settle it. "+
+	out = append(out, fmt.Sprintf("Of the %d %s of hypotheses, under BIC %d %s told apart, %d only one way and %d not at all; for %d the %d synthetic participants per hypothesis do not settle it. "+
 		"The rule: \"A's data won by B\" is the share of A's synthetic participants whose lowest BIC is B's; that direction is clean when its 95%% interval lies below %s, confused when the interval lies at or above %s; "+
 		"a pair is told apart when both directions are clean, one way only when one is clean and the other confused, not at all when one is confused and the other not clean.",
-		npairs, len(groups[toldApart]), plural(len(groups[toldApart]), "is", "are"), len(groups[oneWayOnly]), len(groups[notToldApart]), len(groups[unsettledPair]),
+		npairs, plural(npairs, "pair", "pairs"), len(groups[toldApart]), plural(len(groups[toldApart]), "is", "are"), len(groups[oneWayOnly]), len(groups[notToldApart]), len(groups[unsettledPair]),
 		dr.Participants, pct(pairConfusion), pct(pairConfusion)))
 	withCI := func(p pair) string {
 		return fmt.Sprintf("under BIC, %s's data won by %s in %s (95%% interval %s); %s's data won by %s in %s (%s)",
