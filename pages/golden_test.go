@@ -1,33 +1,13 @@
 package pages
 
 import (
-	"bytes"
 	"context"
-	"flag"
-	"os"
-	"path/filepath"
 	"testing"
 
+	"discrimen/internal/golden"
 	"discrimen/models"
 	"discrimen/recovery"
 )
-
-var update = flag.Bool("update", false, "rewrite the golden files in testdata/golden")
-
-// smallStudy is recovery's golden study (recovery/engine_test.go), so that
-// this package's golden report.html and recovery's golden report.json
-// describe the same run.
-const smallStudy = `{
-  "name": "small (invented)", "seed": 7,
-  "designs": [{"name": "d", "cti_ms": [300, 600, 900], "trials_per_cti": 30, "participants": 6,
-               "measures": ["rt", "accuracy", "eeg"]}],
-  "hypotheses": [
-    {"name": "flat", "family": "constant", "params": {"level": {"min": 0.3, "max": 1.5}}},
-    {"name": "ramp", "family": "linear", "params": {"slope": {"min": 0.5, "max": 3}}},
-    {"name": "switch", "family": "logistic", "params": {"midpoint": {"min": 0.2, "max": 0.8}, "width": {"min": 0.05, "max": 0.3}}}
-  ],
-  "replication": {"group_sizes": [3, 6], "replicates": 20}
-}`
 
 func mustStudy(t testing.TB, js string) *models.Study {
 	t.Helper()
@@ -42,7 +22,7 @@ func mustStudy(t testing.TB, js string) *models.Study {
 // removed) against unnoticed change; -update rewrites it. After a
 // deliberate change to the page, rerun with -update and review the diff.
 func TestGoldenReportHTML(t *testing.T) {
-	r, err := recovery.Run(context.Background(), mustStudy(t, smallStudy), recovery.Options{Workers: 2})
+	r, err := recovery.Run(context.Background(), mustStudy(t, golden.SmallStudy), recovery.Options{Workers: 2})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -51,33 +31,5 @@ func TestGoldenReportHTML(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	checkGolden(t, "small-report.html", b)
-}
-
-// checkGolden compares got with testdata/golden/name, line by line, or
-// rewrites the file under -update.
-func checkGolden(t *testing.T, name string, got []byte) {
-	t.Helper()
-	path := filepath.Join("testdata", "golden", name)
-	if *update {
-		if err := os.MkdirAll(filepath.Dir(path), 0o755); err != nil {
-			t.Fatal(err)
-		}
-		if err := os.WriteFile(path, got, 0o644); err != nil {
-			t.Fatal(err)
-		}
-	}
-	want, err := os.ReadFile(path)
-	if err != nil {
-		t.Fatalf("%v (run with -update to create it)", err)
-	}
-	if !bytes.Equal(got, want) {
-		gl, wl := bytes.Split(got, []byte("\n")), bytes.Split(want, []byte("\n"))
-		for i := 0; i < len(gl) && i < len(wl); i++ {
-			if !bytes.Equal(gl[i], wl[i]) {
-				t.Fatalf("%s differs from %s at line %d:\n  want %.300s\n  got  %.300s\n(run with -update after a deliberate change)", name, path, i+1, wl[i], gl[i])
-			}
-		}
-		t.Fatalf("%s differs from %s in length (%d vs %d lines)", name, path, len(gl), len(wl))
-	}
+	golden.Check(t, "small-report.html", b)
 }

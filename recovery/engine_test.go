@@ -3,6 +3,7 @@ package recovery
 import (
 	"bytes"
 	"context"
+	"discrimen/internal/golden"
 	"math"
 	"os"
 	"testing"
@@ -44,17 +45,8 @@ func reportBytes(t testing.TB, r *Report) []byte {
 	return b
 }
 
-const smallStudy = `{
-  "name": "small (invented)", "seed": 7,
-  "designs": [{"name": "d", "cti_ms": [300, 600, 900], "trials_per_cti": 30, "participants": 6,
-               "measures": ["rt", "accuracy", "eeg"]}],
-  "hypotheses": [
-    {"name": "flat", "family": "constant", "params": {"level": {"min": 0.3, "max": 1.5}}},
-    {"name": "ramp", "family": "linear", "params": {"slope": {"min": 0.5, "max": 3}}},
-    {"name": "switch", "family": "logistic", "params": {"midpoint": {"min": 0.2, "max": 0.8}, "width": {"min": 0.05, "max": 0.3}}}
-  ],
-  "replication": {"group_sizes": [3, 6], "replicates": 20}
-}`
+// smallStudy is the study behind the golden files (shared with pages).
+const smallStudy = golden.SmallStudy
 
 // TestRunDeterministicAcrossWorkers: same study and seed give the same
 // report bytes with 1 and 4 workers and different shard sizes.
