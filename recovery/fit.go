@@ -575,16 +575,7 @@ func (f *fitter) polish(s *sufficientStats, out *Fit) {
 	g := f.grid
 	sp := newSpace(g, s)
 	theta := thetaOf(sp, out)
-	bestNLL := -out.LogL
-	bestTheta := append([]float64(nil), theta...)
-	try := func(th []float64) {
-		hyp := th[:sp.dimsHyp]
-		g.exactInto(hyp, f.pred, f.ws, f.pr)
-		x := append([]float64(nil), th...)
-		if v := f.nuisanceSearch(s, sp, x); v < bestNLL {
-			bestNLL, bestTheta = v, x
-		}
-	}
+	best := polishPoint{theta: theta, nll: -out.LogL}
 	if sp.dimsHyp > 0 && g.points >= 2 {
 		_, lapse, ar := sp.split(theta)
 		g.Interpolate(theta[:sp.dimsHyp], f.pred, f.ws)
@@ -631,29 +622,47 @@ func (f *fitter) polish(s *sufficientStats, out *Fit) {
 			th := append([]float64(nil), theta...)
 			g.nodeParams(m.node, th[:sp.dimsHyp])
 			copy(f.pred, g.node(m.node))
-			if v := f.nuisanceSearch(s, sp, th); v < bestNLL {
-				bestNLL, bestTheta = v, th
-			}
+			best.consider(f, f.nuisanceSearch(s, sp, th), th)
 		}
 	}
 	if sp.dimsHyp > 0 {
-		f.exactCoordinatePolish(s, sp, bestTheta, &bestNLL, &bestTheta)
+		best = f.exactCoordinatePolish(s, sp, best)
 	} else {
-		try(theta)
+		th := append([]float64(nil), theta...)
+		g.exactInto(nil, f.pred, f.ws, f.pr)
+		best.consider(f, f.nuisanceSearch(s, sp, th), th)
 	}
 	out.Polished = true
-	if bestNLL >= -out.LogL {
+	if best.pred == nil || best.nll >= -out.LogL {
 		return
 	}
+	// The winner's exact prediction was kept: only its measurement
+	// estimates are read again.
 	var est Measurement
-	hyp, lapse, ar := sp.split(bestTheta)
-	g.exactInto(hyp, f.pred, f.ws, f.pr)
-	nll := logLik(s, g.lay, f.pred, lapse, ar, &est)
+	hyp, lapse, ar := sp.split(best.theta)
+	nll := logLik(s, g.lay, best.pred, lapse, ar, &est)
 	maskMeasurement(s, &est)
 	out.Measurement = est
 	out.Params = append([]float64(nil), hyp...)
 	out.LogL = -nll
 	out.AIC, out.AICc, out.BIC = AIC(out.LogL, out.K), AICc(out.LogL, out.K, out.N), BIC(out.LogL, out.K, out.N)
+}
+
+// polishPoint is the best point a polish has found: natural θ, its exact
+// −ln L and, once it improved on the fit, a copy of its exact prediction.
+type polishPoint struct {
+	theta []float64
+	nll   float64
+	pred  []float64
+}
+
+// consider keeps θ with value nll when it is lower, copying the exact
+// prediction in f.pred that nll was computed from.
+func (b *polishPoint) consider(f *fitter, nll float64, theta []float64) {
+	if nll < b.nll {
+		b.theta, b.nll = theta, nll
+		b.pred = append(b.pred[:0], f.pred...)
+	}
 }
 
 // inContention marks the fits of one dataset within contentionWindow of
@@ -676,55 +685,47 @@ func inContention(fits []Fit) []bool {
 	return out
 }
 
-// exactCoordinatePolish lowers the exact −ln L from *best (at *theta) by a
+// exactCoordinatePolish lowers the exact −ln L from best by a
 // compass search along one hypothesis parameter at a time: it moves to
 // x−h when that is lower, else to x+h when that is lower (the likelihood
 // has kinks, where a parabola through three points points the wrong way).
 // The measurement terms are re-fitted at every point. Each of
 // polishRounds rounds visits every parameter, with h polishFirstStep grid
 // cells in the first and polishShrink times the last after.
-func (f *fitter) exactCoordinatePolish(s *sufficientStats, sp space, start []float64, best *float64, theta *[]float64) {
+func (f *fitter) exactCoordinatePolish(s *sufficientStats, sp space, best polishPoint) polishPoint {
 	g := f.grid
-	x := append([]float64(nil), start...)
-	eval := func(th []float64) float64 {
-		g.exactInto(th[:sp.dimsHyp], f.pred, f.ws, f.pr)
-		return f.nuisanceSearch(s, sp, th)
-	}
+	x := best.theta
 	cells := float64(max(g.points, 9) - 1)
 	h := make([]float64, sp.dimsHyp)
 	for j := range h {
 		h[j] = polishFirstStep * (sp.hi[j] - sp.lo[j]) / cells
 	}
-	fx := *best
 	for round := 0; round < polishRounds; round++ {
-		before := fx
+		before := best.nll
 		for j := 0; j < sp.dimsHyp; j++ {
-			at := func(v float64) (float64, []float64) {
+			at := func(v float64) bool {
 				th := append([]float64(nil), x...)
 				th[j] = math.Max(sp.lo[j], math.Min(sp.hi[j], v))
-				return eval(th), th
+				g.exactInto(th[:sp.dimsHyp], f.pred, f.ws, f.pr)
+				was := best.nll
+				best.consider(f, f.nuisanceSearch(s, sp, th), th)
+				return best.nll < was
 			}
-			fl, tl := at(x[j] - h[j])
-			cand, fc := x, fx
-			if fl < fc {
-				cand, fc = tl, fl
-			} else if fr, tr := at(x[j] + h[j]); fr < fc {
-				// The right side is tried only when the left did not gain.
-				cand, fc = tr, fr
+			// The right side is tried only when the left did not gain.
+			if !at(x[j] - h[j]) {
+				at(x[j] + h[j])
 			}
-			x, fx = cand, fc
+			x = best.theta
 			h[j] *= polishShrink
 		}
 		// A round that moved nothing with its step may still move with
 		// the next, shorter one; only a round that moved and gained
 		// almost nothing ends the polish.
-		if fx < before && before-fx < polishStop {
+		if best.nll < before && before-best.nll < polishStop {
 			break
 		}
 	}
-	if fx < *best {
-		*best, *theta = fx, x
-	}
+	return best
 }
 
 // sameRun reports whether theta ended within 1e-4 of its range, in every
