@@ -502,6 +502,17 @@ func scatterChart(s scatterSpec) (template.HTML, error) {
 	return renderSVG(p, vg.Points(196), vg.Points(188), s.Label)
 }
 
+// addScatter adds markers of one colour, radius (points) and shape.
+func addScatter(p *plot.Plot, pts plotter.XYs, c color.Color, radius float64, shape draw.GlyphDrawer) error {
+	sc, err := plotter.NewScatter(pts)
+	if err != nil {
+		return err
+	}
+	sc.Color, sc.Radius, sc.Shape = c, vg.Points(radius), shape
+	p.Add(sc)
+	return nil
+}
+
 func withAlpha(c color.RGBA, a uint8) color.RGBA {
 	// color.RGBA is alpha-premultiplied.
 	f := float64(a) / 255
@@ -586,32 +597,22 @@ func lineChart(s lineSpec) (template.HTML, error) {
 			p.Add(eb)
 		}
 		if sr.Markers {
-			sc, err := plotter.NewScatter(pts)
-			if err != nil {
+			var shape draw.GlyphDrawer = draw.CircleGlyph{}
+			if sr.Glyph != nil {
+				shape = sr.Glyph
+			}
+			if err := addScatter(p, pts, sr.Colour, 2.3, shape); err != nil {
 				return "", err
 			}
-			sc.Color = sr.Colour
-			sc.Radius = vg.Points(2.3)
-			sc.Shape = draw.CircleGlyph{}
-			if sr.Glyph != nil {
-				sc.Shape = sr.Glyph
-			}
-			p.Add(sc)
 		}
 		if len(hollow) > 0 {
-			sc, err := plotter.NewScatter(hollow)
-			if err != nil {
+			// A white disc under a coloured ring: a hollow marker.
+			if err := addScatter(p, hollow, color.White, 3.6, draw.CircleGlyph{}); err != nil {
 				return "", err
 			}
-			sc.Color = color.White
-			sc.Radius = vg.Points(3.6)
-			sc.Shape = draw.CircleGlyph{}
-			p.Add(sc)
-			rg, _ := plotter.NewScatter(hollow)
-			rg.Color = sr.Colour
-			rg.Radius = vg.Points(3.6)
-			rg.Shape = draw.RingGlyph{}
-			p.Add(rg)
+			if err := addScatter(p, hollow, sr.Colour, 3.6, draw.RingGlyph{}); err != nil {
+				return "", err
+			}
 		}
 	}
 	if !drawn {
