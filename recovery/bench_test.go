@@ -65,7 +65,9 @@ func BenchmarkFit(b *testing.B) {
 			f := newFitter(bc.grid)
 			evals := 0
 			for b.Loop() {
-				fit := f.fit(sum, true)
+				fit := f.fit(sum)
+				sp := newSpace(f.grid, sum)
+				fit.SE, fit.SEReliable, fit.SENote = f.standardErrors(sum, sp, thetaOf(sp, &fit))
 				evals += fit.Evaluations
 			}
 			b.ReportMetric(float64(evals)/float64(b.N), "evals/fit")

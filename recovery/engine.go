@@ -183,7 +183,7 @@ func (c *Compiled) RunShard(ctx context.Context, spec ShardSpec, progress func(f
 		sum := summarise(d, ds)
 		pres := ParticipantResult{Participant: p, Truth: truth}
 		for _, f := range fitters {
-			fit := f.fit(sum, false)
+			fit := f.fit(sum)
 			fit.Design, fit.Generator, fit.Participant = d.Name, gen.Name, p
 			fit.TruthLogL = math.NaN()
 			pres.Fits = append(pres.Fits, fit)

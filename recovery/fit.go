@@ -49,7 +49,7 @@ type Fit struct {
 	Candidate   string
 	Names       []string  // the candidate's free parameters
 	Params      []float64 // estimates, natural units
-	SE          []float64 // observed-information standard errors (self-fits only; NaN otherwise)
+	SE          []float64 // grid-Hessian standard errors (self-fits only; NaN otherwise), secondary to Intervals
 	SEReliable  bool
 	SENote      string
 	Measurement Measurement // every measurement estimate (NaN where not measured)
@@ -241,27 +241,12 @@ func searchSettings(dims int) nmSettings {
 		Stall: searchStallPerDim * dims, Spread: searchSpread}
 }
 
-// localSettings are searchSettings with a simplex of 0.1 instead of 0.5:
-// a search that should stay in the mode it starts in, on a likelihood with
-// many modes a few grid steps apart.
-func localSettings(dims int) nmSettings {
-	set := searchSettings(dims)
-	set.Size = 0.1
-	return set
-}
-
-func abs(x int) int {
-	if x < 0 {
-		return -x
-	}
-	return x
-}
-
 // fit runs the multi-start Nelder–Mead search (derivative-free, as the
 // likelihood has kinks and jumps: model.md §5) on interpolated
-// predictions, then evaluates the exact likelihood at the optimum and, when
-// withSE, the observed-information standard errors.
-func (f *fitter) fit(s *sufficientStats, withSE bool) Fit {
+// predictions, then evaluates the exact likelihood at the optimum. The
+// polish, the standard errors and the intervals of a self-fit follow in
+// RunShard.
+func (f *fitter) fit(s *sufficientStats) Fit {
 	c := f.grid
 	sp := newSpace(c, s)
 	out := Fit{Candidate: c.Hypothesis.Name, Names: c.Names, K: len(c.Names) + s.nMeasurement(), N: s.nObs()}
@@ -349,9 +334,6 @@ func (f *fitter) fit(s *sufficientStats, withSE bool) Fit {
 	out.SE = make([]float64, sp.dimsHyp)
 	for i := range out.SE {
 		out.SE[i] = math.NaN()
-	}
-	if withSE && sp.totalDims > 0 {
-		out.SE, out.SEReliable, out.SENote = f.standardErrors(s, sp, bestTheta)
 	}
 	return out
 }

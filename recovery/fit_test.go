@@ -184,7 +184,7 @@ func TestFailedFitIsCounted(t *testing.T) {
 	}
 	// Without free parameters of its own the candidate still searches lapse
 	// and eeg_ar; NaN predictions make every evaluation non-finite.
-	fit := newFitter(c).fit(sum, false)
+	fit := newFitter(c).fit(sum)
 	if !fit.Failed || fit.Error == "" {
 		t.Fatalf("fit = %+v, want a failed fit with its cause", fit)
 	}
