@@ -36,7 +36,7 @@ func BenchmarkDemoStudy(b *testing.B) {
 // BenchmarkFit fits one candidate to one demo dataset, searching on the
 // prediction grid ("grid") or on exact predictions at every evaluation
 // ("exact"); both end with the exact likelihood and, for the self-fit
-// measured here, the observed-information SEs.
+// measured here, the grid-Hessian SEs computed after it in RunShard.
 //
 //	go test ./recovery -run XXX -bench Fit -benchtime 20x
 func BenchmarkFit(b *testing.B) {
