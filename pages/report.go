@@ -115,6 +115,9 @@ type methodView struct {
 	ModeTries, ModeWindow, ProfileThreshold    string
 	TruthTolerance                             string
 	GroupBootstrapRounds                       string
+	PolishMinStep, DeepWindow                  string
+	PolishCompassEvalsPerDim                   string
+	PolishQuickEvalsPerDim                     string
 }
 
 // newMethodView formats m for the method notes: counts under eleven in
@@ -125,7 +128,7 @@ func newMethodView(m recovery.Method) methodView {
 		return methodView{Missing: true, Starts: dash, StartSpacing: dash, RescoreWindow: dash, LapseMax: dash, ARMax: dash,
 			SERoughStep: dash, SEFineStep: dash, SEChange: dash, GridTolerance: dash, JumpWidth: dash,
 			ContentionWindow: dash, ModeTries: dash, ModeWindow: dash, ProfileThreshold: dash, TruthTolerance: dash,
-			GroupBootstrapRounds: dash}
+			GroupBootstrapRounds: dash, PolishMinStep: dash, DeepWindow: dash, PolishCompassEvalsPerDim: dash, PolishQuickEvalsPerDim: dash}
 	}
 	// A report made before the group bootstrap has no rounds.
 	rounds := "—"
@@ -139,7 +142,19 @@ func newMethodView(m recovery.Method) methodView {
 		GridTolerance: fmtG(m.GridTolerance, 3), JumpWidth: fmtG(m.JumpWidth, 3), ContentionWindow: fmtG(m.ContentionWindow, 3),
 		ModeTries: countWord(m.ModeTries), ModeWindow: fmtG(m.ModeWindow, 3), ProfileThreshold: fmtG(m.ProfileThreshold, 5),
 		TruthTolerance: fmtG(m.TruthTolerance, 3), GroupBootstrapRounds: rounds,
+		PolishMinStep: orDash(m.PolishMinStep > 0, fmtG(m.PolishMinStep, 3)), DeepWindow: orDash(m.DeepWindow > 0, fmtG(m.DeepWindow, 3)),
+		PolishCompassEvalsPerDim: orDash(m.PolishCompassEvalsPerDim > 0, countWord(m.PolishCompassEvalsPerDim)),
+		PolishQuickEvalsPerDim:   orDash(m.PolishQuickEvalsPerDim > 0, countWord(m.PolishQuickEvalsPerDim)),
 	}
+}
+
+// orDash is v, or a dash for a setting the report's method block lacks
+// (a report made before it existed).
+func orDash(ok bool, v string) string {
+	if !ok {
+		return "—"
+	}
+	return v
 }
 
 // countWord writes 0 to 10 in words and larger counts in digits.

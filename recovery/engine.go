@@ -188,19 +188,22 @@ func (c *Compiled) RunShard(ctx context.Context, spec ShardSpec, progress func(f
 			fit.TruthLogL = math.NaN()
 			pres.Fits = append(pres.Fits, fit)
 		}
-		// Every candidate in contention is polished alike; the self-fit is
-		// polished too (its ln L is checked against the truth's), and if
-		// that brings it into contention, whoever joins the contention
-		// with it is polished in turn, so no winner is decided between a
-		// polished and an unpolished fit.
-		fitters[spec.Generator].polish(sum, &pres.Fits[spec.Generator])
+		// Every candidate in contention is polished, and alike by its
+		// place: the deep polish for the self-fit (its ln L is checked
+		// against the truth's) and for every candidate within deepWindow
+		// of the best, the quick one for the rest within
+		// contentionWindow. A polish can move a fit into a closer window,
+		// so the rule is applied until nothing changes; no winner is
+		// decided between fits polished to different depths.
 		for changed := true; changed; {
 			changed = false
-			for j, in := range inContention(pres.Fits) {
-				if in && !pres.Fits[j].Polished && !pres.Fits[j].Failed {
-					fitters[j].polish(sum, &pres.Fits[j])
-					changed = true
+			for j, want := range polishWanted(pres.Fits, spec.Generator) {
+				fj := &pres.Fits[j]
+				if fj.Failed || want == 0 || (want == 1 && fj.Polished) || (want == 2 && fj.deep) {
+					continue
 				}
+				fitters[j].polish(sum, fj, want == 2)
+				changed = true
 			}
 		}
 		self := &pres.Fits[spec.Generator]

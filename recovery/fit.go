@@ -31,6 +31,11 @@ const (
 	searchRelative    = 1e-9 // ...plus this times |best| does not count
 	searchStallPerDim = 8    // iterations without a counted improvement, per dimension
 	searchSpread      = 1e-9 // converged at once when every vertex's value lies within this
+	// gridSearchAbsolute replaces searchAbsolute in the search on the grid.
+	gridSearchAbsolute = 1e-4
+	// sameRunWidth: runs that end within this share of the range of one
+	// already re-scored, in every parameter, are one optimum.
+	sameRunWidth = 1e-2
 )
 
 // The finite-difference steps of the standard errors (standardErrors).
@@ -73,6 +78,9 @@ type Fit struct {
 	// Polished is set when the fit was refined on exact predictions
 	// (every candidate in contention for the dataset).
 	Polished bool
+	// deep is set once the fit had the deep polish (polish's deep mode);
+	// it lives only while RunShard decides who is polished how far.
+	deep bool
 }
 
 // fitter fits one candidate (its prediction grid) to datasets of one design.
@@ -236,6 +244,16 @@ func (f *fitter) starts(s *sufficientStats, sp space) [][]float64 {
 // dimension, converged when the best value improves by less than 1e-6
 // (absolute) over 12 iterations per dimension, or when every vertex's value
 // lies within 1e-9.
+// gridSearchSettings are searchSettings with an improvement below
+// gridSearchAbsolute not counted: the search on the grid only finds where
+// the exact polish starts, and the grid is good to gridTolerance of ln L,
+// so sharpening its optimum further buys nothing.
+func gridSearchSettings(dims int) nmSettings {
+	set := searchSettings(dims)
+	set.Absolute = gridSearchAbsolute
+	return set
+}
+
 func searchSettings(dims int) nmSettings {
 	return nmSettings{Size: searchSimplex, MaxEvals: searchEvalsPerDim * dims, Absolute: searchAbsolute, Relative: searchRelative,
 		Stall: searchStallPerDim * dims, Spread: searchSpread}
@@ -275,7 +293,7 @@ func (f *fitter) fit(s *sufficientStats) Fit {
 		res := nelderMead(func(z []float64) float64 {
 			sp.toNatural(z, theta)
 			return f.negLogLik(s, sp, theta, false, nil)
-		}, z0, searchSettings(sp.totalDims))
+		}, z0, gridSearchSettings(sp.totalDims))
 		evals += res.Evals
 		if math.IsInf(res.F, 0) || math.IsNaN(res.F) {
 			status = res.Status
@@ -501,14 +519,24 @@ func (f *fitter) truthLogL(s *sufficientStats, truth []float64, pr *models.Predi
 	return -f.nuisanceSearch(s, sp, theta)
 }
 
-// Exact polish settings: polishRounds rounds of a compass step along
-// each hypothesis parameter, the first with a step of polishFirstStep grid
-// cells (the refined grid puts the estimate within one), each later one
-// polishShrink times shorter.
+// Exact polish settings: the compass search of exactCoordinatePolish
+// starts with steps of polishFirstStep grid cells (the refined grid puts
+// the estimate within one), halves them when a poll fails, and stops
+// below polishMinStep cells or after polishEvalsPerDim exact evaluations
+// per hypothesis parameter.
 const (
-	polishRounds    = 3
+	polishFirstStep          = 0.5 // grid cells
+	polishMinStep            = 1e-4
+	polishLineEvals          = 48
+	polishCompassEvalsPerDim = 6
+	polishQuickEvalsPerDim   = 4
+	// deepWindow: a candidate within this of a dataset's best (criterion
+	// units), and every self-fit, gets the deep polish; the others in
+	// contention the quick one.
+	deepWindow      = 0.5
 	polishShrink    = 0.25
-	polishFirstStep = 0.5 // grid cells
+	polishFlat      = 1e-9
+	polishFlatWidth = 0.02
 	// modeWindow: another mode of the grid within this of the estimate's
 	// −ln L (lapse and eeg_ar held) is searched too.
 	modeWindow = 2
@@ -516,8 +544,6 @@ const (
 	// startStride thins the nodes that starts are picked from on grids of
 	// two or more parameters.
 	startStride = 2
-	// polishStop ends the rounds early once a round lowers −ln L by less.
-	polishStop = 1e-7
 	// contentionWindow: a candidate is in contention for a dataset, and
 	// polished, when under any criterion it ends within this (in criterion
 	// units, 2 ln-units each) of that criterion's best candidate.
@@ -544,13 +570,13 @@ func thetaOf(sp space, out *Fit) []float64 {
 //  1. a profile pass: −ln L at every grid node with the fit's lapse and
 //     eeg_ar; the best local minima away from the estimate within
 //     modeWindow of it are scored exactly;
-//  2. a coordinate search on exact predictions over the hypothesis
-//     parameters (exactCoordinatePolish), each point's measurement terms
-//     re-fitted.
+//  2. a search on exact predictions over the hypothesis parameters
+//     (exactCoordinatePolish: Brent's method for one, a compass search
+//     for more; deep or quick), each point's measurement terms re-fitted.
 //
 // The fit keeps whichever exact −ln L is lowest, so polishing never makes
 // it worse.
-func (f *fitter) polish(s *sufficientStats, out *Fit) {
+func (f *fitter) polish(s *sufficientStats, out *Fit, deep bool) {
 	if out.Failed {
 		return
 	}
@@ -560,8 +586,11 @@ func (f *fitter) polish(s *sufficientStats, out *Fit) {
 	best := polishPoint{theta: theta, nll: -out.LogL}
 	if sp.dimsHyp > 0 && g.points >= 2 {
 		_, lapse, ar := sp.split(theta)
-		g.Interpolate(theta[:sp.dimsHyp], f.pred, f.ws)
-		here := logLik(s, g.lay, f.pred, lapse, ar, nil)
+		// The estimate's exact −ln L is the yardstick: a node's stored
+		// prediction is exact too, so both stand on one footing, whereas
+		// the grid's value at the estimate can be far off near a jump
+		// (a search that settled on an interpolation artefact).
+		here := -out.LogL
 		// Other modes: grid nodes at least two grid steps from the
 		// estimate in some parameter that are local minima of the grid's
 		// −ln L (lapse and eeg_ar held) and better than, or within
@@ -608,13 +637,14 @@ func (f *fitter) polish(s *sufficientStats, out *Fit) {
 		}
 	}
 	if sp.dimsHyp > 0 {
-		best = f.exactCoordinatePolish(s, sp, best)
+		best = f.exactCoordinatePolish(s, sp, best, deep)
 	} else {
 		th := append([]float64(nil), theta...)
 		g.exactInto(nil, f.pred, f.ws, f.pr)
 		best.consider(f, f.nuisanceSearch(s, sp, th), th)
 	}
 	out.Polished = true
+	out.deep = out.deep || deep
 	if best.pred == nil || best.nll >= -out.LogL {
 		return
 	}
@@ -647,10 +677,12 @@ func (b *polishPoint) consider(f *fitter, nll float64, theta []float64) {
 	}
 }
 
-// inContention marks the fits of one dataset within contentionWindow of
-// the best under any criterion.
-func inContention(fits []Fit) []bool {
-	out := make([]bool, len(fits))
+// polishWanted says how far each fit of one dataset is to be polished:
+// 2 (deep) within deepWindow of the best under any criterion, 1 (quick)
+// within contentionWindow, 0 otherwise; self, the generator's own fit,
+// always deep (its ln L is checked against the truth's).
+func polishWanted(fits []Fit, self int) []int {
+	out := make([]int, len(fits))
 	for _, c := range Criteria {
 		best := math.Inf(1)
 		for i := range fits {
@@ -659,65 +691,186 @@ func inContention(fits []Fit) []bool {
 			}
 		}
 		for i := range fits {
-			if v := c.Of(&fits[i]); v <= best+contentionWindow {
-				out[i] = true
+			v := c.Of(&fits[i])
+			switch {
+			case v <= best+deepWindow:
+				out[i] = 2
+			case v <= best+contentionWindow:
+				out[i] = max(out[i], 1)
 			}
 		}
+	}
+	if self >= 0 && self < len(out) {
+		out[self] = 2
 	}
 	return out
 }
 
-// exactCoordinatePolish lowers the exact −ln L from best by a
-// compass search along one hypothesis parameter at a time: it moves to
-// x−h when that is lower, else to x+h when that is lower (the likelihood
-// has kinks, where a parabola through three points points the wrong way).
-// The measurement terms are re-fitted at every point. Each of
-// polishRounds rounds visits every parameter, with h polishFirstStep grid
-// cells in the first and polishShrink times the last after.
-func (f *fitter) exactCoordinatePolish(s *sufficientStats, sp space, best polishPoint) polishPoint {
+// exactCoordinatePolish lowers the exact −ln L from best. With deep set
+// and one parameter it runs Brent's method (brentMin) on the grid cell
+// around the estimate, moved on while the best point ends at an edge;
+// otherwise a compass search over the hypothesis parameters (Kolda, Lewis & Torczon 2003,
+// SIAM Review 45:385, "Optimization by direct search"): it polls x − h_j
+// and then x + h_j along each parameter in turn and moves to the first
+// point that is lower, keeping the step; when a whole poll finds nothing
+// lower, every step is multiplied by polishShrink, and a poll whose
+// points all lie within polishFlat of the best ends it. Steps start at
+// polishFirstStep grid cells; the search ends when they are below
+// polishMinStep cells or after polishCompassEvalsPerDim (deep) or
+// polishQuickEvalsPerDim (quick) exact evaluations per parameter. A compass search
+// converges onto a kink, where a parabola through three points points the
+// wrong way, and a kept step lets it travel further than the first step
+// (a shrinking one could not: its steps sum to a bounded distance). The
+// measurement terms are re-fitted at every point.
+func (f *fitter) exactCoordinatePolish(s *sufficientStats, sp space, best polishPoint, deep bool) polishPoint {
 	g := f.grid
-	x := best.theta
 	cells := float64(max(g.points, 9) - 1)
 	h := make([]float64, sp.dimsHyp)
+	minStep := make([]float64, sp.dimsHyp)
 	for j := range h {
-		h[j] = polishFirstStep * (sp.hi[j] - sp.lo[j]) / cells
+		cell := (sp.hi[j] - sp.lo[j]) / cells
+		h[j], minStep[j] = polishFirstStep*cell, polishMinStep*cell
 	}
-	for round := 0; round < polishRounds; round++ {
-		before := best.nll
-		for j := 0; j < sp.dimsHyp; j++ {
-			at := func(v float64) bool {
-				th := append([]float64(nil), x...)
-				th[j] = math.Max(sp.lo[j], math.Min(sp.hi[j], v))
-				g.exactInto(th[:sp.dimsHyp], f.pred, f.ws, f.pr)
-				was := best.nll
-				best.consider(f, f.nuisanceSearch(s, sp, th), th)
-				return best.nll < was
-			}
-			// The right side is tried only when the left did not gain.
-			if !at(x[j] - h[j]) {
-				at(x[j] + h[j])
-			}
-			x = best.theta
-			h[j] *= polishShrink
+	budget := polishCompassEvalsPerDim * sp.dimsHyp
+	if !deep {
+		budget = polishQuickEvalsPerDim * sp.dimsHyp
+	}
+	evals := 0
+	if deep && sp.dimsHyp == 1 {
+		cells0 := (sp.hi[0] - sp.lo[0]) / cells
+		// One parameter: Brent's method on a bracket of polishFirstStep
+		// cells either side, moved on when the best point ends at an edge
+		// that is not the range's.
+		val := func(v float64) float64 {
+			th := append([]float64(nil), best.theta...)
+			th[0] = v
+			g.exactInto(th[:1], f.pred, f.ws, f.pr)
+			nll := f.nuisanceSearch(s, sp, th)
+			best.consider(f, nll, th)
+			return nll
 		}
-		// A round that moved nothing with its step may still move with
-		// the next, shorter one; only a round that moved and gained
-		// almost nothing ends the polish.
-		if best.nll < before && before-best.nll < polishStop {
+		budget = polishLineEvals
+		for tries := 0; tries < 3 && evals < budget; tries++ {
+			x := best.theta[0]
+			a, b := math.Max(sp.lo[0], x-h[0]), math.Min(sp.hi[0], x+h[0])
+			var xm float64
+			var n int
+			lo, hi, flo, fhi, ok := 0.0, 0.0, 0.0, 0.0, false
+			if tries == 0 {
+				lo, hi, flo, fhi, ok = f.gridBracket(s, sp, best.theta)
+			}
+			if ok && (flo < best.nll || fhi < best.nll) {
+				// A node of the cell is lower than the estimate: the
+				// minimum lies beyond it, so the search starts there
+				// (a bracket's ends must not be below its inside).
+				ok = false
+			}
+			if ok {
+				// The first bracket is the grid cell around the
+				// estimate: its nodes' predictions are exact, so with
+				// lapse and eeg_ar held their values cost no prediction
+				// and give the first parabola.
+				w, fw, v, fv := lo, flo, hi, fhi
+				if fhi < flo {
+					w, fw, v, fv = hi, fhi, lo, flo
+				}
+				xm, _, n = brentMinFrom(val, lo, hi, x, best.nll, w, fw, v, fv, minStep[0], budget-evals, polishFlatWidth*cells0, polishFlat, 3)
+				a, b = lo, hi
+			} else {
+				xm, _, n = brentMin(val, a, b, x, best.nll, minStep[0], budget-evals, polishFlatWidth*cells0, polishFlat, 3)
+			}
+			evals += n
+			if !(xm-a < 2*minStep[0] && a > sp.lo[0]) && !(b-xm < 2*minStep[0] && b < sp.hi[0]) {
+				break
+			}
+		}
+		return best
+	}
+	// rise is the largest amount by which a failed poll's points lay above
+	// the best: when it is below polishFlat, −ln L is flat at this step
+	// and a shorter one cannot gain more than about that.
+	rise := 0.0
+	at := func(j int, v float64) bool {
+		th := append([]float64(nil), best.theta...)
+		th[j] = math.Max(sp.lo[j], math.Min(sp.hi[j], v))
+		if th[j] == best.theta[j] {
+			return false
+		}
+		evals++
+		g.exactInto(th[:sp.dimsHyp], f.pred, f.ws, f.pr)
+		was := best.nll
+		v2 := f.nuisanceSearch(s, sp, th)
+		best.consider(f, v2, th)
+		if best.nll < was {
+			return true
+		}
+		rise = math.Max(rise, v2-was)
+		return false
+	}
+	for evals < budget {
+		moved := false
+		rise = 0
+		for j := 0; j < sp.dimsHyp && evals < budget; j++ {
+			if h[j] < minStep[j] {
+				continue
+			}
+			x := best.theta[j]
+			if at(j, x-h[j]) || at(j, x+h[j]) {
+				moved = true
+			}
+		}
+		if moved {
+			continue
+		}
+		if rise < polishFlat {
+			break
+		}
+		small := true
+		for j := range h {
+			h[j] *= polishShrink
+			small = small && h[j] < minStep[j]
+		}
+		if small {
 			break
 		}
 	}
 	return best
 }
 
-// sameRun reports whether theta ended within 1e-4 of its range, in every
+// gridBracket returns the grid cell of a one-parameter grid around θ's
+// hypothesis parameter (the cells either side when θ sits on a node), in
+// natural units, with −ln L at its two nodes for θ's lapse and eeg_ar;
+// ok is false when θ is not strictly inside.
+func (f *fitter) gridBracket(s *sufficientStats, sp space, theta []float64) (lo, hi, flo, fhi float64, ok bool) {
+	g := f.grid
+	ax := g.axes[0]
+	c := g.coord(0, theta[0])
+	k := sort.SearchFloat64s(ax, c) // first node ≥ c
+	i, j := k-1, k
+	if k < len(ax) && ax[k] == c {
+		j = k + 1
+	}
+	if i < 0 || j >= len(ax) {
+		return 0, 0, 0, 0, false
+	}
+	_, lapse, ar := sp.split(theta)
+	lo, hi = g.value(0, ax[i]), g.value(0, ax[j])
+	if !(lo < theta[0] && theta[0] < hi) {
+		return 0, 0, 0, 0, false
+	}
+	flo = logLik(s, g.lay, g.node(i), lapse, ar, nil)
+	fhi = logLik(s, g.lay, g.node(j), lapse, ar, nil)
+	return lo, hi, flo, fhi, true
+}
+
+// sameRun reports whether theta ended within sameRunWidth of its range, in every
 // parameter, of a run already re-scored: starts that converge to one
 // optimum need one exact prediction, not one each.
 func sameRun(sp space, done [][]float64, theta []float64) bool {
 	for _, d := range done {
 		same := true
 		for i := range theta {
-			same = same && math.Abs(d[i]-theta[i]) <= 1e-4*(sp.hi[i]-sp.lo[i])
+			same = same && math.Abs(d[i]-theta[i]) <= sameRunWidth*(sp.hi[i]-sp.lo[i])
 		}
 		if same {
 			return true

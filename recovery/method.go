@@ -70,15 +70,31 @@ type Method struct {
 	RefineBudget  int     `json:"refine_budget"`
 	// Exact polish of every candidate within ContentionWindow criterion
 	// units of a dataset's best (and of every self-fit): up to ModeTries
-	// other grid modes within ModeWindow ln-units scored exactly, then
-	// PolishRounds compass rounds per parameter from PolishFirstStep grid
-	// cells, each PolishShrink times the last.
-	ContentionWindow float64 `json:"contention_window"`
-	ModeWindow       float64 `json:"mode_window"`
-	ModeTries        int     `json:"mode_tries"`
-	PolishRounds     int     `json:"polish_rounds"`
-	PolishFirstStep  float64 `json:"polish_first_step"`
-	PolishShrink     float64 `json:"polish_shrink"`
+	// other grid modes within ModeWindow ln-units scored exactly, then the
+	// best point refined: deep (self-fits and fits within DeepWindow of
+	// the best) by Brent's method on a bracket of PolishFirstStep cells
+	// to PolishMinStep cells (or PolishLineEvals evaluations; it also
+	// stops inside PolishFlatWidth cells once three evaluations gained
+	// less than PolishFlat) for one parameter, by a compass search of at
+	// most PolishCompassEvalsPerDim evaluations per parameter for more;
+	// quick (the rest in contention) by a compass search of at most
+	// PolishQuickEvalsPerDim. The search on the grid does not count an
+	// improvement below GridSearchAbsTol; runs ending within SameRunWidth
+	// of the range of one already re-scored are one optimum.
+	ContentionWindow         float64 `json:"contention_window"`
+	ModeWindow               float64 `json:"mode_window"`
+	ModeTries                int     `json:"mode_tries"`
+	PolishFirstStep          float64 `json:"polish_first_step"`
+	PolishMinStep            float64 `json:"polish_min_step"`
+	PolishLineEvals          int     `json:"polish_line_evals"`
+	PolishCompassEvalsPerDim int     `json:"polish_compass_evals_per_dim"`
+	PolishFlat               float64 `json:"polish_flat"`
+	PolishFlatWidth          float64 `json:"polish_flat_width"`
+	PolishQuickEvalsPerDim   int     `json:"polish_quick_evals_per_dim"`
+	PolishShrink             float64 `json:"polish_shrink"`
+	DeepWindow               float64 `json:"deep_window"`
+	GridSearchAbsTol         float64 `json:"grid_search_abs_tol"`
+	SameRunWidth             float64 `json:"same_run_width"`
 	// ProfileThreshold is χ²₁(0.95)/2, the rise of the profile −ln L that
 	// bounds a 95% profile-likelihood interval.
 	ProfileThreshold float64 `json:"profile_threshold"`
@@ -103,7 +119,8 @@ func CurrentMethod() Method {
 		BMSTolerance: bmsTol, BMSMaxIterations: bmsMaxIter, GroupBootstrapRounds: groupBootstrapRounds,
 		GridTolerance: gridTolerance, JumpWidth: jumpWidth, RefineBudget: refineBudget,
 		ContentionWindow: contentionWindow, ModeWindow: modeWindow, ModeTries: modeTries,
-		PolishRounds: polishRounds, PolishFirstStep: polishFirstStep, PolishShrink: polishShrink,
+		PolishFirstStep: polishFirstStep, PolishMinStep: polishMinStep, PolishLineEvals: polishLineEvals, PolishCompassEvalsPerDim: polishCompassEvalsPerDim, PolishFlat: polishFlat, PolishFlatWidth: polishFlatWidth,
+		PolishQuickEvalsPerDim: polishQuickEvalsPerDim, PolishShrink: polishShrink, DeepWindow: deepWindow, GridSearchAbsTol: gridSearchAbsolute, SameRunWidth: sameRunWidth,
 		ProfileThreshold: profileThreshold, TruthTolerance: truthTolerance,
 	}
 }
