@@ -211,6 +211,70 @@ func (c *PredictionGrid) exactInto(x, dst []float64, ws *models.Workspace, p *mo
 	c.lay.flatten(p, dst)
 }
 
+// jumpSteps is the number of bisections jumpNear makes: it narrows a
+// segment to 2^−jumpSteps of its length (1/256).
+const jumpSteps = 8
+
+// jumpNear decides whether the interpolation error at x (exact
+// prediction px) comes from a jump of the predictions: along the segment
+// from the nearest grid node to x it bisects towards the half whose
+// midpoint linear interpolation misses more, jumpSteps times; if the
+// miss over the last, 256 times shorter, segment still costs more than
+// gridTolerance of ln L for a typical dataset, the predictions jump
+// there (a smooth function's miss shrinks with the square of the length).
+// It returns the jump's parameter values.
+func (c *PredictionGrid) jumpNear(x, px []float64, typ typicalData, ws *models.Workspace) ([]float64, bool) {
+	dims := len(x)
+	size := c.lay.size()
+	// The nearest node, in grid units.
+	lo := make([]float64, dims)
+	for i := range lo {
+		g := c.coord(i, x[i])
+		ax := c.axes[i]
+		k := sort.SearchFloat64s(ax, g)
+		k = max(0, min(k, len(ax)-1))
+		if k > 0 && math.Abs(ax[k-1]-g) < math.Abs(ax[k]-g) {
+			k--
+		}
+		lo[i] = c.value(i, ax[k])
+	}
+	hi := append([]float64(nil), x...)
+	plo, phi := make([]float64, size), append([]float64(nil), px...)
+	c.Exact(lo, plo, ws)
+	mid := make([]float64, dims)
+	pm, lin := make([]float64, size), make([]float64, size)
+	miss := 0.0
+	for range jumpSteps {
+		for i := range mid {
+			mid[i] = 0.5 * (lo[i] + hi[i])
+		}
+		c.Exact(mid, pm, ws)
+		// The midpoint's miss against each half's chord decides which
+		// half holds the larger change.
+		for j := range lin {
+			lin[j] = 0.5 * (plo[j] + phi[j])
+		}
+		miss = typ.effect(pm, lin)
+		left := typ.effect(plo, pm)
+		right := typ.effect(pm, phi)
+		if left >= right {
+			copy(hi, mid)
+			copy(phi, pm)
+		} else {
+			copy(lo, mid)
+			copy(plo, pm)
+		}
+	}
+	if miss <= gridTolerance {
+		return nil, false
+	}
+	at := make([]float64, dims)
+	for i := range at {
+		at[i] = 0.5 * (lo[i] + hi[i])
+	}
+	return at, true
+}
+
 // SurrogateError is the interpolation error of one candidate's grid against
 // exact predictions at random points (model.md §5).
 type SurrogateError struct {
@@ -233,6 +297,10 @@ type SurrogateError struct {
 	Jumps bool `json:"jumps"`
 	// JumpsAt are the parameter values of the jumps (one-parameter grids).
 	JumpsAt []float64 `json:"jumps_at"`
+	// JumpPoints are, for grids of more parameters, the jumps located from
+	// the random points whose error was over tolerance (jumpNear), each a
+	// value per parameter.
+	JumpPoints []map[string]float64 `json:"jump_points,omitempty"`
 }
 
 // MeasureError compares interpolated with exact predictions at n points
@@ -251,6 +319,8 @@ func (c *PredictionGrid) MeasureError(seed uint64, n int) SurrogateError {
 	x := make([]float64, dims)
 	var rtErr, nErr []float64
 	typ := newTypicalData(c.design, c.lay)
+	var jumps []map[string]float64 // multi-parameter grids: located jumps
+	smooth := 0.0                  // the largest error over tolerance not at a jump
 	for range n {
 		for i := range x {
 			x[i] = c.value(i, r.Float64()*float64(c.points-1))
@@ -267,7 +337,22 @@ func (c *PredictionGrid) MeasureError(seed uint64, n int) SurrogateError {
 		for bb := 0; bb < c.lay.bmax; bb++ {
 			ne = math.Max(ne, math.Abs(a[c.lay.eeg(bb)]-b[c.lay.eeg(bb)]))
 		}
-		e.LogLikError = math.Max(e.LogLikError, typ.effect(b, a))
+		eff := typ.effect(b, a)
+		if dims > 1 && eff > gridTolerance {
+			// A larger grid is not refined: a point over tolerance is
+			// either poor interpolation or a jump of the predictions,
+			// which no grid closes; jumpNear tells them apart.
+			if at, ok := c.jumpNear(x, b, typ, ws); ok {
+				pt := map[string]float64{}
+				for i, name := range c.Names {
+					pt[name] = at[i]
+				}
+				jumps = append(jumps, pt)
+			} else {
+				smooth = math.Max(smooth, eff)
+			}
+		}
+		e.LogLikError = math.Max(e.LogLikError, eff)
 		rtErr = append(rtErr, rt)
 		nErr = append(nErr, ne)
 		e.MaxRTms = math.Max(e.MaxRTms, rt)
@@ -286,7 +371,11 @@ func (c *PredictionGrid) MeasureError(seed uint64, n int) SurrogateError {
 	if dims == 1 {
 		e.OverTolerance = c.refine.Exhausted && c.refine.Worst > gridTolerance
 	} else {
-		e.OverTolerance = e.LogLikError > gridTolerance
+		// Over tolerance where the error is not a jump's; a grid whose
+		// points over tolerance all sit at jumps is reported as jumping.
+		e.OverTolerance = smooth > gridTolerance
+		e.Jumps = len(jumps) > 0
+		e.JumpPoints = jumps
 	}
 	return e
 }

@@ -6,6 +6,7 @@ import (
 	"encoding/json"
 	"fmt"
 	"math"
+	"sort"
 	"strconv"
 	"strings"
 
@@ -655,6 +656,18 @@ func weaknesses(dr DesignReport) []string {
 					name = "its parameter"
 				}
 				at = fmt.Sprintf(" at %s = %s", name, strings.Join(vs, ", "))
+			}
+			if len(e.JumpPoints) > 0 {
+				var names []string
+				for k := range e.JumpPoints[0] {
+					names = append(names, k)
+				}
+				sort.Strings(names)
+				var vs []string
+				for _, k := range names {
+					vs = append(vs, k+" = "+strconv.FormatFloat(e.JumpPoints[0][k], 'g', 3, 64))
+				}
+				at = fmt.Sprintf(" (located at %d of the %d points where its grid was checked, for example at %s)", len(e.JumpPoints), e.Points, strings.Join(vs, ", "))
 			}
 			out = append(out, fmt.Sprintf("The exact predictions of %s jump%s (an invalid trial flips between a recovered and a misdirected report; across a jump ln L moves by up to %s for a typical dataset); no grid closes that gap, so fits of %s near a jump are less certain than these figures say.",
 				e.Hypothesis, at, strconv.FormatFloat(e.LogLikError, 'g', 3, 64), e.Hypothesis))
