@@ -291,6 +291,10 @@ type SurrogateError struct {
 	// when it exceeds the grid tolerance even after refinement.
 	LogLikError   float64 `json:"loglik_error"`
 	OverTolerance bool    `json:"over_tolerance"`
+	// SmoothError is, for grids of more parameters, the largest effect on
+	// ln L at a checked point that is not at a jump: the interpolation
+	// error a finer grid would close. OverTolerance is judged on it.
+	SmoothError float64 `json:"smooth_error,omitempty"`
 	// Jumps is set when the exact predictions themselves jump between
 	// neighbouring grid nodes (an invalid trial flipping between a
 	// recovered and a misdirected report), where no grid closes the gap.
@@ -373,6 +377,7 @@ func (c *PredictionGrid) MeasureError(seed uint64, n int) SurrogateError {
 	} else {
 		// Over tolerance where the error is not a jump's; a grid whose
 		// points over tolerance all sit at jumps is reported as jumping.
+		e.SmoothError = smooth
 		e.OverTolerance = smooth > gridTolerance
 		e.Jumps = len(jumps) > 0
 		e.JumpPoints = jumps

@@ -636,8 +636,12 @@ func weaknesses(dr DesignReport) []string {
 	}
 	for _, e := range dr.Surrogate {
 		if e.OverTolerance {
+			worst := e.LogLikError
+			if e.SmoothError > 0 {
+				worst = e.SmoothError
+			}
 			out = append(out, fmt.Sprintf("The prediction grid of %s is over tolerance: interpolation moves ln L by up to %s for a typical dataset even after refinement, so searches on it can settle on the wrong optimum.",
-				e.Hypothesis, strconv.FormatFloat(e.LogLikError, 'g', 3, 64)))
+				e.Hypothesis, strconv.FormatFloat(worst, 'g', 3, 64)))
 		}
 		if e.Jumps {
 			at := ""
@@ -667,7 +671,7 @@ func weaknesses(dr DesignReport) []string {
 				for _, k := range names {
 					vs = append(vs, k+" = "+strconv.FormatFloat(e.JumpPoints[0][k], 'g', 3, 64))
 				}
-				at = fmt.Sprintf(" (located at %d of the %d points where its grid was checked, for example at %s)", len(e.JumpPoints), e.Points, strings.Join(vs, ", "))
+				at = fmt.Sprintf(" near %d of the %d points where its grid was checked, for example at %s", len(e.JumpPoints), e.Points, strings.Join(vs, ", "))
 			}
 			out = append(out, fmt.Sprintf("The exact predictions of %s jump%s (an invalid trial flips between a recovered and a misdirected report; across a jump ln L moves by up to %s for a typical dataset); no grid closes that gap, so fits of %s near a jump are less certain than these figures say.",
 				e.Hypothesis, at, strconv.FormatFloat(e.LogLikError, 'g', 3, 64), e.Hypothesis))
