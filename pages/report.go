@@ -118,6 +118,7 @@ type methodView struct {
 	PolishMinStep, DeepWindow                  string
 	PolishCompassEvalsPerDim                   string
 	PolishQuickEvalsPerDim                     string
+	RefineCheckPoints, RefineBudgetShare       string
 }
 
 // newMethodView formats m for the method notes: counts under eleven in
@@ -128,7 +129,8 @@ func newMethodView(m recovery.Method) methodView {
 		return methodView{Missing: true, Starts: dash, StartSpacing: dash, RescoreWindow: dash, LapseMax: dash, ARMax: dash,
 			SERoughStep: dash, SEFineStep: dash, SEChange: dash, GridTolerance: dash, JumpWidth: dash,
 			ContentionWindow: dash, ModeTries: dash, ModeWindow: dash, ProfileThreshold: dash, TruthTolerance: dash,
-			GroupBootstrapRounds: dash, PolishMinStep: dash, DeepWindow: dash, PolishCompassEvalsPerDim: dash, PolishQuickEvalsPerDim: dash}
+			GroupBootstrapRounds: dash, PolishMinStep: dash, DeepWindow: dash, PolishCompassEvalsPerDim: dash, PolishQuickEvalsPerDim: dash,
+			RefineCheckPoints: dash, RefineBudgetShare: dash}
 	}
 	// A report made before the group bootstrap has no rounds.
 	rounds := "—"
@@ -145,6 +147,8 @@ func newMethodView(m recovery.Method) methodView {
 		PolishMinStep: orDash(m.PolishMinStep > 0, fmtG(m.PolishMinStep, 3)), DeepWindow: orDash(m.DeepWindow > 0, fmtG(m.DeepWindow, 3)),
 		PolishCompassEvalsPerDim: orDash(m.PolishCompassEvalsPerDim > 0, countWord(m.PolishCompassEvalsPerDim)),
 		PolishQuickEvalsPerDim:   orDash(m.PolishQuickEvalsPerDim > 0, countWord(m.PolishQuickEvalsPerDim)),
+		RefineCheckPoints:        orDash(m.RefineCheckPoints > 0, strconv.Itoa(m.RefineCheckPoints)),
+		RefineBudgetShare:        orDash(m.RefineCheckPoints > 0, fmtG(100*m.RefineBudgetShare, 3)+"%"),
 	}
 }
 

@@ -92,10 +92,12 @@ func BuildPredictionGrid(ctx context.Context, l *models.Listener, d *models.Desi
 	if err != nil {
 		return nil, fmt.Errorf("recovery: prediction grid for %s: %w", h.Name, err)
 	}
-	if dims == 1 {
-		if err := c.refine1D(ctx, workers); err != nil {
-			return nil, fmt.Errorf("recovery: refining the prediction grid for %s: %w", h.Name, err)
-		}
+	refine := c.refine1D
+	if dims > 1 {
+		refine = c.refineND
+	}
+	if err := refine(ctx, workers); err != nil {
+		return nil, fmt.Errorf("recovery: refining the prediction grid for %s: %w", h.Name, err)
 	}
 	return c, nil
 }
@@ -225,19 +227,49 @@ const jumpSteps = 8
 // It returns the jump's parameter values.
 func (c *PredictionGrid) jumpNear(x, px []float64, typ typicalData, ws *models.Workspace) ([]float64, bool) {
 	dims := len(x)
-	size := c.lay.size()
-	// The nearest node, in grid units.
-	lo := make([]float64, dims)
-	for i := range lo {
+	// The corners of x's cell, nearest first: a jump inside the cell lies
+	// between x and at least one of them.
+	base := make([]int, dims)
+	frac := make([]float64, dims)
+	for i := range base {
 		g := c.coord(i, x[i])
 		ax := c.axes[i]
-		k := sort.SearchFloat64s(ax, g)
-		k = max(0, min(k, len(ax)-1))
-		if k > 0 && math.Abs(ax[k-1]-g) < math.Abs(ax[k]-g) {
-			k--
-		}
-		lo[i] = c.value(i, ax[k])
+		k := max(0, min(sort.SearchFloat64s(ax, g)-1, len(ax)-2))
+		base[i], frac[i] = k, (g-ax[k])/(ax[k+1]-ax[k])
 	}
+	type corner struct {
+		at   []float64
+		dist float64
+	}
+	corners := make([]corner, 1<<dims)
+	for m := range corners {
+		at := make([]float64, dims)
+		d := 0.0
+		for i := range at {
+			k, f := base[i], frac[i]
+			if m>>i&1 == 1 {
+				k, f = k+1, 1-f
+			}
+			at[i] = c.value(i, c.axes[i][k])
+			d += f * f
+		}
+		corners[m] = corner{at, d}
+	}
+	sort.SliceStable(corners, func(a, b int) bool { return corners[a].dist < corners[b].dist })
+	for _, cn := range corners {
+		if at, ok := c.jumpTowards(cn.at, x, px, typ, ws); ok {
+			return at, true
+		}
+	}
+	return nil, false
+}
+
+// jumpTowards bisects the segment from the node lo to x (exact
+// prediction px) as jumpNear describes.
+func (c *PredictionGrid) jumpTowards(node, x, px []float64, typ typicalData, ws *models.Workspace) ([]float64, bool) {
+	dims := len(x)
+	size := c.lay.size()
+	lo := append([]float64(nil), node...)
 	hi := append([]float64(nil), x...)
 	plo, phi := make([]float64, size), append([]float64(nil), px...)
 	c.Exact(lo, plo, ws)

@@ -68,6 +68,16 @@ type Method struct {
 	GridTolerance float64 `json:"grid_tolerance"`
 	JumpWidth     float64 `json:"jump_width"`
 	RefineBudget  int     `json:"refine_budget"`
+	// Grid refinement of larger grids: interpolation tested at
+	// RefineCheckPoints Halton points; where a point not at a jump is over
+	// tolerance, node lines are added through its cell along the axes
+	// that carry the error (cells of at least RefineMinWidth initial
+	// cells), at most RefineBudgetShare of the initial nodes, in
+	// RefineRounds rounds at most.
+	RefineCheckPoints int     `json:"refine_check_points"`
+	RefineRounds      int     `json:"refine_rounds"`
+	RefineBudgetShare float64 `json:"refine_budget_share"`
+	RefineMinWidth    float64 `json:"refine_min_width"`
 	// Exact polish of every candidate within ContentionWindow criterion
 	// units of a dataset's best (and of every self-fit): up to ModeTries
 	// other grid modes within ModeWindow ln-units scored exactly, then the
@@ -118,6 +128,7 @@ func CurrentMethod() Method {
 		TieTolerance: TieTolerance,
 		BMSTolerance: bmsTol, BMSMaxIterations: bmsMaxIter, GroupBootstrapRounds: groupBootstrapRounds,
 		GridTolerance: gridTolerance, JumpWidth: jumpWidth, RefineBudget: refineBudget,
+		RefineCheckPoints: ndCheckPoints, RefineRounds: ndRounds, RefineBudgetShare: ndBudgetShare, RefineMinWidth: ndMinWidth,
 		ContentionWindow: contentionWindow, ModeWindow: modeWindow, ModeTries: modeTries,
 		PolishFirstStep: polishFirstStep, PolishMinStep: polishMinStep, PolishLineEvals: polishLineEvals, PolishCompassEvalsPerDim: polishCompassEvalsPerDim, PolishFlat: polishFlat, PolishFlatWidth: polishFlatWidth,
 		PolishQuickEvalsPerDim: polishQuickEvalsPerDim, PolishShrink: polishShrink, DeepWindow: deepWindow, GridSearchAbsTol: gridSearchAbsolute, SameRunWidth: sameRunWidth,

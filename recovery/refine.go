@@ -213,3 +213,247 @@ func (c *PredictionGrid) refine1D(ctx context.Context, workers int) error {
 	c.setStrides()
 	return nil
 }
+
+// Refinement of grids of two or more parameters. Testing every cell, as
+// in one dimension, costs as much as the grid and keeps splitting the
+// cells that a curve of jumps crosses; instead interpolation is tested
+// at ndCheckPoints points of a Halton sequence (Halton 1960, Numerische
+// Mathematik 2:84), which needs no seed and covers the box evenly, and
+// which the random points of MeasureError, drawn afterwards, do not
+// share. At a point over gridTolerance that is not at a jump (jumpNear),
+// each axis's own share of the error is measured (linear interpolation
+// along that axis alone, between exact predictions on the cell's two
+// faces), and the axes over tolerance (or else the worst one) get a new
+// node line through the middle of the cell: a whole line (plane, ...) of
+// exact predictions, since the grid is a tensor product. Cells narrower
+// than ndMinWidth initial cells are not split again; at most
+// ndBudgetShare of the initial nodes are added, in ndRounds rounds at
+// most.
+const (
+	ndCheckPoints = 96
+	ndRounds      = 8
+	ndBudgetShare = 1.0
+	ndMinWidth    = 1.0 / 16
+)
+
+// halton is the i-th element (i ≥ 1) of the van der Corput sequence in
+// the given base, the Halton sequence's coordinate for that base.
+func halton(i, base int) float64 {
+	f, r := 1.0, 0.0
+	for ; i > 0; i /= base {
+		f /= float64(base)
+		r += f * float64(i%base)
+	}
+	return r
+}
+
+// refineND refines a grid of two or more parameters (see the constants
+// above). The result does not depend on the workers: check points,
+// decisions and insertions are made in a fixed order.
+func (c *PredictionGrid) refineND(ctx context.Context, workers int) error {
+	dims := len(c.axes)
+	size := c.lay.size()
+	typ := newTypicalData(c.design, c.lay)
+	budget := int(ndBudgetShare * float64(c.Nodes()))
+	primes := [4]int{2, 3, 5, 7}
+	m := ndCheckPoints
+	params := make([][]float64, m)
+	exact := make([][]float64, m)
+	for j := range params {
+		params[j] = make([]float64, dims)
+		for i := range params[j] {
+			params[j][i] = c.value(i, halton(j+1, primes[i])*float64(c.points-1))
+		}
+		exact[j] = make([]float64, size)
+	}
+	type scratch struct {
+		ws *models.Workspace
+		p  *models.Prediction
+	}
+	scr := make([]*scratch, max(workers, 1))
+	if err := parallel.For(ctx, m, workers, func(w, j int) error {
+		if scr[w] == nil {
+			scr[w] = &scratch{c.listener.NewWorkspace(), c.listener.NewPrediction()}
+		}
+		c.exactInto(params[j], exact[j], scr[w].ws, scr[w].p)
+		return nil
+	}); err != nil {
+		return err
+	}
+	ws, pr := c.listener.NewWorkspace(), c.listener.NewPrediction()
+	interp, a, b := make([]float64, size), make([]float64, size), make([]float64, size)
+	face := make([]float64, dims)
+	jump := make([]bool, m)
+	res := &c.refine
+	type split struct {
+		dim int
+		at  float64 // grid units
+		err float64
+	}
+	for round := 0; ; round++ {
+		var splits []split
+		worst := 0.0
+		for j := range params {
+			if jump[j] {
+				continue
+			}
+			c.Interpolate(params[j], interp, ws)
+			e := typ.effect(exact[j], interp)
+			if e <= gridTolerance {
+				continue
+			}
+			if _, ok := c.jumpNear(params[j], exact[j], typ, ws); ok {
+				jump[j] = true
+				continue
+			}
+			worst = math.Max(worst, e)
+			// Each axis's share: linear along axis i alone.
+			var mine []split
+			for i := 0; i < dims; i++ {
+				g := c.coord(i, params[j][i])
+				ax := c.axes[i]
+				k := max(0, min(sort.SearchFloat64s(ax, g)-1, len(ax)-2))
+				if ax[k+1]-ax[k] <= ndMinWidth {
+					continue
+				}
+				t := (g - ax[k]) / (ax[k+1] - ax[k])
+				copy(face, params[j])
+				face[i] = c.value(i, ax[k])
+				c.exactInto(face, a, ws, pr)
+				face[i] = c.value(i, ax[k+1])
+				c.exactInto(face, b, ws, pr)
+				for q := range interp {
+					interp[q] = (1-t)*a[q] + t*b[q]
+				}
+				mine = append(mine, split{i, 0.5 * (ax[k] + ax[k+1]), typ.effect(exact[j], interp)})
+			}
+			// The axes over tolerance, or else the worst one alone; each
+			// ranked by the point's whole error.
+			worstAxis, over := 0, false
+			for q, sp := range mine {
+				if sp.err > mine[worstAxis].err {
+					worstAxis = q
+				}
+				if sp.err > gridTolerance {
+					splits = append(splits, split{sp.dim, sp.at, e})
+					over = true
+				}
+			}
+			if !over && len(mine) > 0 {
+				splits = append(splits, split{mine[worstAxis].dim, mine[worstAxis].at, e})
+			}
+		}
+		res.Worst = worst
+		if len(splits) == 0 || round == ndRounds {
+			res.Exhausted = res.Exhausted || len(splits) > 0
+			return nil
+		}
+		// The worst first; one line per axis position; within the budget.
+		sort.SliceStable(splits, func(x, y int) bool { return splits[x].err > splits[y].err })
+		newAt := make([][]float64, dims)
+		lens := make([]int, dims)
+		for i := range lens {
+			lens[i] = len(c.axes[i])
+		}
+		for _, sp := range splits {
+			if slicesContains(newAt[sp.dim], sp.at) {
+				continue
+			}
+			cost := 1
+			for i := range lens {
+				if i != sp.dim {
+					cost *= lens[i]
+				}
+			}
+			if res.Added+cost > budget {
+				res.Exhausted = true
+				continue
+			}
+			res.Added += cost
+			lens[sp.dim]++
+			newAt[sp.dim] = append(newAt[sp.dim], sp.at)
+		}
+		if !anyNonEmpty(newAt) {
+			return nil
+		}
+		if err := c.insertLines(ctx, newAt, workers); err != nil {
+			return err
+		}
+	}
+}
+
+func slicesContains(s []float64, v float64) bool {
+	for _, x := range s {
+		if x == v {
+			return true
+		}
+	}
+	return false
+}
+
+func anyNonEmpty(s [][]float64) bool {
+	for _, x := range s {
+		if len(x) > 0 {
+			return true
+		}
+	}
+	return false
+}
+
+// insertLines adds node positions (grid units) to the axes and computes
+// the exact predictions of every new node; existing nodes keep theirs.
+func (c *PredictionGrid) insertLines(ctx context.Context, newAt [][]float64, workers int) error {
+	dims := len(c.axes)
+	size := c.lay.size()
+	oldAxes, oldStrides, oldValues := c.axes, c.strides, c.values
+	// For each axis, the old index of every new position (−1 when new).
+	from := make([][]int, dims)
+	axes := make([][]float64, dims)
+	for i := range axes {
+		ax := append(append([]float64(nil), oldAxes[i]...), newAt[i]...)
+		sort.Float64s(ax)
+		axes[i] = ax
+		from[i] = make([]int, len(ax))
+		for k, g := range ax {
+			from[i][k] = -1
+			if o := sort.SearchFloat64s(oldAxes[i], g); o < len(oldAxes[i]) && oldAxes[i][o] == g {
+				from[i][k] = o
+			}
+		}
+	}
+	c.axes = axes
+	total := c.setStrides()
+	c.values = make([]float64, total*size)
+	var fresh []int
+	for n := 0; n < total; n++ {
+		old := 0
+		for i := 0; i < dims; i++ {
+			o := from[i][c.axisIndex(n, i)]
+			if o < 0 {
+				old = -1
+				break
+			}
+			old += o * oldStrides[i]
+		}
+		if old < 0 {
+			fresh = append(fresh, n)
+			continue
+		}
+		copy(c.values[n*size:(n+1)*size], oldValues[old*size:(old+1)*size])
+	}
+	type scratch struct {
+		ws *models.Workspace
+		p  *models.Prediction
+		x  []float64
+	}
+	scr := make([]*scratch, max(workers, 1))
+	return parallel.For(ctx, len(fresh), workers, func(w, k int) error {
+		if scr[w] == nil {
+			scr[w] = &scratch{c.listener.NewWorkspace(), c.listener.NewPrediction(), make([]float64, dims)}
+		}
+		s, n := scr[w], fresh[k]
+		c.nodeParams(n, s.x)
+		c.exactInto(s.x, c.values[n*size:(n+1)*size], s.ws, s.p)
+		return nil
+	})
+}
