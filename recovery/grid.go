@@ -289,6 +289,11 @@ func (c *PredictionGrid) jumpTowards(node, x, px []float64, typ typicalData, ws 
 		miss = typ.effect(pm, lin)
 		left := typ.effect(plo, pm)
 		right := typ.effect(pm, phi)
+		if math.Max(left, right) <= gridTolerance {
+			// A jump over tolerance would show in the half that holds
+			// it: neither half changes that much, so there is none.
+			return nil, false
+		}
 		if left >= right {
 			copy(hi, mid)
 			copy(phi, pm)

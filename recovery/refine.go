@@ -255,6 +255,9 @@ func (c *PredictionGrid) refineND(ctx context.Context, workers int) error {
 	size := c.lay.size()
 	typ := newTypicalData(c.design, c.lay)
 	budget := int(ndBudgetShare * float64(c.Nodes()))
+	if budget == 0 {
+		return nil
+	}
 	primes := [4]int{2, 3, 5, 7}
 	m := ndCheckPoints
 	params := make([][]float64, m)
@@ -280,10 +283,12 @@ func (c *PredictionGrid) refineND(ctx context.Context, workers int) error {
 	}); err != nil {
 		return err
 	}
-	ws, pr := c.listener.NewWorkspace(), c.listener.NewPrediction()
-	interp, a, b := make([]float64, size), make([]float64, size), make([]float64, size)
-	face := make([]float64, dims)
-	jump := make([]bool, m)
+	type bufs struct{ interp, a, b, face []float64 }
+	buf := make([]*bufs, max(workers, 1))
+	// classified[j] is set once point j has been tested for a jump (the
+	// test is the costly part, and a point's jump does not move);
+	// jump[j] is its answer.
+	classified, jump := make([]bool, m), make([]bool, m)
 	res := &c.refine
 	type split struct {
 		dim int
@@ -291,22 +296,33 @@ func (c *PredictionGrid) refineND(ctx context.Context, workers int) error {
 		err float64
 	}
 	for round := 0; ; round++ {
-		var splits []split
-		worst := 0.0
-		for j := range params {
+		// Every point in parallel, then the decisions in point order.
+		errs := make([]float64, m)
+		found := make([][]split, m)
+		err := parallel.For(ctx, m, workers, func(w, j int) error {
 			if jump[j] {
-				continue
+				return nil
 			}
-			c.Interpolate(params[j], interp, ws)
-			e := typ.effect(exact[j], interp)
+			if scr[w] == nil {
+				scr[w] = &scratch{c.listener.NewWorkspace(), c.listener.NewPrediction()}
+			}
+			if buf[w] == nil {
+				buf[w] = &bufs{make([]float64, size), make([]float64, size), make([]float64, size), make([]float64, dims)}
+			}
+			ws, pr, bb := scr[w].ws, scr[w].p, buf[w]
+			c.Interpolate(params[j], bb.interp, ws)
+			e := typ.effect(exact[j], bb.interp)
 			if e <= gridTolerance {
-				continue
+				return nil
 			}
-			if _, ok := c.jumpNear(params[j], exact[j], typ, ws); ok {
-				jump[j] = true
-				continue
+			if !classified[j] {
+				classified[j] = true
+				if _, ok := c.jumpNear(params[j], exact[j], typ, ws); ok {
+					jump[j] = true
+					return nil
+				}
 			}
-			worst = math.Max(worst, e)
+			errs[j] = e
 			// Each axis's share: linear along axis i alone.
 			var mine []split
 			for i := 0; i < dims; i++ {
@@ -317,15 +333,15 @@ func (c *PredictionGrid) refineND(ctx context.Context, workers int) error {
 					continue
 				}
 				t := (g - ax[k]) / (ax[k+1] - ax[k])
-				copy(face, params[j])
-				face[i] = c.value(i, ax[k])
-				c.exactInto(face, a, ws, pr)
-				face[i] = c.value(i, ax[k+1])
-				c.exactInto(face, b, ws, pr)
-				for q := range interp {
-					interp[q] = (1-t)*a[q] + t*b[q]
+				copy(bb.face, params[j])
+				bb.face[i] = c.value(i, ax[k])
+				c.exactInto(bb.face, bb.a, ws, pr)
+				bb.face[i] = c.value(i, ax[k+1])
+				c.exactInto(bb.face, bb.b, ws, pr)
+				for q := range bb.interp {
+					bb.interp[q] = (1-t)*bb.a[q] + t*bb.b[q]
 				}
-				mine = append(mine, split{i, 0.5 * (ax[k] + ax[k+1]), typ.effect(exact[j], interp)})
+				mine = append(mine, split{i, 0.5 * (ax[k] + ax[k+1]), typ.effect(exact[j], bb.interp)})
 			}
 			// The axes over tolerance, or else the worst one alone; each
 			// ranked by the point's whole error.
@@ -335,13 +351,23 @@ func (c *PredictionGrid) refineND(ctx context.Context, workers int) error {
 					worstAxis = q
 				}
 				if sp.err > gridTolerance {
-					splits = append(splits, split{sp.dim, sp.at, e})
+					found[j] = append(found[j], split{sp.dim, sp.at, e})
 					over = true
 				}
 			}
 			if !over && len(mine) > 0 {
-				splits = append(splits, split{mine[worstAxis].dim, mine[worstAxis].at, e})
+				found[j] = []split{{mine[worstAxis].dim, mine[worstAxis].at, e}}
 			}
+			return nil
+		})
+		if err != nil {
+			return err
+		}
+		var splits []split
+		worst := 0.0
+		for j := range found {
+			worst = math.Max(worst, errs[j])
+			splits = append(splits, found[j]...)
 		}
 		res.Worst = worst
 		if len(splits) == 0 || round == ndRounds {
