@@ -119,6 +119,7 @@ type methodView struct {
 	PolishCompassEvalsPerDim                   string
 	PolishQuickEvalsPerDim                     string
 	RefineCheckPoints, RefineBudgetShare       string
+	ModeRepolishWindow, ModeScreenWindow       string
 }
 
 // newMethodView formats m for the method notes: counts under eleven in
@@ -130,7 +131,7 @@ func newMethodView(m recovery.Method) methodView {
 			SERoughStep: dash, SEFineStep: dash, SEChange: dash, GridTolerance: dash, JumpWidth: dash,
 			ContentionWindow: dash, ModeTries: dash, ModeWindow: dash, ProfileThreshold: dash, TruthTolerance: dash,
 			GroupBootstrapRounds: dash, PolishMinStep: dash, DeepWindow: dash, PolishCompassEvalsPerDim: dash, PolishQuickEvalsPerDim: dash,
-			RefineCheckPoints: dash, RefineBudgetShare: dash}
+			RefineCheckPoints: dash, RefineBudgetShare: dash, ModeRepolishWindow: dash, ModeScreenWindow: dash}
 	}
 	// A report made before the group bootstrap has no rounds.
 	rounds := "—"
@@ -149,6 +150,8 @@ func newMethodView(m recovery.Method) methodView {
 		PolishQuickEvalsPerDim:   orDash(m.PolishQuickEvalsPerDim > 0, countWord(m.PolishQuickEvalsPerDim)),
 		RefineCheckPoints:        orDash(m.RefineCheckPoints > 0, strconv.Itoa(m.RefineCheckPoints)),
 		RefineBudgetShare:        orDash(m.RefineCheckPoints > 0, fmtG(100*m.RefineBudgetShare, 3)+"%"),
+		ModeRepolishWindow:       orDash(m.ModeTriesDeep > 0, fmtG(m.ModeRepolishWindow, 3)),
+		ModeScreenWindow:         orDash(m.ModeTriesDeep > 0, fmtG(m.ModeScreenWindow, 3)),
 	}
 }
 

@@ -541,6 +541,12 @@ const (
 	// −ln L (lapse and eeg_ar held) is searched too.
 	modeWindow = 2
 	modeTries  = 2
+	// modeTriesDeep other modes are scored for a deep polish; each
+	// within modeRepolishWindow (ln units, exact) of the best is refined
+	// quickly, and deeply when that brings it within modeScreenWindow.
+	modeTriesDeep      = 2
+	modeRepolishWindow = 0.1
+	modeScreenWindow   = 0.05
 	// startStride thins the nodes that starts are picked from on grids of
 	// two or more parameters.
 	startStride = 2
@@ -584,6 +590,7 @@ func (f *fitter) polish(s *sufficientStats, out *Fit, deep bool) {
 	sp := newSpace(g, s)
 	theta := thetaOf(sp, out)
 	best := polishPoint{theta: theta, nll: -out.LogL}
+	var others []polishPoint // the other modes scored, for a deep polish
 	if sp.dimsHyp > 0 && g.points >= 2 {
 		_, lapse, ar := sp.split(theta)
 		// The estimate's exact −ln L is the yardstick: a node's stored
@@ -628,16 +635,45 @@ func (f *fitter) polish(s *sufficientStats, out *Fit, deep bool) {
 			}
 		}
 		sort.SliceStable(modes, func(a, b int) bool { return modes[a].v < modes[b].v })
-		for _, m := range modes[:min(len(modes), modeTries)] {
+		tries := modeTries
+		if deep {
+			tries = modeTriesDeep
+		}
+		for _, m := range modes[:min(len(modes), tries)] {
 			// A node's stored prediction is exact: no new prediction.
 			th := append([]float64(nil), theta...)
 			g.nodeParams(m.node, th[:sp.dimsHyp])
 			copy(f.pred, g.node(m.node))
-			best.consider(f, f.nuisanceSearch(s, sp, th), th)
+			nll := f.nuisanceSearch(s, sp, th)
+			others = append(others, polishPoint{theta: th, nll: nll})
+			best.consider(f, nll, th)
 		}
 	}
 	if sp.dimsHyp > 0 {
+		start := best.theta
 		best = f.exactCoordinatePolish(s, sp, best, deep)
+		if deep {
+			// A mode's node can score a little worse than the estimate
+			// and still hold the better optimum (modes of a jumping
+			// likelihood lie close in ln L): each one within
+			// modeRepolishWindow of the best is refined as well.
+			others = append(others, polishPoint{theta: theta, nll: -out.LogL})
+			for _, o := range others {
+				if &o.theta[0] == &start[0] || o.nll > best.nll+modeRepolishWindow {
+					continue
+				}
+				// A quick polish screens the mode; only one that comes
+				// within modeScreenWindow of the best is refined deeply.
+				p := f.exactCoordinatePolish(s, sp, polishPoint{theta: append([]float64(nil), o.theta...), nll: o.nll}, false)
+				if p.nll > best.nll+modeScreenWindow {
+					continue
+				}
+				p = f.exactCoordinatePolish(s, sp, p, true)
+				if p.pred != nil && p.nll < best.nll {
+					best = p
+				}
+			}
+		}
 	} else {
 		th := append([]float64(nil), theta...)
 		g.exactInto(nil, f.pred, f.ws, f.pr)

@@ -91,9 +91,15 @@ type Method struct {
 	// PolishQuickEvalsPerDim. The search on the grid does not count an
 	// improvement below GridSearchAbsTol; runs ending within SameRunWidth
 	// of the range of one already re-scored are one optimum.
-	ContentionWindow         float64 `json:"contention_window"`
-	ModeWindow               float64 `json:"mode_window"`
-	ModeTries                int     `json:"mode_tries"`
+	ContentionWindow float64 `json:"contention_window"`
+	ModeWindow       float64 `json:"mode_window"`
+	ModeTries        int     `json:"mode_tries"`
+	// A deep polish scores ModeTriesDeep modes and refines each within
+	// ModeRepolishWindow of the best quickly, and deeply when that brings
+	// it within ModeScreenWindow.
+	ModeTriesDeep            int     `json:"mode_tries_deep"`
+	ModeRepolishWindow       float64 `json:"mode_repolish_window"`
+	ModeScreenWindow         float64 `json:"mode_screen_window"`
 	PolishFirstStep          float64 `json:"polish_first_step"`
 	PolishMinStep            float64 `json:"polish_min_step"`
 	PolishLineEvals          int     `json:"polish_line_evals"`
@@ -130,6 +136,7 @@ func CurrentMethod() Method {
 		GridTolerance: gridTolerance, JumpWidth: jumpWidth, RefineBudget: refineBudget,
 		RefineCheckPoints: ndCheckPoints, RefineRounds: ndRounds, RefineBudgetShare: ndBudgetShare, RefineMinWidth: ndMinWidth,
 		ContentionWindow: contentionWindow, ModeWindow: modeWindow, ModeTries: modeTries,
+		ModeTriesDeep: modeTriesDeep, ModeRepolishWindow: modeRepolishWindow, ModeScreenWindow: modeScreenWindow,
 		PolishFirstStep: polishFirstStep, PolishMinStep: polishMinStep, PolishLineEvals: polishLineEvals, PolishCompassEvalsPerDim: polishCompassEvalsPerDim, PolishFlat: polishFlat, PolishFlatWidth: polishFlatWidth,
 		PolishQuickEvalsPerDim: polishQuickEvalsPerDim, PolishShrink: polishShrink, DeepWindow: deepWindow, GridSearchAbsTol: gridSearchAbsolute, SameRunWidth: sameRunWidth,
 		ProfileThreshold: profileThreshold, TruthTolerance: truthTolerance,

@@ -667,8 +667,13 @@ func rankingVerdict(m *RankingMethod, rows []DesignRank, rk ranked, groups []*Gr
 				best = r
 			}
 		}
+		highest := withInterval(best.RecoveryRate, best.RecoveryRateInterval, figRate)
+		if f2(best.RecoveryRate) == f2(NullFloat(m.Target)) {
+			// Rounded to two decimals it would read as the target itself.
+			highest = strconv.FormatFloat(float64(best.RecoveryRate), 'f', 3, 64) + strings.TrimPrefix(highest, f2(best.RecoveryRate))
+		}
 		fmt.Fprintf(&sb, " No design reaches the target BIC recovery rate of %s (the highest is %s's %s), so they are ranked by normalised MI.",
-			f2(NullFloat(m.Target)), best.Design, withInterval(best.RecoveryRate, best.RecoveryRateInterval, figRate))
+			f2(NullFloat(m.Target)), best.Design, highest)
 	}
 	rules := rankRules(obj, a, b)
 	key, _ := rankKey(rules, a, b)

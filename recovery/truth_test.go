@@ -42,7 +42,12 @@ func TestNoSearchBelowTruth(t *testing.T) {
 	if testing.Short() {
 		t.Skip("runs every testdata study")
 	}
-	for _, name := range []string{"radio-watch.json", "radio-watch-trials.json", "minimal.json"} {
+	paths, err := filepath.Glob("../testdata/studies/*.json")
+	if err != nil || len(paths) < 4 {
+		t.Fatalf("testdata studies: %v, %d found", err, len(paths))
+	}
+	for _, path := range paths {
+		name := filepath.Base(path)
 		t.Run(name, func(t *testing.T) {
 			s := loadTestdataStudy(t, name, 10)
 			r, err := Run(context.Background(), s, Options{})
