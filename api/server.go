@@ -137,7 +137,7 @@ func New(cfg Config) (*Server, error) {
 	if cfg.Keys != nil {
 		cfg.Keys.setLogger(cfg.Logger)
 	}
-	doc, err := openAPIDocument()
+	doc, err := OpenAPIDocument()
 	if err != nil {
 		return nil, err
 	}
