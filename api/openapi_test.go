@@ -248,7 +248,7 @@ func TestOpenAPIResponses(t *testing.T) {
 	ex("GET", "/v1/studies", "", nil)
 
 	missing := "/v1/studies/0123456789abcdef0123456789ab"
-	for _, suffix := range []string{"", "/report", "/report.html", "/fits.csv"} {
+	for _, suffix := range []string{"", "/report", "/report.html", "/fits.csv", "/fits.json", "/params.csv", "/params.json", "/measurement.csv", "/measurement.json"} {
 		ex("GET", sub.StatusURL+suffix, "", nil)
 		ex("GET", missing+suffix, key, nil)
 		if suffix != "" {
@@ -262,7 +262,9 @@ func TestOpenAPIResponses(t *testing.T) {
 	ex("GET", "/v1/studies/"+done+"/report", key, nil)
 	ex("GET", "/v1/studies/"+done+"/report", key, nil, "Accept", "text/html")
 	ex("GET", "/v1/studies/"+done+"/report.html", key, nil)
-	ex("GET", "/v1/studies/"+done+"/fits.csv", key, nil)
+	for _, name := range []string{"fits.csv", "fits.json", "params.csv", "params.json", "measurement.csv", "measurement.json"} {
+		ex("GET", "/v1/studies/"+done+"/"+name, key, nil)
+	}
 	ex("GET", "/v1/studies/"+done, key, nil)
 
 	ex("DELETE", sub.StatusURL, "", nil)
@@ -277,7 +279,7 @@ func TestOpenAPIResponses(t *testing.T) {
 	ex("POST", "/v1/studies", limited, []byte(tinyStudy))
 	ex("GET", "/v1/studies", limited, nil)
 	ex("DELETE", sub.StatusURL, limited, nil)
-	for _, suffix := range []string{"", "/report", "/report.html", "/fits.csv"} {
+	for _, suffix := range []string{"", "/report", "/report.html", "/fits.csv", "/fits.json", "/params.csv", "/params.json", "/measurement.csv", "/measurement.json"} {
 		ex("GET", sub.StatusURL+suffix, limited, nil)
 	}
 
