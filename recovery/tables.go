@@ -61,9 +61,10 @@ type Table struct {
 // SafeText makes a text cell safe to open in a spreadsheet: a value that
 // starts with =, +, -, @, a tab or a carriage return gets a leading single
 // quote so that it is read as text, not as a formula (OWASP, "CSV
-// Injection"). Number cells never go through it.
+// Injection"). The text "NA" gets one too, so that a name is never read
+// as a missing value. Number cells never go through it.
 func SafeText(s string) string {
-	if s != "" && strings.ContainsRune("=+-@\t\r", rune(s[0])) {
+	if s == NA || s != "" && strings.ContainsRune("=+-@\t\r", rune(s[0])) {
 		return "'" + s
 	}
 	return s
@@ -244,7 +245,7 @@ func (r *Report) keyColumns() []Column {
 		hyps = append(hyps, Level{SafeText(h), fmt.Sprintf("hypothesis %q, precision family %s", h, fam)})
 	}
 	return []Column{
-		{Name: "design", Description: "The design (a vary block's variants are designs of their own). Text starting with =, +, -, @, tab or CR is written with a leading single quote, here and in every text cell.", Levels: designs},
+		{Name: "design", Description: "The design (a vary block's variants are designs of their own). Text starting with =, +, -, @, tab or CR, and the text NA, is written with a leading single quote, here and in every text cell.", Levels: designs},
 		{Name: "generator", Description: "The hypothesis that generated the dataset.", Levels: hyps},
 		{Name: "participant", Description: "The synthetic participant, numbered from 0 within its design and generator. Participants are drawn from streams that do not depend on the design, so a number is the same synthetic person in every design (docs/model.md §4)."},
 		{Name: "candidate", Description: "The hypothesis fitted to the dataset.", Levels: hyps},

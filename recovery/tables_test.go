@@ -290,7 +290,7 @@ func TestTablesFormulaNames(t *testing.T) {
 func TestSafeText(t *testing.T) {
 	for in, want := range map[string]string{
 		"=cmd": "'=cmd", "+1": "'+1", "-x": "'-x", "@SUM(A1)": "'@SUM(A1)", "\tx": "'\tx", "\rx": "'\rx",
-		"ramp": "ramp", "a=b": "a=b", "": "", "'=": "'=",
+		"ramp": "ramp", "a=b": "a=b", "": "", "'=": "'=", "NA": "'NA", "NAB": "NAB",
 	} {
 		if got := SafeText(in); got != want {
 			t.Errorf("SafeText(%q) = %q, want %q", in, got, want)
