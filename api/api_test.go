@@ -19,6 +19,7 @@ import (
 
 	"discrimen/models"
 	"discrimen/worker"
+	"discrimen/worker/workertest"
 )
 
 // TestSubmitPollReport: submit → poll → report through HTTP, the report
@@ -42,6 +43,13 @@ func TestSubmitPollReport(t *testing.T) {
 		t.Fatalf("final status %+v", st)
 	}
 	wantJSON, wantCSV := expected(t, tinyStudy)
+	tables := map[string][]byte{}
+	for _, f := range workertest.ExpectedTables(t, tinyStudy) {
+		tables[f.Name] = f.Data
+	}
+	if !bytes.Equal(tables["fits.csv"], wantCSV) {
+		t.Fatal("fits.csv of ExpectedTables differs from Expected's")
+	}
 	for _, tc := range []struct {
 		name, path, accept, ctype string
 	}{
@@ -50,6 +58,11 @@ func TestSubmitPollReport(t *testing.T) {
 		{"HTML by Accept", "/report", "text/html,application/xhtml+xml;q=0.9,*/*;q=0.8", "text/html; charset=utf-8"},
 		{"HTML path", "/report.html", "", "text/html; charset=utf-8"},
 		{"fits", "/fits.csv", "", "text/csv; charset=utf-8"},
+		{"fits sidecar", "/fits.json", "", "application/json"},
+		{"params", "/params.csv", "", "text/csv; charset=utf-8"},
+		{"params sidecar", "/params.json", "", "application/json"},
+		{"measurement", "/measurement.csv", "", "text/csv; charset=utf-8"},
+		{"measurement sidecar", "/measurement.json", "", "application/json"},
 	} {
 		t.Run(tc.name, func(t *testing.T) {
 			p := r.do("GET", sub.StatusURL+tc.path, key, nil, "Accept", tc.accept)
@@ -57,6 +70,13 @@ func TestSubmitPollReport(t *testing.T) {
 				t.Fatalf("%d %q, want 200 %q", p.code, p.header.Get("Content-Type"), tc.ctype)
 			}
 			switch {
+			case tables[strings.TrimPrefix(tc.path, "/")] != nil:
+				if want := tables[strings.TrimPrefix(tc.path, "/")]; !bytes.Equal(want, p.body) {
+					t.Fatalf("%s differs from discrimen run's (%d vs %d bytes)", tc.path, len(want), len(p.body))
+				}
+				if tc.ctype != "application/json" && p.header.Get("Content-Disposition") != `attachment; filename="`+sub.ID+"-"+strings.TrimPrefix(tc.path, "/")+`"` {
+					t.Fatalf("%s: Content-Disposition %q", tc.path, p.header.Get("Content-Disposition"))
+				}
 			case tc.ctype == "application/json":
 				if d := cmp.Diff(string(wantJSON), string(withoutTiming(t, p.body))); d != "" {
 					t.Fatalf("report.json differs from discrimen run's (-want +got):\n%.2000s", d)
@@ -81,7 +101,7 @@ func TestSubmitPollReport(t *testing.T) {
 func TestReportBeforeDone(t *testing.T) {
 	r := newRig(t, nil)
 	id := r.submit("harbour", slowStudy)
-	for _, path := range []string{"/report", "/report.html", "/fits.csv"} {
+	for _, path := range []string{"/report", "/report.html", "/fits.csv", "/params.csv", "/measurement.csv", "/fits.json", "/params.json", "/measurement.json"} {
 		p := r.do("GET", "/v1/studies/"+id+path, r.keys["harbour"], nil)
 		if p.code != http.StatusConflict {
 			t.Fatalf("%s before done: %d %s, want 409", path, p.code, p.body)

@@ -228,8 +228,10 @@ func (s *Server) reportHTML(w http.ResponseWriter, r *http.Request) {
 	s.serveReport(w, r, worker.ReportHTML)
 }
 
-func (s *Server) fitsCSV(w http.ResponseWriter, r *http.Request) {
-	s.serveReport(w, r, worker.FitsCSV)
+// file serves one of the tables (fits.csv, params.csv, measurement.csv)
+// or its sidecar (fits.json, ...).
+func (s *Server) file(k worker.ReportKind) http.HandlerFunc {
+	return func(w http.ResponseWriter, r *http.Request) { s.serveReport(w, r, k) }
 }
 
 func (s *Server) serveReport(w http.ResponseWriter, r *http.Request, k worker.ReportKind) {
@@ -248,15 +250,15 @@ func (s *Server) serveReport(w http.ResponseWriter, r *http.Request, k worker.Re
 		return
 	}
 	switch k {
-	case worker.ReportJSON:
+	case worker.ReportJSON, worker.FitsSidecar, worker.ParamsSidecar, worker.MeasurementSidecar:
 		w.Header().Set("Content-Type", mediaJSON)
 	case worker.ReportHTML:
 		w.Header().Set("Content-Type", mediaHTML+"; charset=utf-8")
 		// The report is self-contained: inline styles and SVG, no scripts.
 		w.Header().Set("Content-Security-Policy", "default-src 'none'; style-src 'unsafe-inline'; img-src data:")
-	case worker.FitsCSV:
+	case worker.FitsCSV, worker.ParamsCSV, worker.MeasurementCSV:
 		w.Header().Set("Content-Type", mediaCSV+"; charset=utf-8")
-		w.Header().Set("Content-Disposition", `attachment; filename="`+id+`-fits.csv"`)
+		w.Header().Set("Content-Disposition", `attachment; filename="`+id+`-`+k.FileName()+`"`)
 	}
 	w.Header().Set("Content-Length", strconv.Itoa(len(b)))
 	_, _ = w.Write(b) // the status is sent: a failed write means the client left, and there is no one to tell

@@ -12,6 +12,8 @@ import (
 	"time"
 
 	"github.com/santhosh-tekuri/jsonschema/v6"
+
+	"discrimen/models"
 )
 
 // openAPI is the served document, parsed, with the means to validate a
@@ -175,10 +177,36 @@ func TestOpenAPIRoutes(t *testing.T) {
 			}
 		}
 	}
-	// The served Study schema is the validator's.
-	study := obj(obj(obj(o.doc["components"])["schemas"])["Study"])
-	if study["$id"] != "urn:discrimen:study.schema.json" {
-		t.Fatalf("components.schemas.Study is not the study file schema: %v", study["$id"])
+	// The served Study schema is the validator's: put its Study_NAME
+	// components back under $defs, point the references back at them, and
+	// it equals models.StudySchema() without $id and $schema.
+	schemas := obj(obj(o.doc["components"])["schemas"])
+	served := map[string]any{}
+	for k, v := range obj(schemas["Study"]) {
+		served[k] = v
+	}
+	defs := map[string]any{}
+	for name, v := range schemas {
+		if def, ok := strings.CutPrefix(name, studyDefPrefix); ok {
+			defs[def] = v
+		}
+	}
+	served["$defs"] = defs
+	back, _ := json.Marshal(served)
+	back = bytes.ReplaceAll(back, []byte(`"#/components/schemas/`+studyDefPrefix), []byte(`"#/$defs/`))
+	var got, want map[string]any
+	if err := json.Unmarshal(back, &got); err != nil {
+		t.Fatal(err)
+	}
+	if err := json.Unmarshal(models.StudySchema(), &want); err != nil {
+		t.Fatal(err)
+	}
+	delete(want, "$id")
+	delete(want, "$schema")
+	g, _ := json.Marshal(got)
+	w, _ := json.Marshal(want)
+	if !bytes.Equal(g, w) {
+		t.Fatalf("components.schemas.Study (with its Study_* definitions) is not the study file schema")
 	}
 }
 
@@ -220,7 +248,7 @@ func TestOpenAPIResponses(t *testing.T) {
 	ex("GET", "/v1/studies", "", nil)
 
 	missing := "/v1/studies/0123456789abcdef0123456789ab"
-	for _, suffix := range []string{"", "/report", "/report.html", "/fits.csv"} {
+	for _, suffix := range []string{"", "/report", "/report.html", "/fits.csv", "/fits.json", "/params.csv", "/params.json", "/measurement.csv", "/measurement.json"} {
 		ex("GET", sub.StatusURL+suffix, "", nil)
 		ex("GET", missing+suffix, key, nil)
 		if suffix != "" {
@@ -234,7 +262,9 @@ func TestOpenAPIResponses(t *testing.T) {
 	ex("GET", "/v1/studies/"+done+"/report", key, nil)
 	ex("GET", "/v1/studies/"+done+"/report", key, nil, "Accept", "text/html")
 	ex("GET", "/v1/studies/"+done+"/report.html", key, nil)
-	ex("GET", "/v1/studies/"+done+"/fits.csv", key, nil)
+	for _, name := range []string{"fits.csv", "fits.json", "params.csv", "params.json", "measurement.csv", "measurement.json"} {
+		ex("GET", "/v1/studies/"+done+"/"+name, key, nil)
+	}
 	ex("GET", "/v1/studies/"+done, key, nil)
 
 	ex("DELETE", sub.StatusURL, "", nil)
@@ -249,7 +279,7 @@ func TestOpenAPIResponses(t *testing.T) {
 	ex("POST", "/v1/studies", limited, []byte(tinyStudy))
 	ex("GET", "/v1/studies", limited, nil)
 	ex("DELETE", sub.StatusURL, limited, nil)
-	for _, suffix := range []string{"", "/report", "/report.html", "/fits.csv"} {
+	for _, suffix := range []string{"", "/report", "/report.html", "/fits.csv", "/fits.json", "/params.csv", "/params.json", "/measurement.csv", "/measurement.json"} {
 		ex("GET", sub.StatusURL+suffix, limited, nil)
 	}
 
@@ -282,5 +312,66 @@ func TestOpenAPIResponses(t *testing.T) {
 	sort.Strings(missed)
 	if len(missed) > 0 {
 		t.Fatalf("documented responses no test produced:\n%s", strings.Join(missed, "\n"))
+	}
+}
+
+// TestOpenAPIRefsResolve: every $ref of the served document is a local
+// JSON pointer that resolves inside it, the study schema carries no $id or
+// $schema of its own (a nested $id moves the base of its references, which
+// OpenAPI tools need not follow), and its $defs are components.
+func TestOpenAPIRefsResolve(t *testing.T) {
+	body, err := OpenAPIDocument()
+	if err != nil {
+		t.Fatal(err)
+	}
+	var doc map[string]any
+	if err := json.Unmarshal(body, &doc); err != nil {
+		t.Fatal(err)
+	}
+	study := obj(obj(obj(doc["components"])["schemas"])["Study"])
+	for _, kw := range []string{"$id", "$schema", "$defs"} {
+		if _, ok := study[kw]; ok {
+			t.Errorf("components.schemas.Study keeps %s", kw)
+		}
+	}
+	var refs []string
+	var walk func(v any)
+	walk = func(v any) {
+		switch x := v.(type) {
+		case map[string]any:
+			if ref, ok := x["$ref"].(string); ok {
+				refs = append(refs, ref)
+			}
+			for _, e := range x {
+				walk(e)
+			}
+		case []any:
+			for _, e := range x {
+				walk(e)
+			}
+		}
+	}
+	walk(doc)
+	studyRefs := 0
+	for _, ref := range refs {
+		if !strings.HasPrefix(ref, "#/") {
+			t.Errorf("$ref %q is not a local pointer", ref)
+			continue
+		}
+		cur := any(doc)
+		for _, tok := range strings.Split(strings.TrimPrefix(ref, "#/"), "/") {
+			cur = obj(cur)[strings.ReplaceAll(strings.ReplaceAll(tok, "~1", "/"), "~0", "~")]
+		}
+		if cur == nil {
+			t.Errorf("$ref %q does not resolve", ref)
+		}
+		if strings.HasPrefix(ref, "#/components/schemas/"+studyDefPrefix) {
+			studyRefs++
+		}
+	}
+	// The study schema has 40 references to its $defs today; fewer than
+	// 20 would mean they were dropped rather than rewritten.
+	if studyRefs < 20 {
+		t.Errorf("%d references into the study schema's definitions, want at least 20", studyRefs)
 	}
 }

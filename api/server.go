@@ -93,7 +93,12 @@ func (s *Server) routes() []route {
 		{"DELETE", "/v1/studies/{id}", true, s.cancel},
 		{"GET", "/v1/studies/{id}/report", true, s.report},
 		{"GET", "/v1/studies/{id}/report.html", true, s.reportHTML},
-		{"GET", "/v1/studies/{id}/fits.csv", true, s.fitsCSV},
+		{"GET", "/v1/studies/{id}/fits.csv", true, s.file(worker.FitsCSV)},
+		{"GET", "/v1/studies/{id}/fits.json", true, s.file(worker.FitsSidecar)},
+		{"GET", "/v1/studies/{id}/params.csv", true, s.file(worker.ParamsCSV)},
+		{"GET", "/v1/studies/{id}/params.json", true, s.file(worker.ParamsSidecar)},
+		{"GET", "/v1/studies/{id}/measurement.csv", true, s.file(worker.MeasurementCSV)},
+		{"GET", "/v1/studies/{id}/measurement.json", true, s.file(worker.MeasurementSidecar)},
 		{"GET", "/v1/openapi.json", false, s.serveOpenAPI},
 		{"GET", "/healthz", false, s.healthz},
 		{"GET", "/readyz", false, s.readyz},
@@ -137,7 +142,7 @@ func New(cfg Config) (*Server, error) {
 	if cfg.Keys != nil {
 		cfg.Keys.setLogger(cfg.Logger)
 	}
-	doc, err := openAPIDocument()
+	doc, err := OpenAPIDocument()
 	if err != nil {
 		return nil, err
 	}

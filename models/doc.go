@@ -1,7 +1,7 @@
 // Package models turns a design and a precision hypothesis into exact
 // predictions: the study file (designs, hypotheses, defaults), the six
 // precision families γ(t), the active-inference listening agent and its
-// readouts (model.md §1–§3 in ../shared/design).
+// readouts (docs/model.md §1–§3).
 //
 // Conventions. Designs are written in milliseconds; precision families take
 // t in seconds since cue onset. RTs are in ms from target onset. Free

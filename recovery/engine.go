@@ -232,7 +232,9 @@ type Options struct {
 	Workers int
 	// ShardSize is the number of participants per shard (0 = 10).
 	ShardSize int
-	// Progress, if not nil, receives (fits done, fits total) as the run goes.
+	// Progress, if not nil, receives (fits done, fits total) as the run
+	// goes: (0, total) once the grids are built and fitting starts, then
+	// after each participant's fits, from several goroutines at once.
 	Progress func(done, total int)
 }
 
@@ -255,6 +257,9 @@ func Run(ctx context.Context, s *models.Study, opt Options) (*Report, error) {
 	specs := c.Plan(size)
 	total := c.TotalFits()
 	var done atomic.Int64
+	if opt.Progress != nil {
+		opt.Progress(0, total) // fitting starts: the clock of any rate
+	}
 	results := make([]*ShardResult, len(specs))
 	err = parallel.For(ctx, len(specs), workers, func(_, i int) error {
 		var err error

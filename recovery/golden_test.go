@@ -8,7 +8,7 @@ import (
 )
 
 // TestGoldenReport guards every number of a small study's report.json
-// and fits.csv (timing removed) against unnoticed change. After a
+// and its tables with their sidecars (timing removed) against unnoticed change. After a
 // deliberate change to the science, rerun with -update and review the diff.
 func TestGoldenReport(t *testing.T) {
 	r, err := Run(context.Background(), mustStudy(t, smallStudy), Options{Workers: 2})
@@ -20,9 +20,11 @@ func TestGoldenReport(t *testing.T) {
 	}
 	got := reportBytes(t, r)
 	golden.Check(t, "small-report.json", got)
-	csv, err := r.FitsCSV()
+	files, err := r.TableFiles()
 	if err != nil {
 		t.Fatal(err)
 	}
-	golden.Check(t, "small-fits.csv", csv)
+	for _, f := range files {
+		golden.Check(t, "small-"+f.Name, f.Data)
+	}
 }

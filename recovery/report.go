@@ -2,7 +2,6 @@ package recovery
 
 import (
 	"bytes"
-	"encoding/csv"
 	"encoding/json"
 	"fmt"
 	"math"
@@ -700,68 +699,4 @@ func (r *Report) JSON() ([]byte, error) {
 		return nil, err
 	}
 	return buf.Bytes(), nil
-}
-
-// FitsCSV writes one tidy row per dataset × candidate.
-func (r *Report) FitsCSV() ([]byte, error) {
-	var buf bytes.Buffer
-	w := csv.NewWriter(&buf)
-	w.Write([]string{"design", "generator", "participant", "candidate", "parameter_names", "estimates", "standard_errors", "se_reliable",
-		"true_values", "loglik", "k", "n", "aic", "aicc", "bic", "converged", "status", "evaluations", "failed",
-		"rt_base", "rt_scale", "rt_sd", "lapse", "eeg_offset", "eeg_gain", "eeg_sd", "eeg_ar",
-		"interval_low", "interval_high", "interval_open_low", "interval_open_high", "interval_pieces", "truth_loglik", "polished"})
-	g := func(v float64) string {
-		if math.IsNaN(v) || math.IsInf(v, 0) {
-			return "NA"
-		}
-		return strconv.FormatFloat(v, 'g', 10, 64)
-	}
-	join := func(x []float64) string {
-		s := ""
-		for i, v := range x {
-			if i > 0 {
-				s += ";"
-			}
-			s += g(v)
-		}
-		return s
-	}
-	names := func(x []string) string {
-		s := ""
-		for i, v := range x {
-			if i > 0 {
-				s += ";"
-			}
-			s += v
-		}
-		return s
-	}
-	for _, design := range r.Fits {
-		for _, grp := range design {
-			for _, f := range grp.Fits {
-				truth := ""
-				if f.Candidate == f.Generator {
-					truth = join(grp.Truth.Free)
-				}
-				m := f.Measurement
-				var lo, hi, ol, oh, pcs []string
-				for _, iv := range f.Intervals {
-					lo, hi = append(lo, g(float64(iv.Low))), append(hi, g(float64(iv.High)))
-					ol, oh = append(ol, strconv.FormatBool(iv.OpenLow)), append(oh, strconv.FormatBool(iv.OpenHigh))
-					var ps []string
-					for _, p := range iv.Pieces {
-						ps = append(ps, g(float64(p[0]))+".."+g(float64(p[1])))
-					}
-					pcs = append(pcs, strings.Join(ps, "|"))
-				}
-				w.Write([]string{f.Design, f.Generator, strconv.Itoa(f.Participant), f.Candidate, names(f.Names), join(f.Params), join(f.SE),
-					strconv.FormatBool(f.SEReliable), truth, g(f.LogL), strconv.Itoa(f.K), strconv.Itoa(f.N), g(f.AIC), g(f.AICc), g(f.BIC),
-					strconv.FormatBool(f.Converged), f.Status, strconv.Itoa(f.Evaluations), strconv.FormatBool(f.Failed),
-					g(m.RTBase), g(m.RTScale), g(m.RTSD), g(m.Lapse), g(m.EEGOffset), g(m.EEGGain), g(m.EEGSD), g(m.EEGAR),
-					strings.Join(lo, ";"), strings.Join(hi, ";"), strings.Join(ol, ";"), strings.Join(oh, ";"), strings.Join(pcs, ";"), g(f.TruthLogL), strconv.FormatBool(f.Polished)})
-			}
-		}
-	}
-	w.Flush()
-	return buf.Bytes(), w.Error()
 }

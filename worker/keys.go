@@ -23,7 +23,8 @@ package worker
 //	discrimen:{ID}:workers            set         identities of the worker processes that stored shards
 //	discrimen:{ID}:report.json        string      report.json bytes
 //	discrimen:{ID}:report.html        string      report.html bytes
-//	discrimen:{ID}:fits.csv           string      fits.csv bytes
+//	discrimen:{ID}:fits.csv           string      fits.csv bytes (likewise fits.json, params.csv,
+//	                                              params.json, measurement.csv, measurement.json)
 //	discrimen:{owner:NAME}:studies    sorted set  the study ids of one API key, all score 0 (ids sort by time)
 //	discrimen:{index}:studies         sorted set  every study id, all score 0, for metrics
 //
@@ -75,10 +76,14 @@ func reportKey(id string, k ReportKind) string {
 
 // studyKeys lists every key of a study, for expiry and deletion.
 func studyKeys(id string) []string {
-	return []string{
+	keys := []string{
 		studyKey(id), inputKey(id), resultsKey(id), doneKey(id), partialKey(id), runsKey(id),
-		workersKey(id), reportKey(id, ReportJSON), reportKey(id, ReportHTML), reportKey(id, FitsCSV),
+		workersKey(id),
 	}
+	for _, k := range ReportKinds {
+		keys = append(keys, reportKey(id, k))
+	}
+	return keys
 }
 
 func ownerKey(owner string) string { return keyPrefix + "{owner:" + owner + "}:studies" }

@@ -447,8 +447,16 @@ func (s *Server) handleAssemble(ctx context.Context, t *asynq.Task) error {
 	if files[ReportHTML], err = pages.Report(rep); err != nil {
 		return permanent("rendering report.html: %v", err)
 	}
-	if files[FitsCSV], err = rep.FitsCSV(); err != nil {
-		return permanent("rendering fits.csv: %v", err)
+	tables, err := rep.TableFiles()
+	if err != nil {
+		return permanent("rendering the tables: %v", err)
+	}
+	for _, f := range tables {
+		k, ok := reportKindOf(f.Name)
+		if !ok {
+			return permanent("rendering the tables: no report kind for %s", f.Name)
+		}
+		files[k] = f.Data
 	}
 	if err := s.st.storeReports(ctx, id, files); err != nil {
 		return err

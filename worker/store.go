@@ -44,18 +44,41 @@ const (
 	ReportJSON ReportKind = iota
 	ReportHTML
 	FitsCSV
+	FitsSidecar // fits.json, describing fits.csv's columns
+	ParamsCSV
+	ParamsSidecar
+	MeasurementCSV
+	MeasurementSidecar
 )
 
+// ReportKinds lists every report file of a finished study.
+var ReportKinds = []ReportKind{ReportJSON, ReportHTML, FitsCSV, FitsSidecar, ParamsCSV, ParamsSidecar, MeasurementCSV, MeasurementSidecar}
+
+var reportFileNames = map[ReportKind]string{
+	ReportJSON: "report.json", ReportHTML: "report.html",
+	FitsCSV: "fits.csv", FitsSidecar: "fits.json",
+	ParamsCSV: "params.csv", ParamsSidecar: "params.json",
+	MeasurementCSV: "measurement.csv", MeasurementSidecar: "measurement.json",
+}
+
+// FileName is the report file's name: report.json, fits.csv, ...
+func (k ReportKind) FileName() string { return k.fileName() }
+
 func (k ReportKind) fileName() string {
-	switch k {
-	case ReportJSON:
-		return "report.json"
-	case ReportHTML:
-		return "report.html"
-	case FitsCSV:
-		return "fits.csv"
+	if n, ok := reportFileNames[k]; ok {
+		return n
 	}
 	panic(fmt.Sprintf("worker: unknown report kind %d", int(k)))
+}
+
+// reportKindOf returns the kind of a report file name.
+func reportKindOf(name string) (ReportKind, bool) {
+	for k, n := range reportFileNames {
+		if n == name {
+			return k, true
+		}
+	}
+	return 0, false
 }
 
 // Sentinel errors callers act on; the api maps them to HTTP codes.

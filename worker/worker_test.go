@@ -125,6 +125,19 @@ func (r *rig) checkReport(t testing.TB, owner, id, js string) {
 	if !bytes.Equal(wantCSV, gotCSV) {
 		t.Fatalf("fits.csv differs from the in-process run (%d vs %d bytes)", len(wantCSV), len(gotCSV))
 	}
+	for _, f := range workertest.ExpectedTables(t, js) {
+		k, ok := reportKindOf(f.Name)
+		if !ok {
+			t.Fatalf("no report kind for %s", f.Name)
+		}
+		got, err := r.client.Report(context.Background(), owner, id, k)
+		if err != nil {
+			t.Fatalf("%s: %v", f.Name, err)
+		}
+		if !bytes.Equal(f.Data, got) {
+			t.Fatalf("%s differs from the in-process run (%d vs %d bytes)", f.Name, len(f.Data), len(got))
+		}
+	}
 	html, err := r.client.Report(context.Background(), owner, id, ReportHTML)
 	if err != nil {
 		t.Fatal(err)
@@ -242,7 +255,10 @@ func TestKeyLayout(t *testing.T) {
 	}
 	// The shard results and partial progress are dropped once done.
 	want := []string{studyKey(st.ID), inputKey(st.ID), doneKey(st.ID), runsKey(st.ID), workersKey(st.ID),
-		reportKey(st.ID, ReportJSON), reportKey(st.ID, ReportHTML), reportKey(st.ID, FitsCSV), ownerKey("harbour"), indexKey}
+		ownerKey("harbour"), indexKey}
+	for _, k := range ReportKinds {
+		want = append(want, reportKey(st.ID, k))
+	}
 	if d := cmp.Diff(sortedCopy(want), sortedCopy(ours)); d != "" {
 		t.Fatalf("keys after a finished study (-want +got):\n%s", d)
 	}

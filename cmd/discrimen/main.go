@@ -22,7 +22,7 @@ const usage = `usage: discrimen COMMAND [flags]
 commands:
   validate STUDY.json            list every problem in a study file
   predict  [STUDY.json]          predicted RT, accuracy and neural signal per hypothesis (--html FILE for plots)
-  run      [STUDY.json] --out DIR  run a study here and write report.json, report.html, fits.csv
+  run      [STUDY.json] --out DIR  run a study here and write report.json, report.html, fits/params/measurement .csv + .json
                                  (no STUDY.json: the embedded demo study)
   serve                          HTTP API and workers in one process
   api                            HTTP API against a shared Redis

@@ -11,8 +11,6 @@ import (
 	"path/filepath"
 	"syscall"
 
-	"github.com/schollz/progressbar/v3"
-
 	"discrimen/pages"
 	"discrimen/recovery"
 )
@@ -20,14 +18,14 @@ import (
 func init() { extraCommands["run"] = cmdRun }
 
 // cmdRun runs a study in this process and writes report.json, report.html
-// and fits.csv. The progress bar (schollz/progressbar: a maintained
-// library with rate and ETA) goes to stderr.
+// and the tables with their sidecars (fits, params, measurement: .csv and
+// .json). The progress line (progress.go) goes to stderr.
 func cmdRun(args []string, stdout, stderr io.Writer) int {
 	fs := flag.NewFlagSet("run", flag.ContinueOnError)
 	fs.SetOutput(stderr)
-	out := fs.String("out", "", "output `DIR` for report.json, report.html and fits.csv (required)")
+	out := fs.String("out", "", "output `DIR` for report.json, report.html and the tables (required)")
 	workers := fs.Int("workers", 0, "goroutines to use (0 = all cores)")
-	quiet := fs.Bool("quiet", false, "no progress bar")
+	quiet := fs.Bool("quiet", false, "no progress line")
 	fs.Usage = func() {
 		fmt.Fprintln(stderr, "usage: discrimen run [STUDY.json] --out DIR   (default study: the embedded demo) [--workers N] [--quiet]")
 		fs.PrintDefaults()
@@ -46,29 +44,16 @@ func cmdRun(args []string, stdout, stderr io.Writer) int {
 	}
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
 	defer stop()
-	var bar *progressbar.ProgressBar
+	var prog *progress
 	opt := recovery.Options{Workers: *workers}
 	if !*quiet {
-		opt.Progress = func(done, total int) {
-			if bar == nil {
-				bar = progressbar.NewOptions(total,
-					progressbar.OptionSetWriter(stderr),
-					progressbar.OptionSetDescription("fitting"),
-					progressbar.OptionShowCount(),
-					progressbar.OptionShowIts(),
-					progressbar.OptionSetItsString("fits"),
-					progressbar.OptionSetPredictTime(true),
-					progressbar.OptionThrottle(100e6),
-					progressbar.OptionClearOnFinish(),
-				)
-			}
-			_ = bar.Set(done) // the bar only draws on stderr; a failed draw must not stop the run
-		}
+		prog = newProgress(stderr, isTerminal(stderr), nil)
+		opt.Progress = prog.update
 		fmt.Fprintf(stderr, "discrimen: building prediction grids for %s ...\n", study.Name)
 	}
 	rep, err := recovery.Run(ctx, study, opt)
-	if bar != nil {
-		_ = bar.Finish() // as above: drawing only
+	if prog != nil {
+		prog.finish()
 	}
 	if err != nil {
 		if errors.Is(err, recovery.ErrCanceled) {
@@ -95,8 +80,9 @@ func cmdRun(args []string, stdout, stderr io.Writer) int {
 	return 0
 }
 
-// writeReport writes the three report files, each through a temporary
-// file and a rename so an interrupted run never leaves a half file.
+// writeReport writes report.json, report.html, the three tables and their
+// sidecars, each through a temporary file and a rename so an interrupted
+// run never leaves a half file.
 func writeReport(dir string, rep *recovery.Report) error {
 	if err := os.MkdirAll(dir, 0o755); err != nil {
 		return err
@@ -109,16 +95,17 @@ func writeReport(dir string, rep *recovery.Report) error {
 	if err != nil {
 		return err
 	}
-	csv, err := rep.FitsCSV()
+	tables, err := rep.TableFiles()
 	if err != nil {
 		return err
 	}
-	for name, data := range map[string][]byte{"report.json": js, "report.html": html, "fits.csv": csv} {
-		tmp := filepath.Join(dir, "."+name+".tmp")
-		if err := os.WriteFile(tmp, data, 0o644); err != nil {
+	files := append([]recovery.File{{Name: "report.json", Data: js}, {Name: "report.html", Data: html}}, tables...)
+	for _, f := range files {
+		tmp := filepath.Join(dir, "."+f.Name+".tmp")
+		if err := os.WriteFile(tmp, f.Data, 0o644); err != nil {
 			return err
 		}
-		if err := os.Rename(tmp, filepath.Join(dir, name)); err != nil {
+		if err := os.Rename(tmp, filepath.Join(dir, f.Name)); err != nil {
 			return err
 		}
 	}

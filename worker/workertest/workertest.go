@@ -147,6 +147,26 @@ func Expected(tb testing.TB, js string) (reportJSON, fitsCSV []byte) {
 	return WithoutTiming(tb, j), c
 }
 
+// ExpectedTables runs the study in process and returns its tables and
+// sidecars (fits.csv, fits.json, params.csv, ...), as `discrimen run`
+// writes them.
+func ExpectedTables(tb testing.TB, js string) []recovery.File {
+	tb.Helper()
+	s, err := models.LoadStudy([]byte(js))
+	if err != nil {
+		tb.Fatal(err)
+	}
+	rep, err := recovery.Run(context.Background(), s, recovery.Options{Workers: 2})
+	if err != nil {
+		tb.Fatal(err)
+	}
+	files, err := rep.TableFiles()
+	if err != nil {
+		tb.Fatal(err)
+	}
+	return files
+}
+
 // WithoutTiming re-encodes report.json with the timing block removed, the
 // only part allowed to differ between runs.
 func WithoutTiming(tb testing.TB, b []byte) []byte {
