@@ -114,6 +114,10 @@ func (p *progress) line(now time.Time) string {
 	s := fmt.Sprintf("discrimen: %s of %s fits (%d%%)", thousands(p.done), thousands(p.total), pct)
 	elapsed := now.Sub(p.start)
 	if elapsed < rateAfter || float64(p.done) < rateShare*float64(p.total) || p.done == 0 {
+		if p.done > 0 && p.done >= p.total {
+			// Finished before a rate could be measured: the time says it.
+			return s + fmt.Sprintf(", done in %s", durationText(elapsed))
+		}
 		return s + ", rate not measured yet"
 	}
 	rate := float64(p.done) / elapsed.Seconds()

@@ -11,7 +11,7 @@ import (
 	"time"
 )
 
-var progressLine = regexp.MustCompile(`^discrimen: ([0-9,]+) of ([0-9,]+) fits \(([0-9]+)%\)(, rate not measured yet|, ([0-9.,]+) fits/s, (about .+ left|done in .+))$`)
+var progressLine = regexp.MustCompile(`^discrimen: ([0-9,]+) of ([0-9,]+) fits \(([0-9]+)%\)(, rate not measured yet|, done in .+|, ([0-9.,]+) fits/s, (about .+ left|done in .+))$`)
 
 // TestProgressPlain: on a non-terminal, one line per 10% of the fits, in
 // our layout; no rate before 2 s and 1% of the fits, however fast the
@@ -143,5 +143,30 @@ func TestProgressTerminal(t *testing.T) {
 		"\rdiscrimen: 900 of 7,200 fits (12%), 300 fits/s, about 21 s left\n"
 	if buf.String() != want {
 		t.Fatalf("terminal output %q, want %q", buf.String(), want)
+	}
+}
+
+// TestProgressFastRun: a study that finishes before a rate can be measured
+// ends on the time it took, not on "rate not measured yet".
+func TestProgressFastRun(t *testing.T) {
+	var buf bytes.Buffer
+	t0 := time.Date(2026, 1, 1, 0, 0, 0, 0, time.UTC)
+	now := t0
+	p := newProgress(&buf, false, func() time.Time { return now })
+	p.update(0, 20)
+	for done := 2; done <= 20; done += 2 {
+		now = t0.Add(time.Duration(done) * 50 * time.Millisecond)
+		p.update(done, 20)
+	}
+	p.finish()
+	lines := strings.Split(strings.TrimSuffix(buf.String(), "\n"), "\n")
+	if len(lines) != 10 {
+		t.Fatalf("%d lines, want 10:\n%s", len(lines), buf.String())
+	}
+	if !strings.Contains(lines[0], "rate not measured yet") {
+		t.Errorf("first line %q, want no rate", lines[0])
+	}
+	if lines[9] != "discrimen: 20 of 20 fits (100%), done in 1 s" {
+		t.Errorf("last line %q, want it to end on the time taken", lines[9])
 	}
 }
