@@ -351,20 +351,22 @@ func numberProblems(root, v any, t reflect.Type, tokens []string, out *[]located
 			return
 		}
 		loc := resolve(root, tokens)
-		msg := fmt.Sprintf("%s must be a whole number in plain digits (no fraction, no exponent) within %s, got %s", loc.subject(), intLimit(t.Kind()), x)
+		msg := fmt.Sprintf("%s must be %s, got %s", loc.subject(), intText(t.Kind()), x)
 		if t.Kind() == reflect.Float64 {
-			msg = fmt.Sprintf("%s must be a number within ±%s, got %s", loc.subject(), g(math.MaxFloat64), x)
+			msg = fmt.Sprintf("%s must be a finite number (at most %s in size), got %s", loc.subject(), g3(math.MaxFloat64), x)
 		}
 		*out = append(*out, located{Problem: Problem{Path: loc.path(), Problem: msg}, kind: kindDecode})
 	}
 }
 
-func intLimit(k reflect.Kind) string {
+// intText says what an integer field takes. The schema bounds every
+// integer field well inside int64, so the Go type's own limit is not named.
+func intText(k reflect.Kind) string {
 	switch k {
 	case reflect.Uint, reflect.Uint8, reflect.Uint16, reflect.Uint32, reflect.Uint64:
-		return "[0, " + strconv.FormatUint(math.MaxUint64, 10) + "]"
+		return "a whole number >= 0 in plain digits (no fraction, no exponent)"
 	}
-	return "±" + strconv.FormatInt(math.MaxInt64, 10)
+	return "a whole number in plain digits (no fraction, no exponent)"
 }
 
 // decodeProblem turns a DecodeStudy error into a problem, finding the path of
@@ -378,9 +380,9 @@ func decodeProblem(data []byte, err error) located {
 		switch te.Type.Kind() {
 		case reflect.Int, reflect.Int8, reflect.Int16, reflect.Int32, reflect.Int64,
 			reflect.Uint, reflect.Uint8, reflect.Uint16, reflect.Uint32, reflect.Uint64:
-			msg = fmt.Sprintf("%s must be a whole number in plain digits (no fraction, no exponent) within %s, got %s", loc.subject(), intLimit(te.Type.Kind()), display(loc.leaf()))
+			msg = fmt.Sprintf("%s must be %s, got %s", loc.subject(), intText(te.Type.Kind()), display(loc.leaf()))
 		case reflect.Float32, reflect.Float64:
-			msg = fmt.Sprintf("%s must be a number within ±%s, got %s", loc.subject(), g(math.MaxFloat64), display(loc.leaf()))
+			msg = fmt.Sprintf("%s must be a finite number (at most %s in size), got %s", loc.subject(), g3(math.MaxFloat64), display(loc.leaf()))
 		default:
 			msg = fmt.Sprintf("%s cannot be read as %s, got %s", loc.subject(), te.Type, display(loc.leaf()))
 		}

@@ -147,11 +147,11 @@ var loadSchema = sync.OnceValue(func() compiledSchema {
 type problemKind int
 
 const (
-	kindSemantic    problemKind = iota
-	kindSchema                  // a schema problem about one value or object
-	kindSchemaArray             // a schema problem about an array's length or repeats
-	kindDecode                  // the value passed the schema but does not fit its Go type
-	kindSchemaUnknown           // unknown fields of an object: says nothing of the fields it has
+	kindSemantic      problemKind = iota
+	kindSchema                    // a schema problem about one value or object
+	kindSchemaArray               // a schema problem about an array's length or repeats
+	kindDecode                    // the value passed the schema but does not fit its Go type
+	kindSchemaUnknown             // unknown fields of an object: says nothing of the fields it has
 )
 
 type located struct {

@@ -421,8 +421,7 @@ func TestHTMLReport(t *testing.T) {
 	if !strings.Contains(sectionBody(t, page, "look-alikes"), `<td class="num swap">−3.14</td>`) {
 		t.Error("look-alike swap not highlighted")
 	}
-	if !strings.Contains(sectionBody(t, page, "study"), "width ∈ [0.05, 0.3], uniform; midpoint") &&
-		!strings.Contains(sectionBody(t, page, "study"), "midpoint = 0.2; width ∈ [0.05, 0.3], uniform") {
+	if !strings.Contains(sectionBody(t, page, "study"), "midpoint = 0.2; width ∈ [0.05, 0.3], true values uniform on [0.05, 0.3]") {
 		t.Error("parameter summary missing")
 	}
 }

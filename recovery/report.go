@@ -68,6 +68,9 @@ type Report struct {
 	Method     Method          `json:"method"`
 	Timing     Timing          `json:"timing"`
 	StudyFile  *models.Study   `json:"study_file"`
+	// Warnings are the study file's warnings (models.Study.Warnings):
+	// values allowed but likely a slip, each with its path.
+	Warnings []models.Problem `json:"warnings"`
 	Fits       [][]DatasetFits `json:"-"` // per design: per-dataset fits, for fits.csv
 }
 
@@ -230,7 +233,10 @@ func (c *Compiled) Assemble(results []*ShardResult) (*Report, error) {
 	if err != nil {
 		return nil, err
 	}
-	rep := &Report{Study: s.Name, Seed: s.Seed, Version: Version, Method: CurrentMethod(), StudyFile: s}
+	rep := &Report{Study: s.Name, Seed: s.Seed, Version: Version, Method: CurrentMethod(), StudyFile: s, Warnings: s.Warnings()}
+	if rep.Warnings == nil {
+		rep.Warnings = []models.Problem{} // "warnings": [] rather than null
+	}
 	for _, h := range s.Hypotheses {
 		rep.Hypotheses = append(rep.Hypotheses, h.Name)
 		rep.Families = append(rep.Families, h.Family)

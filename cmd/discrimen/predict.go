@@ -214,12 +214,20 @@ func loadStudyFile(path string, stderr io.Writer) (*models.Study, int) {
 	} else {
 		path = "the embedded demo study"
 	}
-	s, err := models.LoadStudy(data)
+	s, warnings, err := models.CheckStudy(data)
+	printWarnings(stderr, warnings)
 	if err != nil {
 		fmt.Fprintf(stderr, "discrimen: %s is not a valid study:\n%v\n", path, err)
 		return nil, 1
 	}
 	return s, 0
+}
+
+// printWarnings writes each warning as "warning: PATH: PROBLEM".
+func printWarnings(w io.Writer, warnings []models.Problem) {
+	for _, p := range warnings {
+		fmt.Fprintln(w, "warning: "+p.String())
+	}
 }
 
 // writePredictTable writes the table; its error is the first failed write
