@@ -55,23 +55,23 @@ func numMatrix(x [][]float64) [][]NullFloat {
 
 // Report is the outcome of a study: everything report.json holds.
 type Report struct {
-	Study      string          `json:"study"`
-	Seed       uint64          `json:"seed"`
-	Version    string          `json:"version"`
-	Hypotheses []string        `json:"hypotheses"`
-	Families   []string        `json:"families"`
-	Designs    []DesignReport  `json:"designs"`
-	Ranking    []DesignRank    `json:"design_ranking,omitempty"`
-	RankedBy   *RankingMethod  `json:"ranking,omitempty"`
-	Preferred  string          `json:"preferred_design,omitempty"`
-	Verdict    string          `json:"ranking_verdict,omitempty"`
-	Method     Method          `json:"method"`
-	Timing     Timing          `json:"timing"`
-	StudyFile  *models.Study   `json:"study_file"`
+	Study      string         `json:"study"`
+	Seed       uint64         `json:"seed"`
+	Version    string         `json:"version"`
+	Hypotheses []string       `json:"hypotheses"`
+	Families   []string       `json:"families"`
+	Designs    []DesignReport `json:"designs"`
+	Ranking    []DesignRank   `json:"design_ranking,omitempty"`
+	RankedBy   *RankingMethod `json:"ranking,omitempty"`
+	Preferred  string         `json:"preferred_design,omitempty"`
+	Verdict    string         `json:"ranking_verdict,omitempty"`
+	Method     Method         `json:"method"`
+	Timing     Timing         `json:"timing"`
+	StudyFile  *models.Study  `json:"study_file"`
 	// Warnings are the study file's warnings (models.Study.Warnings):
 	// values allowed but likely a slip, each with its path.
 	Warnings []models.Problem `json:"warnings"`
-	Fits       [][]DatasetFits `json:"-"` // per design: per-dataset fits, for fits.csv
+	Fits     [][]DatasetFits  `json:"-"` // per design: per-dataset fits, for fits.csv
 }
 
 // DatasetFits is one dataset's fits (every candidate), kept for fits.csv.

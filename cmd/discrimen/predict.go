@@ -160,7 +160,19 @@ func setProblems(s *models.Study, set setFlags) []string {
 		for k, v := range trial.Hypotheses[i].Params {
 			params[k] = v
 		}
-		for k, v := range set[h] {
+		keys := make([]string, 0, len(set[h]))
+		for k := range set[h] {
+			keys = append(keys, k)
+		}
+		sort.Strings(keys)
+		for _, k := range keys {
+			v := set[h][k]
+			// A free parameter's range is the fit's: a value outside it is
+			// one no fit could reach.
+			if p, ok := params[k]; ok && p.Free() && p.Min != nil && p.Max != nil && (v < *p.Min || v > *p.Max) {
+				out = append(out, fmt.Sprintf("--set %s.%s=%s: %s must be within its range [%s, %s] in the study file (hypotheses[%d].params.%s)",
+					h, k, strconv.FormatFloat(v, 'g', -1, 64), k, strconv.FormatFloat(*p.Min, 'g', -1, 64), strconv.FormatFloat(*p.Max, 'g', -1, 64), i, k))
+			}
 			params[k] = models.Param{Value: &v}
 		}
 		trial.Hypotheses[i].Params = params
