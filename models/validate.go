@@ -750,12 +750,10 @@ func generateProblems(c *checker, path, name string, p Param, rangeOK bool) bool
 	}
 	switch gen.Dist {
 	case "loguniform":
-		if !(glo > 0) {
-			if gen.Min != nil {
-				c.add(gp+".min", "generate min must be > 0 for a loguniform generate distribution, got %s", g(glo))
-			} else {
-				c.add(path+".min", "%s min must be > 0 for a loguniform generate distribution, got %s", name, g(glo))
-			}
+		// The fit's own range must be positive too: its prediction grid
+		// is spaced on the log scale over [min, max].
+		if !(lo > 0) {
+			c.add(path+".min", "%s min must be > 0 for a loguniform generate distribution, got %s", name, g(lo))
 			return false
 		}
 	case "normal":
