@@ -97,6 +97,8 @@ type htmlView struct {
 	// ITINote names each design's inter-trial interval for the notes on
 	// testing minutes.
 	ITINote  string
+	// Warnings are the study file's warnings (report.json "warnings").
+	Warnings []models.Problem
 	Sections []sectionLink
 	Timing   string
 	Method   methodView
@@ -280,7 +282,7 @@ func Report(r *recovery.Report) ([]byte, error) {
 	if r == nil {
 		panic("pages: Report: nil report")
 	}
-	v := htmlView{R: r, Ranking: newRankingView(r), Method: newMethodView(r.Method), ITINote: itiNote(r.Designs)}
+	v := htmlView{R: r, Ranking: newRankingView(r), Method: newMethodView(r.Method), ITINote: itiNote(r.Designs), Warnings: r.Warnings}
 	hypIndex := map[string]int{}
 	specs := map[string]models.Hypothesis{}
 	if r.StudyFile != nil {
