@@ -96,7 +96,7 @@ type htmlView struct {
 	HasGroup   bool
 	// ITINote names each design's inter-trial interval for the notes on
 	// testing minutes.
-	ITINote  string
+	ITINote string
 	// Warnings are the study file's warnings (report.json "warnings").
 	Warnings []models.Problem
 	Sections []sectionLink
