@@ -88,15 +88,23 @@ func (d *Design) Defaulted(field string) bool {
 }
 
 // fieldJSON is the JSON of the field at a path relative to the design.
-func (d *Design) fieldJSON(field string) string {
+func (d *Design) fieldJSON(field string) string { return fieldIn(d.tree(), field) }
+
+// tree is the design as parsed JSON.
+func (d *Design) tree() any {
 	b, err := json.Marshal(d)
 	if err != nil {
-		return ""
+		return nil
 	}
 	var v any
 	if json.Unmarshal(b, &v) != nil {
-		return ""
+		return nil
 	}
+	return v
+}
+
+// fieldIn is the JSON of the field at a dotted path of a parsed design.
+func fieldIn(v any, field string) string {
 	for _, k := range strings.Split(field, ".") {
 		m, _ := v.(map[string]any)
 		v = m[k]
@@ -457,9 +465,13 @@ func (d *Design) markDefault(field string) {
 
 // recordDefaults stores the value each newly defaulted field took.
 func (d *Design) recordDefaults() {
+	var t any
 	for f, v := range d.defaulted {
 		if v == "" {
-			d.defaulted[f] = d.fieldJSON(f)
+			if t == nil {
+				t = d.tree()
+			}
+			d.defaulted[f] = fieldIn(t, f)
 		}
 	}
 }
