@@ -64,6 +64,9 @@ type submitBody struct {
 	Status    worker.State `json:"status"`
 	StatusURL string       `json:"status_url"`
 	ReportURL string       `json:"report_url"`
+	// Warnings are the study's warnings (models.Study.Warnings); [] when
+	// there are none.
+	Warnings []Field `json:"warnings"`
 }
 
 func (s *Server) submit(w http.ResponseWriter, r *http.Request) {
@@ -86,7 +89,7 @@ func (s *Server) submit(w http.ResponseWriter, r *http.Request) {
 		writeError(w, newError(http.StatusBadRequest, codeInvalidStudy, "could not read the body: "+err.Error()))
 		return
 	}
-	study, err := models.LoadStudy(body)
+	study, warnings, err := models.CheckStudy(body)
 	if err != nil {
 		var ve *models.ValidationError
 		if errors.As(err, &ve) {
@@ -107,7 +110,11 @@ func (s *Server) submit(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	w.Header().Set("Location", statusURL(st.ID))
-	writeJSON(w, http.StatusAccepted, submitBody{ID: st.ID, Status: st.State, StatusURL: statusURL(st.ID), ReportURL: reportURL(st.ID)})
+	warn := make([]Field, len(warnings))
+	for i, p := range warnings {
+		warn[i] = Field{Path: p.Path, Problem: p.Problem}
+	}
+	writeJSON(w, http.StatusAccepted, submitBody{ID: st.ID, Status: st.State, StatusURL: statusURL(st.ID), ReportURL: reportURL(st.ID), Warnings: warn})
 }
 
 // budgetFields names each design's share of the fits, so the caller sees

@@ -27,7 +27,7 @@ func (p Param) Quantile(u float64) float64 {
 	if !p.Free() {
 		return *p.Value
 	}
-	lo, hi := *p.Min, *p.Max
+	lo, hi := p.GenerateRange()
 	dist := "uniform"
 	if p.Generate != nil && p.Generate.Dist != "" {
 		dist = p.Generate.Dist
@@ -40,6 +40,22 @@ func (p Param) Quantile(u float64) float64 {
 	default:
 		return lo + u*(hi-lo)
 	}
+}
+
+// GenerateRange is the range true values of a free parameter are drawn
+// from: the generating sub-range [generate.min, generate.max] where given
+// (each bound separately), the fit's range [min, max] otherwise.
+func (p Param) GenerateRange() (lo, hi float64) {
+	lo, hi = *p.Min, *p.Max
+	if p.Generate != nil {
+		if p.Generate.Min != nil {
+			lo = *p.Generate.Min
+		}
+		if p.Generate.Max != nil {
+			hi = *p.Generate.Max
+		}
+	}
+	return lo, hi
 }
 
 // Quantile returns the u-quantile of a measurement prior (u in (0,1)).

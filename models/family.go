@@ -3,7 +3,9 @@ package models
 import (
 	"fmt"
 	"math"
+	"slices"
 	"sort"
+	"strconv"
 )
 
 // Precision is a hypothesis's precision time course γ(t), t in seconds
@@ -28,6 +30,12 @@ type ParamSpec struct {
 	// means the parameter is required.
 	Default func(d *Design) float64
 	Sign    Sign
+	// Seconds marks a time parameter in seconds (a value far above the
+	// design's time span is warned about as a likely unit slip).
+	Seconds bool
+	// Gain marks a parameter in gain units: every value it can take must
+	// lie within [gain_min, gain_max] of every design.
+	Gain bool
 }
 
 // Required reports whether the study must give the parameter.
@@ -43,18 +51,26 @@ type Family struct {
 	Formula string
 	// Params lists the family's parameters for hypothesis h in documented
 	// order. It takes the hypothesis so that a family whose parameter list
-	// depends on it (one level per knot, say) fits the same table; every
-	// family today ignores h.
+	// depends on it (knots: one level per entry of knots_s) fits the same
+	// table.
 	Params func(h Hypothesis) []ParamSpec
-	// New builds γ from every parameter's value (defaults filled in).
-	New func(v map[string]float64, d *Design) Precision
+	// ParamPattern, for a family whose parameter list comes from the
+	// hypothesis, is the pattern every parameter name matches; the schema
+	// uses it since it cannot list the names. Empty for a fixed list.
+	ParamPattern string
+	// UsesKnots reports that the family reads the hypothesis's knots_s
+	// (required for it, not allowed for the others).
+	UsesKnots bool
+	// New builds γ for hypothesis h from every parameter's value
+	// (defaults filled in).
+	New func(h Hypothesis, v map[string]float64, d *Design) Precision
 }
 
 // gainBounds are γ_lo and γ_hi, shared by every non-constant family
 // (model.md §2); they default to the agent's gain range.
 var gainBounds = []ParamSpec{
-	{Name: "low", Default: func(d *Design) float64 { return d.Agent.GainMin }, Sign: Positive},
-	{Name: "high", Default: func(d *Design) float64 { return d.Agent.GainMax }, Sign: Positive},
+	{Name: "low", Default: func(d *Design) float64 { return d.Agent.GainMin }, Sign: Positive, Gain: true},
+	{Name: "high", Default: func(d *Design) float64 { return d.Agent.GainMax }, Sign: Positive, Gain: true},
 }
 
 // fixedParams is Params for a family whose parameter list never changes.
@@ -68,45 +84,78 @@ var families = []Family{
 	{
 		Name: "constant", Formula: "γ(t) = level",
 		Params: func(Hypothesis) []ParamSpec { return []ParamSpec{{Name: "level", Sign: Positive}} },
-		New:    func(v map[string]float64, _ *Design) Precision { return Constant{Level: v["level"]} },
+		New:    func(_ Hypothesis, v map[string]float64, _ *Design) Precision { return Constant{Level: v["level"]} },
 	},
 	{
 		Name: "linear", Formula: "γ(t) = min(high, low + slope·t)",
 		Params: fixedParams(ParamSpec{Name: "slope", Sign: NonNegative}),
-		New: func(v map[string]float64, _ *Design) Precision {
+		New: func(_ Hypothesis, v map[string]float64, _ *Design) Precision {
 			return Linear{Low: v["low"], High: v["high"], Slope: v["slope"]}
 		},
 	},
 	{
 		Name: "exponential", Formula: "γ(t) = low + (high−low)·(e^{rate·t}−1)/(e^{rate·horizon}−1) for t ≤ horizon, high after",
 		Params: fixedParams(ParamSpec{Name: "rate", Sign: Positive},
-			ParamSpec{Name: "horizon", Sign: Positive, Default: func(d *Design) float64 { return float64(maxInt(d.CTIms)) / 1000 }}),
-		New: func(v map[string]float64, _ *Design) Precision {
+			ParamSpec{Name: "horizon", Sign: Positive, Seconds: true, Default: func(d *Design) float64 { return float64(maxInt(d.CTIms)) / 1000 }}),
+		New: func(_ Hypothesis, v map[string]float64, _ *Design) Precision {
 			return Exponential{Low: v["low"], High: v["high"], Rate: v["rate"], Horizon: v["horizon"]}
 		},
 	},
 	{
 		Name: "saturating", Formula: "γ(t) = low + (high−low)·(1 − e^{−t/tau})",
-		Params: fixedParams(ParamSpec{Name: "tau", Sign: Positive}),
-		New: func(v map[string]float64, _ *Design) Precision {
+		Params: fixedParams(ParamSpec{Name: "tau", Sign: Positive, Seconds: true}),
+		New: func(_ Hypothesis, v map[string]float64, _ *Design) Precision {
 			return Saturating{Low: v["low"], High: v["high"], Tau: v["tau"]}
 		},
 	},
 	{
 		Name: "logistic", Formula: "γ(t) = low + (high−low)/(1 + e^{−(t−midpoint)/width})",
-		Params: fixedParams(ParamSpec{Name: "midpoint", Sign: AnySign}, ParamSpec{Name: "width", Sign: Positive}),
-		New: func(v map[string]float64, _ *Design) Precision {
+		Params: fixedParams(ParamSpec{Name: "midpoint", Sign: AnySign, Seconds: true}, ParamSpec{Name: "width", Sign: Positive, Seconds: true}),
+		New: func(_ Hypothesis, v map[string]float64, _ *Design) Precision {
 			return Logistic{Low: v["low"], High: v["high"], Midpoint: v["midpoint"], Width: v["width"]}
 		},
 	},
 	{
 		Name: "hazard", Formula: "γ(t) = low + (high−low)·h(t), h the subjective hazard of the CTIs within window",
 		Params: fixedParams(ParamSpec{Name: "weber", Sign: Positive},
-			ParamSpec{Name: "window", Sign: Positive, Default: func(*Design) float64 { return 0.2 }}),
-		New: func(v map[string]float64, d *Design) Precision {
+			ParamSpec{Name: "window", Sign: Positive, Seconds: true, Default: func(*Design) float64 { return 0.2 }}),
+		New: func(_ Hypothesis, v map[string]float64, d *Design) Precision {
 			return NewHazard(v["low"], v["high"], v["weber"], v["window"], d.CTIms, d.CTIWeights)
 		},
 	},
+	{
+		Name:         "knots",
+		Formula:      KnotsFormula,
+		Params:       knotParams,
+		ParamPattern: `^k([1-9]|1[0-2])$`,
+		UsesKnots:    true,
+		New: func(h Hypothesis, v map[string]float64, _ *Design) Precision {
+			k := make([]float64, len(h.KnotsS))
+			for i := range k {
+				k[i] = v[KnotParam(i)]
+			}
+			return Knots{T: slices.Clone(h.KnotsS), K: k}
+		},
+	},
+}
+
+// KnotsFormula is the knots family's γ(t) in plain text.
+const KnotsFormula = "γ(t) = k1 for t ≤ t1; k_i + (k_{i+1} − k_i)·(t − t_i)/(t_{i+1} − t_i) for t_i ≤ t ≤ t_{i+1}; kn for t ≥ tn; t_i = knots_s[i] (s, strictly increasing), one level k_i per knot (gain units)"
+
+// MinKnots and MaxKnots bound the length of knots_s.
+const MinKnots, MaxKnots = 2, 12
+
+// KnotParam is the name of the level at knot i (0-based): k1, k2, ...
+func KnotParam(i int) string { return "k" + strconv.Itoa(i+1) }
+
+// knotParams is one required level k_i per entry of h.KnotsS, each in
+// gain units.
+func knotParams(h Hypothesis) []ParamSpec {
+	specs := make([]ParamSpec, len(h.KnotsS))
+	for i := range specs {
+		specs[i] = ParamSpec{Name: KnotParam(i), Sign: Positive, Gain: true}
+	}
+	return specs
 }
 
 // Families lists the precision families' names in their documented order.
@@ -202,7 +251,7 @@ func NewPrecision(h Hypothesis, d *Design, free []float64) (Precision, error) {
 		return nil, err
 	}
 	f, _ := LookupFamily(h.Family) // Resolve has found it
-	return f.New(v, d), nil
+	return f.New(h, v, d), nil
 }
 
 // Constant is γ(t) = level.
@@ -327,6 +376,31 @@ func (h *Hazard) Rate(t float64) float64 {
 }
 
 func (h *Hazard) At(t float64) float64 { return h.Low + (h.High-h.Low)*h.Rate(t) }
+
+// Knots is the precision time course given at fixed times:
+//
+//	γ(t) = k_1 for t ≤ t_1,  k_n for t ≥ t_n,
+//	γ(t) = k_i + (k_{i+1} − k_i)·(t − t_i)/(t_{i+1} − t_i) for t_i ≤ t ≤ t_{i+1},
+//
+// T the knot times t_i in seconds (strictly increasing), K the levels k_i.
+type Knots struct{ T, K []float64 }
+
+func (k Knots) At(t float64) float64 {
+	n := len(k.T)
+	if t <= k.T[0] {
+		return k.K[0]
+	}
+	if t >= k.T[n-1] {
+		return k.K[n-1]
+	}
+	// the first knot above t: t_{i-1} < t < t_i
+	i := sort.SearchFloat64s(k.T, t)
+	if k.T[i] == t {
+		return k.K[i]
+	}
+	t0, t1 := k.T[i-1], k.T[i]
+	return k.K[i-1] + (k.K[i]-k.K[i-1])*(t-t0)/(t1-t0)
+}
 
 func maxInt(xs []int) int {
 	m := 0

@@ -10,6 +10,7 @@ import (
 	"unicode/utf8"
 
 	"github.com/google/go-cmp/cmp"
+	"github.com/google/go-cmp/cmp/cmpopts"
 )
 
 // FuzzDecodeStudy feeds arbitrary bytes to the study file readers. Whatever
@@ -86,7 +87,9 @@ func FuzzDecodeStudy(f *testing.F) {
 			}
 			return b.String()
 		})
-		if d := cmp.Diff(s, back, compact); d != "" {
+		// (the unexported record of which fields took defaults differs:
+		// the re-encoded file gives them all)
+		if d := cmp.Diff(s, back, compact, cmpopts.IgnoreUnexported(Design{}, Replication{})); d != "" {
 			t.Fatalf("round trip changed the study (-first +second):\n%s", d)
 		}
 	})

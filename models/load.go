@@ -24,9 +24,20 @@ import (
 // schema problem at the same place. Bytes that are not JSON give that one
 // problem.
 func LoadStudy(data []byte) (*Study, error) {
+	s, _, err := CheckStudy(data)
+	return s, err
+}
+
+// CheckStudy is LoadStudy that also returns the study's warnings (values
+// that are allowed but look like a slip, see Study.Warnings). Every part of
+// the file that decodes is checked in the same pass: an unknown field or a
+// value of the wrong type is reported and left out, and the rest is
+// decoded and validated as if the field were omitted. On failure the
+// *ValidationError carries the warnings too.
+func CheckStudy(data []byte) (*Study, []Problem, error) {
 	schemaProbs, isJSON := schemaProblems(data)
 	if !isJSON {
-		return nil, &ValidationError{Problems: plain(schemaProbs)}
+		return nil, nil, &ValidationError{Problems: plain(schemaProbs)}
 	}
 	s, err := DecodeStudy(data)
 	if err != nil {
@@ -35,7 +46,8 @@ func LoadStudy(data []byte) (*Study, error) {
 		// encoding/json names only the first such value; numberProblems
 		// finds them all.
 		var news []located
-		if inst, jerr := jsonschema.UnmarshalJSON(bytes.NewReader(data)); jerr == nil {
+		inst, jerr := jsonschema.UnmarshalJSON(bytes.NewReader(data))
+		if jerr == nil {
 			numberProblems(inst, inst, reflect.TypeFor[Study](), nil, &news)
 		}
 		if len(news) == 0 {
@@ -46,8 +58,20 @@ func LoadStudy(data []byte) (*Study, error) {
 				schemaProbs = append(schemaProbs, dp)
 			}
 		}
-		sortProblems(schemaProbs)
-		return nil, &ValidationError{Problems: plain(schemaProbs)}
+		// Decode what can be decoded, so its semantics are checked in the
+		// same pass.
+		s = nil
+		if jerr == nil {
+			if kept, ok := prune(inst, reflect.TypeFor[Study]()); ok {
+				if b, merr := json.Marshal(kept); merr == nil {
+					s, _ = DecodeStudy(b)
+				}
+			}
+		}
+		if s == nil {
+			sortProblems(schemaProbs)
+			return nil, nil, &ValidationError{Problems: plain(schemaProbs)}
+		}
 	}
 	all := schemaProbs
 	for _, p := range s.Validate() {
@@ -55,27 +79,139 @@ func LoadStudy(data []byte) (*Study, error) {
 			all = append(all, located{Problem: p, kind: kindSemantic})
 		}
 	}
+	warnings := s.Warnings()
 	if len(all) > 0 {
 		sortProblems(all)
-		ve := &ValidationError{Problems: plain(all)}
+		ve := &ValidationError{Problems: plain(all), Warnings: warnings}
 		ve.OverBudget = len(all) == 1 && all[0].Path == "" && s.TotalFits() > MaxFits
-		return nil, ve
+		return nil, warnings, ve
 	}
-	return s, nil
+	return s, warnings, nil
+}
+
+// prune returns the part of a parsed study file (numbers as json.Number)
+// that decodes into Go type t: unknown fields are dropped, and so is a
+// field whose value has the wrong JSON type or is a number t cannot hold
+// (its default fills in); a bad array element becomes the zero value so
+// that the other elements keep their indices. ok is false when v itself
+// does not fit t.
+func prune(v any, t reflect.Type) (any, bool) {
+	for t.Kind() == reflect.Pointer {
+		t = t.Elem()
+	}
+	if v == nil || t == reflect.TypeFor[json.RawMessage]() {
+		return v, true
+	}
+	switch t.Kind() {
+	case reflect.Struct:
+		m, ok := v.(map[string]any)
+		if !ok {
+			return nil, false
+		}
+		out := map[string]any{}
+		for i := 0; i < t.NumField(); i++ {
+			f := t.Field(i)
+			name, _, _ := strings.Cut(f.Tag.Get("json"), ",")
+			if !f.IsExported() || name == "" || name == "-" {
+				continue
+			}
+			if fv, has := m[name]; has {
+				if pv, ok := prune(fv, f.Type); ok {
+					out[name] = pv
+				}
+			}
+		}
+		return out, true
+	case reflect.Map:
+		m, ok := v.(map[string]any)
+		if !ok {
+			return nil, false
+		}
+		out := map[string]any{}
+		for k, ev := range m {
+			if pv, ok := prune(ev, t.Elem()); ok {
+				out[k] = pv
+			}
+		}
+		return out, true
+	case reflect.Slice:
+		a, ok := v.([]any)
+		if !ok {
+			return nil, false
+		}
+		out := make([]any, len(a))
+		for i, ev := range a {
+			pv, ok := prune(ev, t.Elem())
+			if !ok {
+				pv = zeroJSON(t.Elem())
+			}
+			out[i] = pv
+		}
+		return out, true
+	case reflect.String:
+		_, ok := v.(string)
+		return v, ok
+	case reflect.Bool:
+		_, ok := v.(bool)
+		return v, ok
+	case reflect.Int, reflect.Int64:
+		n, ok := v.(json.Number)
+		if !ok {
+			return nil, false
+		}
+		_, err := strconv.ParseInt(n.String(), 10, 64)
+		return v, err == nil
+	case reflect.Uint64:
+		n, ok := v.(json.Number)
+		if !ok {
+			return nil, false
+		}
+		_, err := strconv.ParseUint(n.String(), 10, 64)
+		return v, err == nil
+	case reflect.Float64:
+		n, ok := v.(json.Number)
+		if !ok {
+			return nil, false
+		}
+		_, err := strconv.ParseFloat(n.String(), 64)
+		return v, err == nil
+	}
+	return v, true
+}
+
+// zeroJSON is the JSON zero value of Go type t.
+func zeroJSON(t reflect.Type) any {
+	for t.Kind() == reflect.Pointer {
+		t = t.Elem()
+	}
+	switch t.Kind() {
+	case reflect.Struct, reflect.Map:
+		return map[string]any{}
+	case reflect.Slice:
+		return []any{}
+	case reflect.String:
+		return ""
+	case reflect.Bool:
+		return false
+	}
+	return json.Number("0")
 }
 
 // covered reports whether a schema problem already speaks of p's value: at
 // the same path, or at its parent or child (a missing field is reported on
 // its object by the schema and on the field by Validate). Array-length and
 // repeat problems cover only their own path, since they say nothing of the
-// elements.
+// elements, and so do unknown-field problems, which say nothing of the
+// fields the object has.
 func covered(p Problem, schemaProbs []located) bool {
 	ps := splitPath(p.Path)
 	for _, sp := range schemaProbs {
-		if sp.Path == p.Path {
+		if sp.Path == p.Path && !(sp.kind == kindSchemaUnknown && p.Path == "") {
+			// (an unknown field of the study object says nothing of its
+			// budget, the one semantic problem of the file as a whole)
 			return true
 		}
-		if sp.kind == kindSchemaArray {
+		if sp.kind == kindSchemaArray || sp.kind == kindSchemaUnknown {
 			continue
 		}
 		ss := splitPath(sp.Path)
@@ -215,20 +351,22 @@ func numberProblems(root, v any, t reflect.Type, tokens []string, out *[]located
 			return
 		}
 		loc := resolve(root, tokens)
-		msg := fmt.Sprintf("%s must be a whole number in plain digits (no fraction, no exponent) within %s, got %s", loc.subject(), intLimit(t.Kind()), x)
+		msg := fmt.Sprintf("%s must be %s, got %s", loc.subject(), intText(t.Kind()), x)
 		if t.Kind() == reflect.Float64 {
-			msg = fmt.Sprintf("%s must be a number within ±%s, got %s", loc.subject(), g(math.MaxFloat64), x)
+			msg = fmt.Sprintf("%s must be a finite number (at most %s in size), got %s", loc.subject(), g3(math.MaxFloat64), x)
 		}
 		*out = append(*out, located{Problem: Problem{Path: loc.path(), Problem: msg}, kind: kindDecode})
 	}
 }
 
-func intLimit(k reflect.Kind) string {
+// intText says what an integer field takes. The schema bounds every
+// integer field well inside int64, so the Go type's own limit is not named.
+func intText(k reflect.Kind) string {
 	switch k {
 	case reflect.Uint, reflect.Uint8, reflect.Uint16, reflect.Uint32, reflect.Uint64:
-		return "[0, " + strconv.FormatUint(math.MaxUint64, 10) + "]"
+		return "a whole number >= 0 in plain digits (no fraction, no exponent)"
 	}
-	return "±" + strconv.FormatInt(math.MaxInt64, 10)
+	return "a whole number in plain digits (no fraction, no exponent)"
 }
 
 // decodeProblem turns a DecodeStudy error into a problem, finding the path of
@@ -242,9 +380,9 @@ func decodeProblem(data []byte, err error) located {
 		switch te.Type.Kind() {
 		case reflect.Int, reflect.Int8, reflect.Int16, reflect.Int32, reflect.Int64,
 			reflect.Uint, reflect.Uint8, reflect.Uint16, reflect.Uint32, reflect.Uint64:
-			msg = fmt.Sprintf("%s must be a whole number in plain digits (no fraction, no exponent) within %s, got %s", loc.subject(), intLimit(te.Type.Kind()), display(loc.leaf()))
+			msg = fmt.Sprintf("%s must be %s, got %s", loc.subject(), intText(te.Type.Kind()), display(loc.leaf()))
 		case reflect.Float32, reflect.Float64:
-			msg = fmt.Sprintf("%s must be a number within ±%s, got %s", loc.subject(), g(math.MaxFloat64), display(loc.leaf()))
+			msg = fmt.Sprintf("%s must be a finite number (at most %s in size), got %s", loc.subject(), g3(math.MaxFloat64), display(loc.leaf()))
 		default:
 			msg = fmt.Sprintf("%s cannot be read as %s, got %s", loc.subject(), te.Type, display(loc.leaf()))
 		}

@@ -8,6 +8,7 @@ import (
 	"fmt"
 	"net/url"
 	"regexp"
+	"slices"
 	"sort"
 	"strconv"
 	"strings"
@@ -15,6 +16,8 @@ import (
 
 	"github.com/santhosh-tekuri/jsonschema/v6"
 	"github.com/santhosh-tekuri/jsonschema/v6/kind"
+	"golang.org/x/text/language"
+	"golang.org/x/text/message"
 )
 
 // studySchemaFile is the schema as written, without its family parts.
@@ -38,7 +41,7 @@ var studySchemaJSON = func() []byte {
 	props["family"] = map[string]any{"enum": Families, "description": "Precision family; its parameters are listed in the branch for it."}
 	var branches []any
 	for _, f := range families {
-		branches = append(branches, familySchema(f))
+		branches = append(branches, familySchema(f)...)
 	}
 	hyp["allOf"] = branches
 	out, err := json.MarshalIndent(doc, "", "  ")
@@ -51,21 +54,63 @@ var studySchemaJSON = func() []byte {
 // paramRef is the schema definition for a parameter of that sign.
 var paramRef = map[Sign]string{AnySign: "#/$defs/param", Positive: "#/$defs/param_positive", NonNegative: "#/$defs/param_nonnegative"}
 
-// familySchema is the schema branch that applies when family is f.Name.
-func familySchema(f Family) map[string]any {
-	props := map[string]any{}
-	required := []string{}
-	for _, p := range f.Params(Hypothesis{Family: f.Name}) {
-		props[p.Name] = map[string]any{"$ref": paramRef[p.Sign]}
-		if p.Required() {
-			required = append(required, p.Name)
+// familySchema is the schema branches that apply when family is f.Name:
+// one for a family with a fixed parameter list; for a family whose list
+// comes from knots_s, one that requires knots_s and one per knot count
+// naming that many parameters. Every other family's branch forbids knots_s.
+func familySchema(f Family) []any {
+	isFamily := map[string]any{"family": map[string]any{"const": f.Name}}
+	paramsFor := func(h Hypothesis) map[string]any {
+		props := map[string]any{}
+		required := []string{}
+		for _, p := range f.Params(h) {
+			props[p.Name] = map[string]any{"$ref": paramRef[p.Sign]}
+			if p.Required() {
+				required = append(required, p.Name)
+			}
 		}
+		return map[string]any{"$comment": f.Formula, "properties": props, "required": required, "additionalProperties": false}
 	}
-	return map[string]any{
-		"if": map[string]any{"properties": map[string]any{"family": map[string]any{"const": f.Name}}, "required": []string{"family"}},
-		"then": map[string]any{"properties": map[string]any{"params": map[string]any{
-			"$comment": f.Formula, "properties": props, "required": required, "additionalProperties": false}}},
+	if !f.UsesKnots {
+		return []any{map[string]any{
+			"if": map[string]any{"properties": isFamily, "required": []string{"family"}},
+			"then": map[string]any{
+				"properties": map[string]any{
+					"params":  paramsFor(Hypothesis{Family: f.Name}),
+					"knots_s": map[string]any{"description": "is only for family knots, not " + f.Name, "not": map[string]any{}},
+				},
+			},
+		}}
 	}
+	out := []any{map[string]any{
+		"if": map[string]any{"properties": isFamily, "required": []string{"family"}},
+		"then": map[string]any{
+			"$comment": f.Formula,
+			"required": []string{"knots_s"},
+			"properties": map[string]any{"params": map[string]any{
+				"additionalProperties": map[string]any{"$ref": paramRef[Positive]}}},
+		},
+	}}
+	for n := MinKnots; n <= MaxKnots; n++ {
+		h := Hypothesis{Family: f.Name, KnotsS: make([]float64, n)}
+		out = append(out, map[string]any{
+			"if": map[string]any{"properties": map[string]any{"family": map[string]any{"const": f.Name},
+				"knots_s": map[string]any{"type": "array", "minItems": n, "maxItems": n}}, "required": []string{"family", "knots_s"}},
+			"then": map[string]any{"properties": map[string]any{"params": paramsFor(h)}},
+		})
+	}
+	return out
+}
+
+// hypothesisAt reads the family and knot count of a hypothesis object of a
+// parsed study file, enough to name its family's parameters.
+func hypothesisAt(obj map[string]any) Hypothesis {
+	fam, _ := obj["family"].(string)
+	h := Hypothesis{Family: fam}
+	if ks, ok := obj["knots_s"].([]any); ok {
+		h.KnotsS = make([]float64, len(ks))
+	}
+	return h
 }
 
 // studySchemaID is the schema's $id; the compiler resolves $refs against it.
@@ -102,10 +147,11 @@ var loadSchema = sync.OnceValue(func() compiledSchema {
 type problemKind int
 
 const (
-	kindSemantic    problemKind = iota
-	kindSchema                  // a schema problem about one value or object
-	kindSchemaArray             // a schema problem about an array's length or repeats
-	kindDecode                  // the value passed the schema but does not fit its Go type
+	kindSemantic      problemKind = iota
+	kindSchema                    // a schema problem about one value or object
+	kindSchemaArray               // a schema problem about an array's length or repeats
+	kindDecode                    // the value passed the schema but does not fit its Go type
+	kindSchemaUnknown             // unknown fields of an object: says nothing of the fields it has
 )
 
 type located struct {
@@ -151,13 +197,54 @@ func schemaProblems(data []byte) (problems []located, ok bool) {
 	var leaves []*jsonschema.ValidationError
 	collectLeaves(ve, &leaves)
 	seen := map[Problem]bool{}
+	// Unknown fields of one object can be reported by more than one schema
+	// object (the object's own properties and a branch for its dist): they
+	// make one problem, naming every unknown field and the fields every
+	// branch allows.
+	type unknown struct {
+		loc     location
+		extra   map[string]bool
+		allowed []string // nil until a schema object lists properties
+	}
+	unknowns := map[string]*unknown{}
+	var order []string
 	for _, leaf := range leaves {
+		if ap, isAP := leaf.ErrorKind.(*kind.AdditionalProperties); isAP {
+			loc := resolve(inst, leaf.InstanceLocation)
+			u, ok := unknowns[loc.path()]
+			if !ok {
+				u = &unknown{loc: loc, extra: map[string]bool{}}
+				unknowns[loc.path()] = u
+				order = append(order, loc.path())
+			}
+			for _, e := range ap.Properties {
+				u.extra[e] = true
+			}
+			if props, ok := schemaAt(cs.doc, leaf.SchemaURL)["properties"].(map[string]any); ok {
+				var allowed []string
+				for p := range props {
+					if u.allowed == nil || slices.Contains(u.allowed, p) {
+						allowed = append(allowed, p)
+					}
+				}
+				u.allowed = allowed
+			}
+			continue
+		}
 		p := describe(cs.doc, inst, leaf)
 		if seen[p.Problem] {
 			continue
 		}
 		seen[p.Problem] = true
 		problems = append(problems, p)
+	}
+	for _, path := range order {
+		u := unknowns[path]
+		extra := make([]string, 0, len(u.extra))
+		for e := range u.extra {
+			extra = append(extra, e)
+		}
+		problems = append(problems, located{Problem: Problem{Path: path, Problem: extraMessage(u.loc, u.allowed, extra)}, kind: kindSchemaUnknown})
 	}
 	sortProblems(problems)
 	return problems, true
@@ -498,7 +585,14 @@ func describe(doc any, inst any, e *jsonschema.ValidationError) located {
 	case *kind.Required:
 		msg = requiredMessage(loc, ek.Missing)
 	case *kind.AdditionalProperties:
-		msg = extraMessage(loc, sch, ek.Properties)
+		var allowed []string
+		if props, ok := sch["properties"].(map[string]any); ok {
+			for p := range props {
+				allowed = append(allowed, p)
+			}
+		}
+		msg = extraMessage(loc, allowed, ek.Properties)
+		k = kindSchemaUnknown
 	case *kind.Not:
 		d, _ := sch["description"].(string)
 		if d == "" {
@@ -507,8 +601,10 @@ func describe(doc any, inst any, e *jsonschema.ValidationError) located {
 		msg = subj + " " + d
 	case *kind.FalseSchema:
 		msg = subj + " is not allowed here"
+	case *kind.Pattern:
+		msg = fmt.Sprintf("%s must match the pattern %s, got %s", subj, ek.Want, display(loc.leaf()))
 	default:
-		msg = subj + ": " + e.ErrorKind.LocalizedString(nil)
+		msg = subj + ": " + e.ErrorKind.LocalizedString(message.NewPrinter(language.English))
 	}
 	return located{Problem: Problem{Path: loc.path(), Problem: msg}, kind: k}
 }
@@ -552,19 +648,13 @@ func paramNeedsMessage(name string, missing []string) string {
 	return fmt.Sprintf("%s needs value (fixed) or min and max (free); missing %s", name, joinNames(missing))
 }
 
-func extraMessage(loc location, sch map[string]any, extra []string) string {
+func extraMessage(loc location, allowed []string, extra []string) string {
 	n := len(loc.tokens)
 	sort.Strings(extra)
 	if loc.isParams(n) {
-		fam, _ := loc.objectAt(2)["family"].(string)
-		return unknownParamsMessage(fam, extra)
+		return unknownParamsMessage(hypothesisAt(loc.objectAt(2)), extra)
 	}
-	var allowed []string
-	if props, ok := sch["properties"].(map[string]any); ok {
-		for p := range props {
-			allowed = append(allowed, p)
-		}
-	}
+	allowed = slices.Clone(allowed)
 	sort.Strings(allowed)
 	noun := "field"
 	if len(extra) > 1 {
@@ -576,10 +666,17 @@ func extraMessage(loc location, sch map[string]any, extra []string) string {
 	return fmt.Sprintf("unknown %s %s; allowed: %s", noun, quoteAll(extra), strings.Join(allowed, ", "))
 }
 
-func unknownParamsMessage(family string, extra []string) string {
+func unknownParamsMessage(h Hypothesis, extra []string) string {
+	family := h.Family
 	allowed := "(none: the family is unknown)"
 	if f, ok := LookupFamily(family); ok {
-		allowed = strings.Join(ParamNames(f.Params(Hypothesis{Family: family})), ", ")
+		allowed = strings.Join(ParamNames(f.Params(h)), ", ")
+		if f.UsesKnots {
+			allowed = "one level per entry of knots_s"
+			if len(h.KnotsS) > 0 {
+				allowed += ": " + strings.Join(ParamNames(f.Params(h)), ", ")
+			}
+		}
 	}
 	noun := "parameter"
 	if len(extra) > 1 {

@@ -5,6 +5,7 @@ import (
 	"encoding/json"
 	"fmt"
 	"sort"
+	"strings"
 )
 
 // Study is the file a user submits: designs to compare, hypotheses that act
@@ -68,6 +69,62 @@ type Design struct {
 	// Vary expands this design into variants, one per listed alternative
 	// value of a field (model.md §8). Empty means the design stands alone.
 	Vary []Variation `json:"vary,omitempty"`
+	// defaulted maps each field FillDefaults filled in because the file
+	// omitted it ("epoch_ms", "agent.gain_min") to the JSON of the default
+	// it took, so messages can say a value is a default rather than
+	// something the user wrote (while the field still holds it).
+	defaulted map[string]string
+}
+
+// Defaulted reports whether field (a path relative to the design, such as
+// "epoch_ms" or "agent.criterion") holds the default it took because the
+// file omitted it.
+func (d *Design) Defaulted(field string) bool {
+	want, ok := d.defaulted[field]
+	if !ok {
+		return false
+	}
+	return d.fieldJSON(field) == want
+}
+
+// fieldJSON is the JSON of the field at a path relative to the design.
+func (d *Design) fieldJSON(field string) string { return fieldIn(d.tree(), field) }
+
+// tree is the design as parsed JSON.
+func (d *Design) tree() any {
+	b, err := json.Marshal(d)
+	if err != nil {
+		return nil
+	}
+	var v any
+	if json.Unmarshal(b, &v) != nil {
+		return nil
+	}
+	return v
+}
+
+// fieldIn is the JSON of the field at a dotted path of a parsed design.
+func fieldIn(v any, field string) string {
+	for _, k := range strings.Split(field, ".") {
+		m, _ := v.(map[string]any)
+		v = m[k]
+	}
+	out, _ := json.Marshal(v)
+	return string(out)
+}
+
+// defaultNote is " (the default)" for a defaulted field, "" otherwise.
+func (d *Design) defaultNote(field string) string {
+	if d.Defaulted(field) {
+		return " (the default)"
+	}
+	return ""
+}
+
+// ref renders another field's value in a message, "epoch_ms = 50", marked
+// as a default when the file omitted it.
+func (d *Design) ref(field string, v any) string {
+	return fmt.Sprintf("%s = %v%s", field[strings.LastIndexByte(field, '.')+1:], v, d.defaultNote(field))
 }
 
 // Variation lists alternative values for one design field. Each value
@@ -124,8 +181,11 @@ type Prior struct {
 
 // Hypothesis is a precision family with its parameters (model.md §2).
 type Hypothesis struct {
-	Name   string           `json:"name"`
-	Family string           `json:"family"`
+	Name   string `json:"name"`
+	Family string `json:"family"`
+	// KnotsS are the knot times t_i of the knots family, in seconds from
+	// cue onset, strictly increasing; other families take none.
+	KnotsS []float64        `json:"knots_s,omitempty"`
 	Params map[string]Param `json:"params"`
 }
 
@@ -143,10 +203,15 @@ func (p Param) Free() bool { return p.Value == nil }
 
 // Generate is the distribution of true values over a free parameter's
 // range: uniform, normal (mean, sd; truncated to the range) or loguniform.
+// Min and Max, when given, narrow the generating range inside the fit's
+// range (uniform and loguniform over [Min, Max], normal truncated to it),
+// so that true values stay away from the bounds the fit can reach.
 type Generate struct {
-	Dist string  `json:"dist"`
-	Mean float64 `json:"mean,omitempty"`
-	SD   float64 `json:"sd,omitempty"`
+	Dist string   `json:"dist"`
+	Mean float64  `json:"mean,omitempty"`
+	SD   float64  `json:"sd,omitempty"`
+	Min  *float64 `json:"min,omitempty"`
+	Max  *float64 `json:"max,omitempty"`
 }
 
 // Replication holds the group-level settings (model.md §7).
@@ -155,6 +220,8 @@ type Replication struct {
 	Replicates   int     `json:"replicates"`
 	PXPThreshold float64 `json:"pxp_threshold"`
 	TargetRate   float64 `json:"target_rate"`
+	// groupSizesDefault is true when the file omitted group_sizes.
+	groupSizesDefault bool
 }
 
 // Measures lists the allowed measures.
@@ -195,6 +262,7 @@ func (s *Study) FillDefaults() {
 	r := &s.Replication
 	if len(r.GroupSizes) == 0 {
 		r.GroupSizes = DefaultGroupSizes(s.smallestPool())
+		r.groupSizesDefault = true
 	}
 	if r.Replicates == 0 {
 		r.Replicates = 500
@@ -277,90 +345,135 @@ var DefaultCTIms = []int{300, 600, 900, 1200}
 // FillDefaults replaces every zero field of the design by its default.
 func (d *Design) FillDefaults() {
 	if d.Streams == 0 {
+		d.markDefault("streams")
 		d.Streams = DefaultStreams
 	}
 	if d.Items == 0 {
+		d.markDefault("items")
 		d.Items = DefaultItems
 	}
 	if d.Validity == 0 {
+		d.markDefault("validity")
 		d.Validity = DefaultValidity
 	}
 	if len(d.CTIms) == 0 {
+		d.markDefault("cti_ms")
 		d.CTIms = append([]int(nil), DefaultCTIms...)
 	}
 	if len(d.CTIWeights) == 0 {
+		d.markDefault("cti_weights")
 		d.CTIWeights = make([]float64, len(d.CTIms))
 		for i := range d.CTIWeights {
 			d.CTIWeights[i] = 1
 		}
 	}
 	if d.TrialsPerCTI == 0 {
+		d.markDefault("trials_per_cti")
 		d.TrialsPerCTI = DefaultTrialsPerCTI
 	}
 	if d.Participants == 0 {
+		d.markDefault("participants")
 		d.Participants = DefaultParticipants
 	}
 	if len(d.Measures) == 0 {
+		d.markDefault("measures")
 		d.Measures = []string{"rt", "accuracy"}
 	}
 	if d.PresentationMs == 0 {
+		d.markDefault("presentation_ms")
 		d.PresentationMs = DefaultPresentationMs
 	}
 	if d.ResponseWindowMs == 0 {
+		d.markDefault("response_window_ms")
 		d.ResponseWindowMs = DefaultResponseWindowMs
 	}
 	if d.EpochMs == 0 {
+		d.markDefault("epoch_ms")
 		d.EpochMs = DefaultEpochMs
 	}
 	if d.EEGBinMs == 0 {
+		d.markDefault("eeg_bin_ms")
 		d.EEGBinMs = DefaultEEGBinMs
 	}
 	if d.ITIms == 0 {
+		d.markDefault("iti_ms")
 		d.ITIms = DefaultITIms
 	}
 	a := &d.Agent
 	if a.CueReliability == 0 && d.Streams > 0 {
+		d.markDefault("agent.cue_reliability")
 		// A likelihood ratio of 4/3 per glance: ρ/((1−ρ)/(L−1)) = 4/3.
 		a.CueReliability = 4 / (3*float64(d.Streams) + 1)
 	}
 	if a.ItemFidelity == 0 {
+		d.markDefault("agent.item_fidelity")
 		a.ItemFidelity = 0.6
 	}
 	if a.MarkerReliability == 0 {
+		d.markDefault("agent.marker_reliability")
 		a.MarkerReliability = 0.7
 	}
 	if a.GainLevels == 0 {
+		d.markDefault("agent.gain_levels")
 		a.GainLevels = 9
 	}
 	if a.GainMin == 0 && a.GainMax == 0 {
+		d.markDefault("agent.gain_min")
+		d.markDefault("agent.gain_max")
 		a.GainMin, a.GainMax = 0.1, 2.0
 	}
 	if a.IterationsPerEpoch == 0 {
+		d.markDefault("agent.iterations_per_epoch")
 		a.IterationsPerEpoch = 16
 	}
 	if a.TimeConstant == 0 {
+		d.markDefault("agent.time_constant")
 		a.TimeConstant = 4
 	}
 	if a.Criterion == 0 {
+		d.markDefault("agent.criterion")
 		a.Criterion = 0.9
 	}
 	if a.ChoiceTemperature == 0 {
+		d.markDefault("agent.choice_temperature")
 		a.ChoiceTemperature = 1
 	}
 	m := &d.Measurement
-	fill := func(p *Prior, def Prior) {
+	fill := func(name string, p *Prior, def Prior) {
 		if p.Dist == "" {
 			*p = def
+			d.markDefault("measurement." + name)
 		}
 	}
-	fill(&m.RTBase, Prior{Dist: "normal", Mean: 250, SD: 30})
-	fill(&m.RTScale, Prior{Dist: "normal", Mean: 1, SD: 0.1, Min: fptr(0.5), Max: fptr(2)})
-	fill(&m.RTSD, Prior{Dist: "uniform", Min: fptr(40), Max: fptr(80)})
-	fill(&m.Lapse, Prior{Dist: "uniform", Min: fptr(0), Max: fptr(0.05)})
-	fill(&m.EEGOffset, Prior{Dist: "normal", Mean: 0, SD: 0.5})
-	fill(&m.EEGGain, Prior{Dist: "normal", Mean: 2, SD: 0.3, Min: fptr(0.5), Max: fptr(5)})
-	fill(&m.EEGSD, Prior{Dist: "uniform", Min: fptr(0.3), Max: fptr(0.6)})
-	fill(&m.EEGAR, Prior{Dist: "uniform", Min: fptr(0), Max: fptr(0.5)})
+	fill("rt_base", &m.RTBase, Prior{Dist: "normal", Mean: 250, SD: 30})
+	fill("rt_scale", &m.RTScale, Prior{Dist: "normal", Mean: 1, SD: 0.1, Min: fptr(0.5), Max: fptr(2)})
+	fill("rt_sd", &m.RTSD, Prior{Dist: "uniform", Min: fptr(40), Max: fptr(80)})
+	fill("lapse", &m.Lapse, Prior{Dist: "uniform", Min: fptr(0), Max: fptr(0.05)})
+	fill("eeg_offset", &m.EEGOffset, Prior{Dist: "normal", Mean: 0, SD: 0.5})
+	fill("eeg_gain", &m.EEGGain, Prior{Dist: "normal", Mean: 2, SD: 0.3, Min: fptr(0.5), Max: fptr(5)})
+	fill("eeg_sd", &m.EEGSD, Prior{Dist: "uniform", Min: fptr(0.3), Max: fptr(0.6)})
+	fill("eeg_ar", &m.EEGAR, Prior{Dist: "uniform", Min: fptr(0), Max: fptr(0.5)})
+	d.recordDefaults()
+}
+
+func (d *Design) markDefault(field string) {
+	if d.defaulted == nil {
+		d.defaulted = map[string]string{}
+	}
+	d.defaulted[field] = ""
+}
+
+// recordDefaults stores the value each newly defaulted field took.
+func (d *Design) recordDefaults() {
+	var t any
+	for f, v := range d.defaulted {
+		if v == "" {
+			if t == nil {
+				t = d.tree()
+			}
+			d.defaulted[f] = fieldIn(t, f)
+		}
+	}
 }
 
 func fptr(v float64) *float64 { return &v }

@@ -3,6 +3,7 @@ package models
 import (
 	"fmt"
 	"math"
+	"regexp"
 	"slices"
 	"sort"
 	"strconv"
@@ -33,6 +34,9 @@ type ValidationError struct {
 	// (MaxFits): the file is well formed but asks for too many fits, which
 	// a service reports as over its cap rather than as a malformed file.
 	OverBudget bool
+	// Warnings are the study's warnings (Study.Warnings) where the file
+	// decoded far enough to find them.
+	Warnings []Problem
 }
 
 // Error lists the problems one per line.
@@ -219,14 +223,14 @@ func designProblems(d *Design) []Problem {
 		itemsLo = L
 	}
 	if d.Items < itemsLo || d.Items > maxItems {
-		c.add("items", "items must be in [streams, %d] = [%d, %d], got %d", maxItems, itemsLo, maxItems, d.Items)
+		c.add("items", "items must be in [streams, %d] = [%d, %d]%s, got %d", maxItems, itemsLo, maxItems, d.streamsNote(streamsOK), d.Items)
 	}
 	itemsOK := d.Items >= 2 && d.Items <= maxItems
 
 	if streamsOK {
 		lo := 1 / float64(L)
 		if !(d.Validity >= lo-validityTolerance && d.Validity <= 1) {
-			c.add("validity", "validity must be in [1/streams, 1] = [%s, 1], got %s", g3(lo), g(d.Validity))
+			c.add("validity", "validity must be in [1/streams, 1] = [%s, 1]%s, got %s", g3(lo), d.streamsNote(true), g(d.Validity))
 		}
 	} else if !(d.Validity > 0 && d.Validity <= 1) {
 		c.add("validity", "validity must be in (0, 1], got %s", g(d.Validity))
@@ -247,7 +251,7 @@ func designProblems(d *Design) []Problem {
 			continue
 		}
 		if epochOK && t%epoch != 0 {
-			c.add(p, "%s must be a whole multiple of epoch_ms = %d, got %d", p, epoch, t)
+			c.add(p, "%s must be a whole multiple of %s, got %d", p, d.ref("epoch_ms", epoch), t)
 		}
 		if j, dup := seen[t]; dup {
 			c.add("cti_ms", "cti_ms must not repeat a value: cti_ms[%d] and cti_ms[%d] are both %d", j, i, t)
@@ -300,7 +304,7 @@ func designProblems(d *Design) []Problem {
 			return false
 		}
 		if epochOK && v%epoch != 0 {
-			c.add(name, "%s must be a whole multiple of epoch_ms = %d, got %d", name, epoch, v)
+			c.add(name, "%s must be a whole multiple of %s, got %d", name, d.ref("epoch_ms", epoch), v)
 			return false
 		}
 		return true
@@ -308,7 +312,7 @@ func designProblems(d *Design) []Problem {
 	presOK := timed("presentation_ms", d.PresentationMs)
 	windowOK := timed("response_window_ms", d.ResponseWindowMs)
 	if presOK && windowOK && d.ResponseWindowMs < d.PresentationMs {
-		c.add("response_window_ms", "response_window_ms must be >= presentation_ms = %d, got %d", d.PresentationMs, d.ResponseWindowMs)
+		c.add("response_window_ms", "response_window_ms must be >= %s, got %d", d.ref("presentation_ms", d.PresentationMs), d.ResponseWindowMs)
 	}
 	if timed("eeg_bin_ms", d.EEGBinMs) && d.HasMeasure("eeg") && minCTI > 0 && d.EEGBinMs > minCTI {
 		c.add("eeg_bin_ms", "eeg_bin_ms must be <= the shortest CTI (%d ms) when eeg is measured, got %d", minCTI, d.EEGBinMs)
@@ -320,7 +324,31 @@ func designProblems(d *Design) []Problem {
 
 	agentProblems(c, d, streamsOK, itemsOK)
 	measurementProblems(c, &d.Measurement)
+	for i, p := range c.out {
+		if f := d.defaultedField(p.Path); f != "" {
+			c.out[i].Problem += fmt.Sprintf(" (%s is not in the file: that is its default)", f)
+		}
+	}
 	return c.out
+}
+
+// defaultedField returns the defaulted field a path (relative to the
+// design) lies in, "" when the file gave it.
+func (d *Design) defaultedField(path string) string {
+	for f := range d.defaulted {
+		if (path == f || strings.HasPrefix(path, f+".") || strings.HasPrefix(path, f+"[")) && d.Defaulted(f) {
+			return f
+		}
+	}
+	return ""
+}
+
+// streamsNote marks the streams a bound derives from as the default.
+func (d *Design) streamsNote(ok bool) string {
+	if ok && d.Defaulted("streams") {
+		return fmt.Sprintf(" with streams = %d (the default)", d.Streams)
+	}
+	return ""
 }
 
 func agentProblems(c *checker, d *Design, streamsOK, itemsOK bool) {
@@ -328,7 +356,7 @@ func agentProblems(c *checker, d *Design, streamsOK, itemsOK bool) {
 	if streamsOK {
 		lo := 1 / float64(d.Streams)
 		if !(a.CueReliability > lo && a.CueReliability <= 1) {
-			c.add("agent.cue_reliability", "cue_reliability must be in (1/streams, 1] = (%s, 1], got %s", g3(lo), g(a.CueReliability))
+			c.add("agent.cue_reliability", "cue_reliability must be in (1/streams, 1] = (%s, 1]%s, got %s", g3(lo), d.streamsNote(true), g(a.CueReliability))
 		}
 	} else if !(a.CueReliability > 0 && a.CueReliability <= 1) {
 		c.add("agent.cue_reliability", "cue_reliability must be in (0, 1], got %s", g(a.CueReliability))
@@ -348,7 +376,7 @@ func agentProblems(c *checker, d *Design, streamsOK, itemsOK bool) {
 		c.add("agent.gain_min", "gain_min must be > 0, got %s", g(a.GainMin))
 	}
 	if !(a.GainMax > a.GainMin) || !finite(a.GainMax) {
-		c.add("agent.gain_max", "gain_max must be > gain_min = %s, got %s", g(a.GainMin), g(a.GainMax))
+		c.add("agent.gain_max", "gain_max must be > %s, got %s", d.ref("agent.gain_min", g(a.GainMin)), g(a.GainMax))
 	}
 	intRange(c, "agent.iterations_per_epoch", "iterations_per_epoch", a.IterationsPerEpoch, 1, maxIterationsPerEpoch)
 	if !(a.TimeConstant >= 1) || !finite(a.TimeConstant) {
@@ -504,16 +532,17 @@ func hypothesisProblems(c *checker, prefix string, hy *Hypothesis, designs []Des
 		c.add(prefix+".family", "family must be one of %s, got %q", strings.Join(Families, ", "), hy.Family)
 		return
 	}
+	knotsOK := knotsProblems(c, prefix, hy, fam, designs)
 	spec := fam.Params(*hy)
 	pp := prefix + ".params"
 	var missing, extra []string
 	for _, ps := range spec {
-		if _, ok := hy.Params[ps.Name]; ps.Required() && !ok {
+		if _, ok := hy.Params[ps.Name]; ps.Required() && !ok && knotsOK {
 			missing = append(missing, ps.Name)
 		}
 	}
 	for name := range hy.Params {
-		if _, ok := findParam(spec, name); !ok {
+		if _, ok := findParam(spec, name); !ok && (knotsOK || !fam.matchesPattern(name)) {
 			extra = append(extra, name)
 		}
 	}
@@ -522,7 +551,7 @@ func hypothesisProblems(c *checker, prefix string, hy *Hypothesis, designs []Des
 	}
 	if len(extra) > 0 {
 		sort.Strings(extra)
-		c.add(pp, "%s", unknownParamsMessage(hy.Family, extra))
+		c.add(pp, "%s", unknownParamsMessage(*hy, extra))
 	}
 	wellFormed := map[string]bool{}
 	for _, ps := range spec {
@@ -531,8 +560,88 @@ func hypothesisProblems(c *checker, prefix string, hy *Hypothesis, designs []Des
 			continue
 		}
 		wellFormed[ps.Name] = paramProblems(c, pp+"."+ps.Name, ps, p)
+		if wellFormed[ps.Name] && ps.Gain && ps.Name != "low" && ps.Name != "high" {
+			gainRangeProblem(c, pp+"."+ps.Name, ps.Name, p, designs)
+		}
 	}
 	gainProblems(c, pp, hy, wellFormed, designs)
+}
+
+// knotsProblems checks knots_s: required for a family that uses knots (2..12
+// times in seconds, strictly increasing, within [0, the longest CTI] of every
+// design), not allowed for the others. It reports whether the knot list is
+// good enough to name the family's parameters.
+func knotsProblems(c *checker, prefix string, hy *Hypothesis, fam Family, designs []Design) bool {
+	kp := prefix + ".knots_s"
+	if !fam.UsesKnots {
+		if hy.KnotsS != nil {
+			c.add(kp, "knots_s is only for family knots, not %s", fam.Name)
+		}
+		return true
+	}
+	n := len(hy.KnotsS)
+	if n < MinKnots || n > MaxKnots {
+		if hy.KnotsS == nil {
+			c.add(kp, "family knots needs knots_s, the knot times in seconds from cue onset (%d..%d, strictly increasing)", MinKnots, MaxKnots)
+		} else {
+			c.add(kp, "%s", countText("knots_s", MinKnots, MaxKnots, n))
+		}
+		return false
+	}
+	longest, from := math.Inf(1), ""
+	for _, d := range designs {
+		if t := float64(maxInt(d.CTIms)) / 1000; len(d.CTIms) > 0 && t > 0 && t < longest {
+			longest, from = t, d.Name
+		}
+	}
+	for i, t := range hy.KnotsS {
+		p := fmt.Sprintf("%s[%d]", kp, i)
+		switch {
+		case !finite(t) || t < 0:
+			c.add(p, "knots_s[%d] must be a finite number of seconds >= 0, got %s", i, g(t))
+		case i > 0 && !(t > hy.KnotsS[i-1]):
+			c.add(p, "knots_s must be strictly increasing: knots_s[%d] = %s is not above knots_s[%d] = %s", i, g(t), i-1, g(hy.KnotsS[i-1]))
+		case t > longest:
+			c.add(p, "knots_s[%d] = %s s is beyond the longest CTI of design %q (%s s); knots are in seconds and must lie within [0, the longest CTI]", i, g(t), from, g(longest))
+		}
+	}
+	return true
+}
+
+// matchesPattern reports whether name fits the family's parameter pattern
+// (false for a family with a fixed list).
+func (f Family) matchesPattern(name string) bool {
+	if f.ParamPattern == "" {
+		return false
+	}
+	return regexp.MustCompile(f.ParamPattern).MatchString(name)
+}
+
+// gainRangeProblem checks that every value a gain-unit parameter can take
+// lies within [gain_min, gain_max] of every design.
+func gainRangeProblem(c *checker, path, name string, p Param, designs []Design) {
+	lo, hi := span(p)
+	var bad []string
+	first := ""
+	for _, d := range designs {
+		a := d.Agent
+		if !(a.GainMin > 0 && a.GainMax > a.GainMin) {
+			continue // reported for the design itself
+		}
+		if lo < a.GainMin || hi > a.GainMax {
+			if first == "" {
+				first = fmt.Sprintf("design %q has [%s, %s]%s", d.Name, g(a.GainMin), g(a.GainMax), d.defaultNote("agent.gain_min"))
+			}
+			bad = append(bad, d.Name)
+		}
+	}
+	if len(bad) > 0 {
+		more := ""
+		if len(bad) > 1 {
+			more = fmt.Sprintf(" (and %d more)", len(bad)-1)
+		}
+		c.add(path, "%s must be within [gain_min, gain_max] of every design; %s%s", spanText(name, p), first, more)
+	}
 }
 
 // paramProblems checks one parameter and reports whether it is well formed.
@@ -578,29 +687,79 @@ func paramProblems(c *checker, path string, ps ParamSpec, p Param) bool {
 		ok = false
 	}
 	if gen := p.Generate; gen != nil {
-		gp := path + ".generate"
-		switch gen.Dist {
-		case "uniform":
-		case "normal":
-			if !(gen.SD > 0) || !finite(gen.SD) {
-				c.add(gp, "generate: dist normal needs sd > 0, got %s", g(gen.SD))
-				ok = false
-			}
-			if !finite(gen.Mean) {
-				c.add(gp+".mean", "generate mean must be a finite number, got %s", g(gen.Mean))
-				ok = false
-			}
-		case "loguniform":
-			if ok && !(*p.Min > 0) {
-				c.add(path+".min", "%s min must be > 0 for a loguniform generate distribution, got %s", name, g(*p.Min))
-				ok = false
-			}
-		case "":
-			c.add(gp, "generate needs field %q", "dist")
+		ok = generateProblems(c, path, name, p, ok) && ok
+	}
+	return ok
+}
+
+// generateProblems checks a free parameter's generating distribution: its
+// dist, a normal's sd and mean, and the optional sub-range [generate.min,
+// generate.max] inside the fit's range. rangeOK says the fit's range itself
+// is well formed. It reports whether the distribution is well formed.
+func generateProblems(c *checker, path, name string, p Param, rangeOK bool) bool {
+	gen := p.Generate
+	gp := path + ".generate"
+	ok := true
+	switch gen.Dist {
+	case "uniform", "loguniform":
+	case "normal":
+		if !(gen.SD > 0) || !finite(gen.SD) {
+			c.add(gp, "generate: dist normal needs sd > 0, got %s", g(gen.SD))
 			ok = false
-		default:
-			c.add(gp+".dist", "generate dist must be one of %s, got %q", generateDists, gen.Dist)
+		}
+		if !finite(gen.Mean) {
+			c.add(gp+".mean", "generate mean must be a finite number, got %s", g(gen.Mean))
 			ok = false
+		}
+	case "":
+		c.add(gp, "generate needs field %q", "dist")
+		return false
+	default:
+		c.add(gp+".dist", "generate dist must be one of %s, got %q", generateDists, gen.Dist)
+		return false
+	}
+	if !rangeOK {
+		return ok
+	}
+	lo, hi := *p.Min, *p.Max
+	fit := fmt.Sprintf("the fit's range [min, max] = [%s, %s]", g(lo), g(hi))
+	subOK := true
+	for _, b := range []struct {
+		field string
+		v     *float64
+	}{{"min", gen.Min}, {"max", gen.Max}} {
+		if b.v == nil {
+			continue
+		}
+		if !finite(*b.v) || *b.v < lo || *b.v > hi {
+			c.add(gp+"."+b.field, "generate %s must lie within %s, got %s", b.field, fit, g(*b.v))
+			subOK = false
+		}
+	}
+	if !subOK {
+		return false
+	}
+	glo, ghi := p.GenerateRange()
+	if !(glo < ghi) {
+		c.add(gp, "generate min must be < generate max (the generating range), got [%s, %s]", g(glo), g(ghi))
+		return false
+	}
+	where := fit
+	if gen.Min != nil || gen.Max != nil {
+		where = fmt.Sprintf("the generating range [%s, %s]", g(glo), g(ghi))
+	}
+	switch gen.Dist {
+	case "loguniform":
+		// The fit's own range must be positive too: its prediction grid
+		// is spaced on the log scale over [min, max].
+		if !(lo > 0) {
+			c.add(path+".min", "%s min must be > 0 for a loguniform generate distribution, got %s", name, g(lo))
+			return false
+		}
+	case "normal":
+		if ok && (gen.Mean < glo || gen.Mean > ghi) {
+			c.add(gp+".mean", "generate mean = %s must lie within %s; a normal truncated far from its mean piles its draws at one bound", g(gen.Mean), where)
+			return false
 		}
 	}
 	return ok
@@ -652,7 +811,7 @@ func gainProblems(c *checker, pp string, hy *Hypothesis, wellFormed map[string]b
 			}
 			if lo < a.GainMin || hi > a.GainMax {
 				if first == "" {
-					first = fmt.Sprintf("design %q has [%s, %s]", d.Name, g(a.GainMin), g(a.GainMax))
+					first = fmt.Sprintf("design %q has [%s, %s]%s", d.Name, g(a.GainMin), g(a.GainMax), d.defaultNote("agent.gain_min"))
 				}
 				bad = append(bad, d.Name)
 			}
@@ -729,7 +888,11 @@ func (r *Replication) Problems(designs []Design) []Problem {
 		}
 		for _, d := range designs {
 			if d.Participants >= 1 && n > d.Participants {
-				c.add(p, "group_sizes[%d] = %d must be <= participants of every design; design %q has %d", k, n, d.Name, d.Participants)
+				note := ""
+				if r.groupSizesDefault {
+					note = fmt.Sprintf(" (group_sizes is not in the file and defaults to %s: 5, 10, 20, ... up to half the smallest design's participants, at least 2)", intsText(r.GroupSizes))
+				}
+				c.add(p, "group_sizes[%d] = %d must be <= participants of every design; design %q has %d%s%s", k, n, d.Name, d.Participants, d.defaultNote("participants"), note)
 				break
 			}
 		}
@@ -792,6 +955,14 @@ func (s *Study) TotalFits() int {
 		all = append(all, ds...)
 	}
 	return DesignsFits(all, len(s.Hypotheses))
+}
+
+func intsText(xs []int) string {
+	parts := make([]string, len(xs))
+	for i, x := range xs {
+		parts[i] = strconv.Itoa(x)
+	}
+	return "[" + strings.Join(parts, ", ") + "]"
 }
 
 // thousands prints n with comma separators: 5000000 → "5,000,000".

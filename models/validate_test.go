@@ -24,14 +24,18 @@ const invalidDir = "../testdata/studies/invalid"
 var invalidCases = map[string]struct{ path, fragment string }{
 	"cti-too-long":                 {"designs[0].cti_ms[1]", "must be in 1..60000"},
 	"budget-over-limit":            {"", "the study needs 5,760,000 fits"},
-	"cti-not-epoch-multiple":       {"designs[0].cti_ms[1]", "cti_ms[1] must be a whole multiple of epoch_ms = 50, got 625"},
+	"cti-not-epoch-multiple":       {"designs[0].cti_ms[1]", "cti_ms[1] must be a whole multiple of epoch_ms = 50 (the default), got 625"},
 	"cti-weights-length":           {"designs[0].cti_weights", "one weight per CTI (4 in cti_ms), got 3"},
 	"cue-reliability-at-chance":    {"designs[0].agent.cue_reliability", "cue_reliability must be in (1/streams, 1] = (0.333, 1], got 0.3"},
 	"design-names-repeat":          {"designs[1].name", `name "harbour-radio" is used by designs[0] too`},
 	"eeg-ar-lognormal":             {"designs[0].measurement.eeg_ar.dist", "eeg_ar must be in (-1, 1)"},
 	"eeg-bin-wider-than-cti":       {"designs[0].eeg_bin_ms", "eeg_bin_ms must be <= the shortest CTI (300 ms) when eeg is measured, got 400"},
-	"family-unknown":               {"hypotheses[1].family", `family must be one of constant, linear, exponential, saturating, logistic, hazard, got "quadratic"`},
+	"family-unknown":               {"hypotheses[1].family", `family must be one of constant, linear, exponential, saturating, logistic, hazard, knots, got "quadratic"`},
 	"fixed-prior-without-value":    {"designs[0].measurement.eeg_offset", "dist fixed needs value"},
+	"generate-field-not-for-dist":  {"hypotheses[0].params.level.generate", `generate: dist uniform takes no fields "mean", "sd"; allowed: dist, max, min`},
+	"generate-mean-outside-range":  {"hypotheses[0].params.level.generate.mean", "generate mean = 0.9 must lie within the fit's range [min, max] = [0.2, 0.6]"},
+	"generate-subrange-outside":    {"hypotheses[0].params.level.generate.max", "generate max must lie within the fit's range [min, max] = [0.2, 1.8], got 2.5"},
+	"knots-not-increasing":         {"hypotheses[1].knots_s[2]", "knots_s must be strictly increasing: knots_s[2] = 0.6 is not above knots_s[1] = 0.9"},
 	"gain-range-reversed":          {"designs[0].agent.gain_max", "gain_max must be > gain_min = 2, got 1"},
 	"group-size-over-participants": {"replication.group_sizes[2]", `group_sizes[2] = 80 must be <= participants of every design; design "harbour-radio" has 40`},
 	"hypothesis-names-repeat":      {"hypotheses[1].name", `name "steady" is used by hypotheses[0] too`},
@@ -51,7 +55,7 @@ var invalidCases = map[string]struct{ path, fragment string }{
 	"participants-not-integer":     {"designs[0].participants", `participants must be an integer, got "many"`},
 	"prior-field-not-for-dist":     {"designs[0].measurement.lapse", `lapse: dist uniform takes no field "mean"; allowed: dist, max, min`},
 	"pxp-threshold-one":            {"replication.pxp_threshold", "pxp_threshold must be in (0, 1), got 1"},
-	"response-window-short":        {"designs[0].response_window_ms", "response_window_ms must be >= presentation_ms = 400, got 200"},
+	"response-window-short":        {"designs[0].response_window_ms", "response_window_ms must be >= presentation_ms = 400 (the default), got 200"},
 	"rt-sd-normal-untruncated":     {"designs[0].measurement.rt_sd.min", "a normal prior on rt_sd must be truncated with min > 0"},
 	"seed-negative":                {"seed", "seed must be in 0..18446744073709551615, got -1"},
 	"streams-too-many":             {"designs[0].streams", "streams must be in 2..6, got 7"},
@@ -194,7 +198,7 @@ func TestValidateProblems(t *testing.T) {
 		path, fragm string
 	}{
 		{"items below streams", func(s *Study) { s.Designs[0].Streams, s.Designs[0].Items = 4, 3 }, "designs[0].items", "items must be in [streams, 32] = [4, 32], got 3"},
-		{"validity above one", func(s *Study) { s.Designs[0].Validity = 1.01 }, "designs[0].validity", "[0.333, 1], got 1.01"},
+		{"validity above one", func(s *Study) { s.Designs[0].Validity = 1.01 }, "designs[0].validity", "[0.333, 1] with streams = 3 (the default), got 1.01"},
 		{"validity at chance is allowed to float precision", func(s *Study) { s.Designs[0].Validity = 0.3333333333 }, "", ""},
 		{"cti empty", func(s *Study) { s.Designs[0].CTIms, s.Designs[0].CTIWeights = nil, nil }, "designs[0].cti_ms", "cti_ms must list at least one CTI"},
 		{"cti negative", func(s *Study) { s.Designs[0].CTIms[2] = -900 }, "designs[0].cti_ms[2]", "cti_ms[2] must be > 0, got -900"},
@@ -208,10 +212,10 @@ func TestValidateProblems(t *testing.T) {
 		{"measure unknown", func(s *Study) { s.Designs[0].Measures = []string{"rt", "erp"} }, "designs[0].measures[1]", `measures[1] must be one of rt, accuracy, eeg, got "erp"`},
 		{"epoch zero", func(s *Study) { s.Designs[0].EpochMs = 0 }, "designs[0].epoch_ms", "epoch_ms must be in 1..1000, got 0"},
 		{"epoch too long", func(s *Study) { s.Designs[0].EpochMs = 2000 }, "designs[0].epoch_ms", "in 1..1000, got 2000"},
-		{"presentation not a multiple", func(s *Study) { s.Designs[0].PresentationMs = 420 }, "designs[0].presentation_ms", "presentation_ms must be a whole multiple of epoch_ms = 50, got 420"},
-		{"cue not a multiple", func(s *Study) { s.Designs[0].CueMs = 120 }, "designs[0].cue_ms", "cue_ms must be a whole multiple of epoch_ms = 50, got 120"},
+		{"presentation not a multiple", func(s *Study) { s.Designs[0].PresentationMs = 420 }, "designs[0].presentation_ms", "presentation_ms must be a whole multiple of epoch_ms = 50 (the default), got 420"},
+		{"cue not a multiple", func(s *Study) { s.Designs[0].CueMs = 120 }, "designs[0].cue_ms", "cue_ms must be a whole multiple of epoch_ms = 50 (the default), got 120"},
 		{"cue negative", func(s *Study) { s.Designs[0].CueMs = -50 }, "designs[0].cue_ms", "cue_ms must be > 0, got -50"},
-		{"eeg bin not a multiple", func(s *Study) { s.Designs[0].EEGBinMs = 75 }, "designs[0].eeg_bin_ms", "whole multiple of epoch_ms = 50, got 75"},
+		{"eeg bin not a multiple", func(s *Study) { s.Designs[0].EEGBinMs = 75 }, "designs[0].eeg_bin_ms", "whole multiple of epoch_ms = 50 (the default), got 75"},
 		{"eeg bin wide without eeg is fine", func(s *Study) { s.Designs[0].EEGBinMs = 500 }, "", ""},
 		{"item fidelity at chance", func(s *Study) { s.Designs[0].Agent.ItemFidelity = 0.125 }, "designs[0].agent.item_fidelity", "item_fidelity must be in (1/items, 1] = (0.125, 1], got 0.125"},
 		{"marker at chance", func(s *Study) { s.Designs[0].Agent.MarkerReliability = 0.5 }, "designs[0].agent.marker_reliability", "marker_reliability must be in (0.5, 1], got 0.5"},
@@ -350,7 +354,7 @@ func TestLoadStudyReportsEverythingOnce(t *testing.T) {
 	got := problemsOf(t, err)
 	want := []Problem{
 		{"designs[0].cti_ms", "cti_ms must not repeat a value: cti_ms[0] and cti_ms[2] are both 300"},
-		{"designs[0].cti_ms[1]", "cti_ms[1] must be a whole multiple of epoch_ms = 50, got 625"},
+		{"designs[0].cti_ms[1]", "cti_ms[1] must be a whole multiple of epoch_ms = 50 (the default), got 625"},
 		{"designs[0].streams", "streams must be in 2..6, got 7"},
 		{"hypotheses[0].params", `parameter "slop" is not allowed for family linear; allowed: slope, low, high`},
 		{"hypotheses[1].params.tau", "tau min must be < max, got min = 1, max = 0.5"},
@@ -548,13 +552,19 @@ func TestSchemaMatchesGo(t *testing.T) {
 	// built schema enforces each family's required parameters: a
 	// hypothesis missing one is rejected at its params path, and one with
 	// every required parameter passes.
-	if got := len(hyp["allOf"].([]any)); got != len(Families) {
-		t.Errorf("schema has %d family branches, want %d", got, len(Families))
+	// One branch per family with a fixed parameter list; knots has one
+	// requiring knots_s and one per knot count.
+	if got, want := len(hyp["allOf"].([]any)), len(Families)-1+1+MaxKnots-MinKnots+1; got != want {
+		t.Errorf("schema has %d family branches, want %d", got, want)
 	}
 	for _, f := range families {
 		var required []string
 		params := map[string]any{}
-		for _, p := range f.Params(Hypothesis{Family: f.Name}) {
+		h := Hypothesis{Family: f.Name}
+		if f.UsesKnots {
+			h.KnotsS = []float64{0.1, 0.2, 0.3}
+		}
+		for _, p := range f.Params(h) {
 			if p.Required() {
 				required = append(required, p.Name)
 				params[p.Name] = map[string]any{"min": 0.1, "max": 0.9}
@@ -564,9 +574,13 @@ func TestSchemaMatchesGo(t *testing.T) {
 			t.Errorf("family %s has no required parameter", f.Name)
 		}
 		study := func(params map[string]any) []byte {
+			first := map[string]any{"name": "a", "family": f.Name, "params": params}
+			if h.KnotsS != nil {
+				first["knots_s"] = h.KnotsS
+			}
 			b, err := json.Marshal(map[string]any{"name": "x", "seed": 1,
 				"designs":    []any{map[string]any{"name": "d", "cti_ms": []int{300}}},
-				"hypotheses": []any{map[string]any{"name": "a", "family": f.Name, "params": params}, map[string]any{"name": "b", "family": "constant", "params": map[string]any{"level": map[string]any{"value": 1}}}}})
+				"hypotheses": []any{first, map[string]any{"name": "b", "family": "constant", "params": map[string]any{"level": map[string]any{"value": 1}}}}})
 			if err != nil {
 				t.Fatal(err)
 			}

@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"encoding/json"
 	"fmt"
+	"maps"
 	"math"
 	"slices"
 	"strings"
@@ -120,6 +121,7 @@ func setField(nd, orig *Design, field string, raw json.RawMessage) string {
 		// would silently repeat the design.
 		return typeWant(field)
 	}
+	delete(nd.defaulted, field) // the variant gives it
 	var err error
 	switch field {
 	case "cti_ms":
@@ -231,6 +233,7 @@ func valueText(raw json.RawMessage) string {
 // pointer with it.
 func (d Design) clone() Design {
 	c := d
+	c.defaulted = maps.Clone(d.defaulted)
 	c.CTIms = slices.Clone(d.CTIms)
 	c.CTIWeights = slices.Clone(d.CTIWeights)
 	c.Measures = slices.Clone(d.Measures)

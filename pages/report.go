@@ -96,7 +96,9 @@ type htmlView struct {
 	HasGroup   bool
 	// ITINote names each design's inter-trial interval for the notes on
 	// testing minutes.
-	ITINote  string
+	ITINote string
+	// Warnings are the study file's warnings (report.json "warnings").
+	Warnings []models.Problem
 	Sections []sectionLink
 	Timing   string
 	Method   methodView
@@ -287,7 +289,7 @@ func Report(r *recovery.Report) ([]byte, error) {
 	if r == nil {
 		panic("pages: Report: nil report")
 	}
-	v := htmlView{R: r, Ranking: newRankingView(r), Method: newMethodView(r.Method), ITINote: itiNote(r.Designs)}
+	v := htmlView{R: r, Ranking: newRankingView(r), Method: newMethodView(r.Method), ITINote: itiNote(r.Designs), Warnings: r.Warnings}
 	hypIndex := map[string]int{}
 	specs := map[string]models.Hypothesis{}
 	if r.StudyFile != nil {
@@ -340,20 +342,39 @@ func paramSummary(h models.Hypothesis) string {
 	}
 	sort.Strings(names)
 	var parts []string
+	if len(h.KnotsS) > 0 {
+		ts := make([]string, len(h.KnotsS))
+		for i, t := range h.KnotsS {
+			ts[i] = fmtG(t, 4)
+		}
+		parts = append(parts, "knots at "+strings.Join(ts, ", ")+" s")
+	}
 	for _, n := range names {
 		p := h.Params[n]
 		switch {
 		case p.Value != nil:
 			parts = append(parts, fmt.Sprintf("%s = %s", n, fmtG(*p.Value, 4)))
 		case p.Min != nil && p.Max != nil:
-			dist := "uniform"
-			if p.Generate != nil && p.Generate.Dist != "" {
-				dist = p.Generate.Dist
-			}
-			parts = append(parts, fmt.Sprintf("%s ∈ [%s, %s], %s", n, fmtG(*p.Min, 4), fmtG(*p.Max, 4), dist))
+			parts = append(parts, fmt.Sprintf("%s ∈ [%s, %s], true values %s", n, fmtG(*p.Min, 4), fmtG(*p.Max, 4), generateText(p)))
 		}
 	}
 	return strings.Join(parts, "; ")
+}
+
+// generateText states a free parameter's generating distribution with its
+// numbers: "uniform on [0.5, 1.5]", "loguniform on [0.05, 0.5]",
+// "normal(mean 0.2, sd 0.1) truncated to [0.02, 0.6]".
+func generateText(p models.Param) string {
+	lo, hi := p.GenerateRange()
+	on := fmt.Sprintf("[%s, %s]", fmtG(lo, 4), fmtG(hi, 4))
+	dist := "uniform"
+	if p.Generate != nil && p.Generate.Dist != "" {
+		dist = p.Generate.Dist
+	}
+	if dist == "normal" {
+		return fmt.Sprintf("normal(mean %s, sd %s) truncated to %s", fmtG(p.Generate.Mean, 4), fmtG(p.Generate.SD, 4), on)
+	}
+	return dist + " on " + on
 }
 
 func findDesign(r *recovery.Report, name string) *models.Design {

@@ -421,8 +421,7 @@ func TestHTMLReport(t *testing.T) {
 	if !strings.Contains(sectionBody(t, page, "look-alikes"), `<td class="num swap">−3.14</td>`) {
 		t.Error("look-alike swap not highlighted")
 	}
-	if !strings.Contains(sectionBody(t, page, "study"), "width ∈ [0.05, 0.3], uniform; midpoint") &&
-		!strings.Contains(sectionBody(t, page, "study"), "midpoint = 0.2; width ∈ [0.05, 0.3], uniform") {
+	if !strings.Contains(sectionBody(t, page, "study"), "midpoint = 0.2; width ∈ [0.05, 0.3], true values uniform on [0.05, 0.3]") {
 		t.Error("parameter summary missing")
 	}
 }
@@ -712,5 +711,34 @@ func TestRenderSVGHeader(t *testing.T) {
 	}
 	if _, err := heatmapChart(heatmapSpec{Label: "ragged", Names: []string{"a", "b"}, P: htmlMatrix([]float64{1, 0}, []float64{1})}); err == nil {
 		t.Error("ragged matrix accepted")
+	}
+}
+
+// TestHTMLStudyWarningsAndGenerators: the Study section lists the study
+// file's warnings, escaped, and states each generating distribution with
+// its numbers; without warnings it has no warnings list.
+func TestHTMLStudyWarningsAndGenerators(t *testing.T) {
+	r := htmlReport(true)
+	if strings.Contains(sectionBody(t, renderHTML(t, r), "study"), `class="warnings"`) {
+		t.Error("a report without warnings lists warnings")
+	}
+	r.Warnings = []models.Problem{{Path: "hypotheses[1].params.midpoint", Problem: "midpoint range [200, 1200] s <beyond>"}}
+	body := sectionBody(t, renderHTML(t, r), "study")
+	if !strings.Contains(body, `<li><code>hypotheses[1].params.midpoint</code>: midpoint range [200, 1200] s &lt;beyond&gt;</li>`) {
+		t.Errorf("warning missing or unescaped in the Study section:\n%s", body)
+	}
+	lo, hi := 0.05, 0.4
+	cases := []struct {
+		p    models.Param
+		want string
+	}{
+		{models.Param{Min: &lo, Max: &hi}, "uniform on [0.05, 0.4]"},
+		{models.Param{Min: &lo, Max: &hi, Generate: &models.Generate{Dist: "loguniform", Max: ptr(0.3)}}, "loguniform on [0.05, 0.3]"},
+		{models.Param{Min: &lo, Max: &hi, Generate: &models.Generate{Dist: "normal", Mean: 0.2, SD: 0.1, Min: ptr(0.1)}}, "normal(mean 0.2, sd 0.1) truncated to [0.1, 0.4]"},
+	}
+	for _, c := range cases {
+		if got := generateText(c.p); got != c.want {
+			t.Errorf("generateText = %q, want %q", got, c.want)
+		}
 	}
 }

@@ -54,20 +54,23 @@ func numMatrix(x [][]float64) [][]NullFloat {
 
 // Report is the outcome of a study: everything report.json holds.
 type Report struct {
-	Study      string          `json:"study"`
-	Seed       uint64          `json:"seed"`
-	Version    string          `json:"version"`
-	Hypotheses []string        `json:"hypotheses"`
-	Families   []string        `json:"families"`
-	Designs    []DesignReport  `json:"designs"`
-	Ranking    []DesignRank    `json:"design_ranking,omitempty"`
-	RankedBy   *RankingMethod  `json:"ranking,omitempty"`
-	Preferred  string          `json:"preferred_design,omitempty"`
-	Verdict    string          `json:"ranking_verdict,omitempty"`
-	Method     Method          `json:"method"`
-	Timing     Timing          `json:"timing"`
-	StudyFile  *models.Study   `json:"study_file"`
-	Fits       [][]DatasetFits `json:"-"` // per design: per-dataset fits, for fits.csv
+	Study      string         `json:"study"`
+	Seed       uint64         `json:"seed"`
+	Version    string         `json:"version"`
+	Hypotheses []string       `json:"hypotheses"`
+	Families   []string       `json:"families"`
+	Designs    []DesignReport `json:"designs"`
+	Ranking    []DesignRank   `json:"design_ranking,omitempty"`
+	RankedBy   *RankingMethod `json:"ranking,omitempty"`
+	Preferred  string         `json:"preferred_design,omitempty"`
+	Verdict    string         `json:"ranking_verdict,omitempty"`
+	Method     Method         `json:"method"`
+	Timing     Timing         `json:"timing"`
+	StudyFile  *models.Study  `json:"study_file"`
+	// Warnings are the study file's warnings (models.Study.Warnings):
+	// values allowed but likely a slip, each with its path.
+	Warnings []models.Problem `json:"warnings"`
+	Fits     [][]DatasetFits  `json:"-"` // per design: per-dataset fits, for fits.csv
 }
 
 // DatasetFits is one dataset's fits (every candidate), kept for fits.csv.
@@ -229,7 +232,10 @@ func (c *Compiled) Assemble(results []*ShardResult) (*Report, error) {
 	if err != nil {
 		return nil, err
 	}
-	rep := &Report{Study: s.Name, Seed: s.Seed, Version: Version, Method: CurrentMethod(), StudyFile: s}
+	rep := &Report{Study: s.Name, Seed: s.Seed, Version: Version, Method: CurrentMethod(), StudyFile: s, Warnings: s.Warnings()}
+	if rep.Warnings == nil {
+		rep.Warnings = []models.Problem{} // "warnings": [] rather than null
+	}
 	for _, h := range s.Hypotheses {
 		rep.Hypotheses = append(rep.Hypotheses, h.Name)
 		rep.Families = append(rep.Families, h.Family)

@@ -160,7 +160,19 @@ func setProblems(s *models.Study, set setFlags) []string {
 		for k, v := range trial.Hypotheses[i].Params {
 			params[k] = v
 		}
-		for k, v := range set[h] {
+		keys := make([]string, 0, len(set[h]))
+		for k := range set[h] {
+			keys = append(keys, k)
+		}
+		sort.Strings(keys)
+		for _, k := range keys {
+			v := set[h][k]
+			// A free parameter's range is the fit's: a value outside it is
+			// one no fit could reach.
+			if p, ok := params[k]; ok && p.Free() && p.Min != nil && p.Max != nil && (v < *p.Min || v > *p.Max) {
+				out = append(out, fmt.Sprintf("--set %s.%s=%s: %s must be within its range [%s, %s] in the study file (hypotheses[%d].params.%s)",
+					h, k, strconv.FormatFloat(v, 'g', -1, 64), k, strconv.FormatFloat(*p.Min, 'g', -1, 64), strconv.FormatFloat(*p.Max, 'g', -1, 64), i, k))
+			}
 			params[k] = models.Param{Value: &v}
 		}
 		trial.Hypotheses[i].Params = params
@@ -214,12 +226,20 @@ func loadStudyFile(path string, stderr io.Writer) (*models.Study, int) {
 	} else {
 		path = "the embedded demo study"
 	}
-	s, err := models.LoadStudy(data)
+	s, warnings, err := models.CheckStudy(data)
+	printWarnings(stderr, warnings)
 	if err != nil {
 		fmt.Fprintf(stderr, "discrimen: %s is not a valid study:\n%v\n", path, err)
 		return nil, 1
 	}
 	return s, 0
+}
+
+// printWarnings writes each warning as "warning: PATH: PROBLEM".
+func printWarnings(w io.Writer, warnings []models.Problem) {
+	for _, p := range warnings {
+		fmt.Fprintln(w, "warning: "+p.String())
+	}
 }
 
 // writePredictTable writes the table; its error is the first failed write

@@ -231,6 +231,7 @@ func TestPredictBadSet(t *testing.T) {
 		{"NaN", "early-lift.tau=NaN", 2, []string{`value of early-lift.tau must be a finite number, got "NaN"`}},
 		{"out of the family's domain", "early-lift.tau=-1", 2, []string{"--set early-lift: hypotheses[3].params.tau.value: tau value must be > 0, got -1"}},
 		{"no parameter", "early-lift=0.5", 2, []string{"HYPOTHESIS.PARAM=VALUE"}},
+		{"outside the range", "early-lift.tau=300", 2, []string{"--set early-lift.tau=300: tau must be within its range [0.05, 1] in the study file (hypotheses[3].params.tau)"}},
 	}
 	for _, tc := range cases {
 		t.Run(tc.name, func(t *testing.T) {

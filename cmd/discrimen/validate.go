@@ -12,9 +12,11 @@ import (
 
 // cmdValidate implements `discrimen validate STUDY.json`: it prints
 // "ok: NAME (D designs, H hypotheses, F fits)" and returns 0, or prints
-// every problem as "PATH: PROBLEM", one per line, and returns 1. Usage
-// errors and unreadable files return 2. D counts designs with their vary
-// blocks expanded, since each variant is run as a design.
+// every problem as "PATH: PROBLEM", one per line, and returns 1. Warnings
+// (values allowed but likely a slip) are printed as "warning: PATH:
+// PROBLEM" in either case and do not change the exit code. Usage errors
+// and unreadable files return 2. D counts designs with their vary blocks
+// expanded, since each variant is run as a design.
 func cmdValidate(args []string, stdout, stderr io.Writer) int {
 	fs := flag.NewFlagSet("validate", flag.ContinueOnError)
 	fs.SetOutput(stderr)
@@ -38,7 +40,7 @@ func cmdValidate(args []string, stdout, stderr io.Writer) int {
 		fmt.Fprintf(stderr, "discrimen validate: %v\n", err)
 		return 2
 	}
-	s, err := models.LoadStudy(data)
+	s, warnings, err := models.CheckStudy(data)
 	if err != nil {
 		var ve *models.ValidationError
 		if !errors.As(err, &ve) {
@@ -48,6 +50,7 @@ func cmdValidate(args []string, stdout, stderr io.Writer) int {
 		for _, p := range ve.Problems {
 			fmt.Fprintln(stdout, p.String())
 		}
+		printWarnings(stdout, warnings)
 		noun := "problems"
 		if len(ve.Problems) == 1 {
 			noun = "problem"
@@ -60,6 +63,14 @@ func cmdValidate(args []string, stdout, stderr io.Writer) int {
 		// LoadStudy has validated the vary blocks, so this is a defect.
 		panic("discrimen: validated study does not expand: " + err.Error())
 	}
-	fmt.Fprintf(stdout, "ok: %s (%d designs, %d hypotheses, %d fits)\n", s.Name, len(designs), len(s.Hypotheses), s.TotalFits())
+	printWarnings(stdout, warnings)
+	note := ""
+	switch n := len(warnings); {
+	case n == 1:
+		note = ", 1 warning"
+	case n > 1:
+		note = fmt.Sprintf(", %d warnings", n)
+	}
+	fmt.Fprintf(stdout, "ok: %s (%d designs, %d hypotheses, %d fits%s)\n", s.Name, len(designs), len(s.Hypotheses), s.TotalFits(), note)
 	return 0
 }

@@ -3,6 +3,7 @@ package main
 import (
 	"bytes"
 	"errors"
+	"fmt"
 	"os"
 	"path/filepath"
 	"strings"
@@ -123,5 +124,32 @@ func TestValidateThroughDispatch(t *testing.T) {
 	}
 	if !strings.HasPrefix(out.String(), "ok: ") {
 		t.Errorf("stdout = %q", out.String())
+	}
+}
+
+// TestValidateWarnings: warnings alone exit 0 and are printed as
+// "warning: PATH: ..."; with an error besides, the exit is 1 and both are
+// printed.
+func TestValidateWarnings(t *testing.T) {
+	dir := t.TempDir()
+	const study = `{"name": "slip (invented)", "designs": [{"name": "d", "participants": 4%s}],
+	  "replication": {"group_sizes": [2]},
+	  "hypotheses": [{"family": "constant", "params": {"level": {"min": 0.2, "max": 1.8}}},
+	    {"family": "logistic", "params": {"midpoint": {"min": 200, "max": 1200}, "width": {"value": 0.1}}}]}`
+	write := func(name, extra string) string {
+		p := filepath.Join(dir, name)
+		if err := os.WriteFile(p, []byte(fmt.Sprintf(study, extra)), 0o644); err != nil {
+			t.Fatal(err)
+		}
+		return p
+	}
+	const warning = `warning: hypotheses[1].params.midpoint: midpoint range [200, 1200] s reaches beyond the longest CTI + response window of any design (2.7 s, design "d"); midpoint is in seconds: were milliseconds written?`
+	code, out, errOut := runValidate(write("warn.json", ""))
+	if code != 0 || out != warning+"\nok: slip (invented) (1 designs, 2 hypotheses, 16 fits, 1 warning)\n" {
+		t.Fatalf("exit %d, stdout %q, stderr %q", code, out, errOut)
+	}
+	code, out, _ = runValidate(write("both.json", `, "validity": 0.2`))
+	if code != 1 || out != "designs[0].validity: validity must be in [1/streams, 1] = [0.333, 1] with streams = 3 (the default), got 0.2\n"+warning+"\n" {
+		t.Fatalf("exit %d, stdout %q", code, out)
 	}
 }
