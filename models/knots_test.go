@@ -124,3 +124,24 @@ func TestKnotsValidation(t *testing.T) {
 		t.Errorf("γ(0.45) = %v, want 0.8", got)
 	}
 }
+
+// TestFreeParamsNaturalOrder: with ten or more knots, k2 comes before k10.
+func TestFreeParamsNaturalOrder(t *testing.T) {
+	h := Hypothesis{Params: map[string]Param{}}
+	lo, hi := 0.1, 2.0
+	for _, n := range []string{"k10", "k2", "k1", "k11", "k9"} {
+		h.Params[n] = Param{Min: &lo, Max: &hi}
+	}
+	got := strings.Join(h.FreeParams(), ",")
+	if want := "k1,k2,k9,k10,k11"; got != want {
+		t.Errorf("FreeParams = %s, want %s", got, want)
+	}
+	for _, c := range []struct {
+		a, b string
+		want bool
+	}{{"midpoint", "width", true}, {"width", "midpoint", false}, {"k02", "k10", true}, {"k10", "k10", false}, {"k1", "k1a", true}} {
+		if got := naturalLess(c.a, c.b); got != c.want {
+			t.Errorf("naturalLess(%q, %q) = %v, want %v", c.a, c.b, got, c.want)
+		}
+	}
+}

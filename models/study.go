@@ -510,8 +510,42 @@ func (h Hypothesis) FreeParams() []string {
 			names = append(names, n)
 		}
 	}
-	sort.Strings(names)
+	// Natural order, so that knots' k2 comes before k10; names without
+	// digits sort as strings.
+	sort.Slice(names, func(i, j int) bool { return naturalLess(names[i], names[j]) })
 	return names
+}
+
+// naturalLess orders strings with runs of digits compared as numbers.
+func naturalLess(a, b string) bool {
+	for a != "" && b != "" {
+		da, db := digitRun(a), digitRun(b)
+		if da > 0 && db > 0 {
+			na, nb := strings.TrimLeft(a[:da], "0"), strings.TrimLeft(b[:db], "0")
+			if len(na) != len(nb) {
+				return len(na) < len(nb)
+			}
+			if na != nb {
+				return na < nb
+			}
+			a, b = a[da:], b[db:]
+			continue
+		}
+		if a[0] != b[0] {
+			return a[0] < b[0]
+		}
+		a, b = a[1:], b[1:]
+	}
+	return len(a) < len(b)
+}
+
+// digitRun is the length of s's leading run of ASCII digits.
+func digitRun(s string) int {
+	n := 0
+	for n < len(s) && s[n] >= '0' && s[n] <= '9' {
+		n++
+	}
+	return n
 }
 
 // Median returns the median of a free parameter's generating distribution
