@@ -549,6 +549,11 @@ func describe(doc any, inst any, e *jsonschema.ValidationError) located {
 			want[i] = article(w)
 		}
 		msg = fmt.Sprintf("%s must be %s, got %s", subj, strings.Join(want, " or "), display(loc.leaf()))
+		if n, ok := loc.leaf().(json.Number); ok && strings.Contains(loc.path(), "cti_ms[") {
+			if v, err := n.Float64(); err == nil && v > 0 && v < 10 {
+				msg += "; cti_ms is in milliseconds: were seconds written?"
+			}
+		}
 	case *kind.Enum:
 		want := make([]string, len(ek.Want))
 		for i, w := range ek.Want {

@@ -23,6 +23,7 @@ const invalidDir = "../testdata/studies/invalid"
 // problem LoadStudy must report: its exact path and a fragment of its message.
 var invalidCases = map[string]struct{ path, fragment string }{
 	"cti-too-long":                 {"designs[0].cti_ms[1]", "must be in 1..60000"},
+	"cti-in-seconds":               {"designs[0].cti_ms[0]", "got 0.5; cti_ms is in milliseconds: were seconds written?"},
 	"budget-over-limit":            {"", "the study needs 5,760,000 fits"},
 	"cti-not-epoch-multiple":       {"designs[0].cti_ms[1]", "cti_ms[1] must be a whole multiple of epoch_ms = 50 (the default), got 625"},
 	"cti-weights-length":           {"designs[0].cti_weights", "one weight per CTI (4 in cti_ms), got 3"},
