@@ -7,6 +7,7 @@ import (
 	"sort"
 	"strconv"
 	"strings"
+	"unicode/utf8"
 )
 
 // Problem is one thing wrong with a study file. Path is a JSON path in dotted
@@ -33,6 +34,11 @@ type ValidationError struct {
 	// (MaxFits): the file is well formed but asks for too many fits, which
 	// a service reports as over its cap rather than as a malformed file.
 	OverBudget bool
+	// OverLimit is true when the file is over a size cap of limits.go
+	// (values per vary block, variants, string length, array entries, ...):
+	// the problems name each value over a cap, and nothing else was
+	// checked.
+	OverLimit bool
 }
 
 // Error lists the problems one per line.
@@ -168,6 +174,10 @@ func (s *Study) Validate() []Problem {
 	for _, n := range names {
 		if n.name == "" {
 			c.add(n.path, "name must not be empty")
+			continue
+		}
+		if l := utf8.RuneCountInString(n.name); l > MaxVariantNameLength {
+			c.add(n.path, "the variant's name %q… is %d characters; the cap is %d: give the vary block labels", truncateRunes(n.name, 40), l, MaxVariantNameLength)
 			continue
 		}
 		if w, dup := firstUse[n.name]; dup {
