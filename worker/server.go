@@ -450,6 +450,9 @@ func (s *Server) handleAssemble(ctx context.Context, t *asynq.Task) error {
 	if files[FitsCSV], err = rep.FitsCSV(); err != nil {
 		return permanent("rendering fits.csv: %v", err)
 	}
+	if err := CheckReportSize(files, s.cfg.MaxReportBytes); err != nil {
+		return permanent("%v", err)
+	}
 	if err := s.st.storeReports(ctx, id, files); err != nil {
 		return err
 	}
