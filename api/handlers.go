@@ -231,7 +231,10 @@ func budgetFields(st *models.Study) []Field {
 // fail answers a backend error, logging the ones that are ours.
 func (s *Server) fail(w http.ResponseWriter, r *http.Request, err error) {
 	e := fromBackend(err)
-	if e.Status >= 500 {
+	switch {
+	case e.Code == codeUnavailable:
+		s.log.Warn("redis unreachable", "route", r.Pattern, "err", err)
+	case e.Status >= 500:
 		s.log.Error("backend", "route", r.Pattern, "err", err)
 	}
 	writeError(w, e)
