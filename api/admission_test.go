@@ -1,9 +1,13 @@
 package api
 
 import (
+	"bytes"
+	"context"
 	"encoding/json"
+	"errors"
 	"fmt"
 	"net/http"
+	"net/http/httptest"
 	"strconv"
 	"strings"
 	"testing"
@@ -173,6 +177,56 @@ func TestIdempotencyKey(t *testing.T) {
 		p := post("harbour", bad, tinyStudy)
 		if p.code != http.StatusBadRequest || p.errorBody(t).Code != codeBadKey || p.errorBody(t).Fields[0].Path != "Idempotency-Key" {
 			t.Errorf("key %q: %d %s, want 400 %s", bad, p.code, p.body, codeBadKey)
+		}
+	}
+}
+
+// blockingBackend waits for the request's context on every call, as a
+// Redis that accepts connections but never answers would.
+type blockingBackend struct{ errBackend }
+
+func (blockingBackend) Status(ctx context.Context, _, _ string) (worker.Status, error) {
+	<-ctx.Done()
+	return worker.Status{}, ctx.Err()
+}
+
+// TestRequestTimeout: a request whose Redis call does not return is
+// answered 503 with Retry-After when RequestTimeout ends it.
+func TestRequestTimeout(t *testing.T) {
+	a, err := New(Config{Backend: &blockingBackend{}, NoAuth: true, RequestTimeout: 100 * time.Millisecond})
+	if err != nil {
+		t.Fatal(err)
+	}
+	start := time.Now()
+	rec := httptest.NewRecorder()
+	a.ServeHTTP(rec, mustRequest(t, "GET", "/v1/studies/0123456789abcdef0123456789ab"))
+	if d := time.Since(start); d < 100*time.Millisecond || d > 5*time.Second {
+		t.Errorf("answered after %v, want just after the 100 ms deadline", d)
+	}
+	if rec.Code != http.StatusServiceUnavailable || rec.Header().Get("Retry-After") != "5" || !strings.Contains(rec.Body.String(), codeUnavailable) {
+		t.Fatalf("%d Retry-After %q: %s", rec.Code, rec.Header().Get("Retry-After"), rec.Body.String())
+	}
+}
+
+// BenchmarkSubmitOverCap measures POST /v1/studies of a 20,000-value vary
+// block through the whole handler (auth off, no Redis reached): the body is
+// read, parsed and refused with 422.
+func BenchmarkSubmitOverCap(b *testing.B) {
+	vals := make([]string, 20000)
+	for i := range vals {
+		vals[i] = strconv.Itoa(2 + i%50)
+	}
+	body := []byte(strings.Replace(tinyStudy, `"participants": 8`, `"participants": 8, "vary": [{"field": "participants", "values": [`+strings.Join(vals, ",")+`]}]`, 1))
+	a, err := New(Config{Backend: &errBackend{err: errors.New("not reached")}, NoAuth: true, Rate: 1e9, Burst: 1 << 30})
+	if err != nil {
+		b.Fatal(err)
+	}
+	b.SetBytes(int64(len(body)))
+	for b.Loop() {
+		rec := httptest.NewRecorder()
+		a.ServeHTTP(rec, httptest.NewRequest("POST", "/v1/studies", bytes.NewReader(body)))
+		if rec.Code != http.StatusUnprocessableEntity {
+			b.Fatalf("status %d: %.300s", rec.Code, rec.Body.String())
 		}
 	}
 }

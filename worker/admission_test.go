@@ -166,6 +166,11 @@ func TestSubmitOnce(t *testing.T) {
 	if v := r.redis.Client(t).HGet(ctx, studyKey(first), "report_estimate").Val(); v != "1000" {
 		t.Errorf("report_estimate = %q, want 1000", v)
 	}
+	// No worker runs: the study stays queued and counts at its estimate.
+	u, err := r.client.Usage(ctx, "harbour")
+	if want := (Usage{StudiesInFlight: 1, FitsInFlight: 32, StoredBytes: int64(len(tinyStudy)) + 1000}); err != nil || u != want {
+		t.Errorf("usage %+v (%v), want %+v", u, err, want)
+	}
 
 	sum := sha256.Sum256([]byte(tinyStudy))
 	fp := hex.EncodeToString(sum[:])
