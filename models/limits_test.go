@@ -4,6 +4,7 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"slices"
 	"strings"
 	"testing"
 )
@@ -118,6 +119,33 @@ func TestExpandCaps(t *testing.T) {
 	if !errors.As(err, &ve) || len(ve.Problems) != 1 || ve.Problems[0].Path != "vary[2].values" ||
 		ve.Problems[0].Problem != "the design's vary blocks reach 300 variants at this block; the cap is 256 variants per study" {
 		t.Fatalf("Expand of 300 variants: %v", err)
+	}
+}
+
+// TestValidateVariantCap: a study built in Go with too many variants is
+// refused by Validate too.
+func TestValidateVariantCap(t *testing.T) {
+	s := validStudy()
+	vals := make([]json.RawMessage, 100)
+	for i := range vals {
+		vals[i] = json.RawMessage(fmt.Sprint(20 + i))
+	}
+	d := s.Designs[0]
+	d.Vary = []Variation{{Field: "participants", Values: vals}}
+	for i := range 3 {
+		d.Name = fmt.Sprintf("channel-%d", i)
+		if i == 0 {
+			s.Designs[0] = d
+		} else {
+			s.Designs = append(s.Designs, d)
+		}
+	}
+	want := Problem{"designs", "the designs expand to 300 variants; the cap is 256 variants per study"}
+	if ps := s.Validate(); !slices.Contains(ps, want) {
+		t.Errorf("Validate = %v, want %v among them", ps, want)
+	}
+	if _, err := s.ExpandedDesigns(); err == nil || err.Error() != want.String() {
+		t.Errorf("ExpandedDesigns: %v, want %v", err, want)
 	}
 }
 

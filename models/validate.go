@@ -208,6 +208,11 @@ func (s *Study) Validate() []Problem {
 	for _, e := range expanded {
 		all = append(all, e...)
 	}
+	if len(all) > MaxVariants {
+		// LoadStudy refuses such a file before decoding; this is for a
+		// study built in Go.
+		c.add("designs", "the designs expand to %d variants; the cap is %d variants per study", len(all), MaxVariants)
+	}
 	replicationProblems(c, &s.Replication, all)
 	rankingProblems(c, &s.Ranking)
 
