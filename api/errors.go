@@ -99,7 +99,7 @@ const retryUnavailable = 5
 // cannot be reached.
 func unavailable() *Error {
 	e := newError(http.StatusServiceUnavailable, codeUnavailable,
-		"the study store (Redis) is not reachable; nothing was changed; retry after "+itoa(retryUnavailable)+" s")
+		"the study store (Redis) is not reachable; retry after "+itoa(retryUnavailable)+" s")
 	e.RetryAfter = retryUnavailable
 	return e
 }
