@@ -136,7 +136,7 @@ func TestBadBodies(t *testing.T) {
 		{name: "oversize", body: big, code: 413, errCode: codeBodyTooLarge, msgContains: "4096 bytes"},
 		{name: "over the compute cap", body: strings.Replace(tinyStudy, `"participants": 8`, `"participants": 300`, 1),
 			code: 422, errCode: codeOverBudget, paths: []string{"designs[0].participants"}, msgContains: "needs 1200 fits (participants × hypotheses² summed over designs); this server's cap is 1000"},
-		{name: "over the study file's own limit", body: strings.Replace(tinyStudy, `"participants": 8`, `"participants": 8, "vary": [{"field": "participants", "values": [`+manyParticipants()+`]}]`, 1),
+		{name: "over the study file's own limit", body: strings.Replace(tinyStudy, `"participants": 8`, `"participants": 8, "vary": [{"field": "participants", "values": [`+manyParticipants(9871, 9935)+`]}, {"field": "participants", "values": [`+manyParticipants(9936, 10000)+`]}]`, 1),
 			code: 422, errCode: codeOverBudget, paths: []string{""}, msgContains: "the limit is 5,000,000"},
 		{name: "not JSON media", body: tinyStudy, ctype: "text/plain", code: 415, errCode: codeUnsupportedMedia},
 	} {
@@ -552,9 +552,12 @@ func TestMaxFitsOverStudyLimit(t *testing.T) {
 
 // manyParticipants lists 130 distinct participant counts near 10,000: a
 // vary block that expands to over 5,000,000 fits with two hypotheses.
-func manyParticipants() string {
-	parts := make([]string, 0, 130)
-	for n := 9871; n <= 10000; n++ {
+// manyParticipants lists the participant counts from..to: two blocks of
+// 65 (under the cap of 100 values per block) make 130 variants of 40,000
+// fits each, over the study file's limit of 5,000,000.
+func manyParticipants(from, to int) string {
+	var parts []string
+	for n := from; n <= to; n++ {
 		parts = append(parts, strconv.Itoa(n))
 	}
 	return strings.Join(parts, ", ")

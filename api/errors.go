@@ -22,10 +22,12 @@ type Field struct {
 //
 //	{"error": {"code": "...", "message": "...", "fields": [{"path", "problem"}]}}
 type Error struct {
-	Status  int     `json:"-"`
-	Code    string  `json:"code"`
-	Message string  `json:"message"`
-	Fields  []Field `json:"fields"`
+	Status int `json:"-"`
+	// RetryAfter, when > 0, is sent as the Retry-After header, in seconds.
+	RetryAfter int     `json:"-"`
+	Code       string  `json:"code"`
+	Message    string  `json:"message"`
+	Fields     []Field `json:"fields"`
 }
 
 func (e *Error) Error() string { return e.Code + ": " + e.Message }
@@ -37,6 +39,14 @@ const (
 	codeBodyTooLarge     = "body_too_large"
 	codeUnsupportedMedia = "unsupported_media_type"
 	codeOverBudget       = "over_compute_cap"
+	codeOverSize         = "over_size_cap"
+	codeOverReport       = "over_report_cap"
+	codeOverQuota        = "over_quota"
+	codeOverStorage      = "over_storage_quota"
+	codeKeyReused        = "idempotency_key_reused"
+	codeKeyInFlight      = "idempotency_key_in_flight"
+	codeBadKey           = "invalid_idempotency_key"
+	codeUnavailable      = "store_unavailable"
 	codeUnauthorized     = "unauthorized"
 	codeRateLimited      = "rate_limited"
 	codeNotFound         = "not_found"
@@ -65,6 +75,12 @@ func fromProblems(ve *models.ValidationError) *Error {
 	if len(fields) != 1 {
 		msg = "the study has " + itoa(len(fields)) + " problems"
 	}
+	if ve.OverLimit {
+		// Over a size cap of the study file: well formed JSON the service
+		// will not take apart, so 422 like the other caps.
+		return newError(http.StatusUnprocessableEntity, codeOverSize,
+			"the study is over the study file's size caps at "+itoa(len(fields))+" place(s), listed in fields; nothing else was checked", fields...)
+	}
 	if ve.OverBudget {
 		// A well-formed study over the study file's own limit is over
 		// every server's cap: 422 like the configured cap, with the number.
@@ -73,20 +89,45 @@ func fromProblems(ve *models.ValidationError) *Error {
 	return newError(http.StatusBadRequest, codeInvalidStudy, msg, fields...)
 }
 
+// retryUnavailable is the Retry-After, in seconds, of a 503 while the
+// study store cannot be reached: long enough for a restart or a failover
+// to finish, short enough that a client polling a study loses little
+// (common practice).
+const retryUnavailable = 5
+
+// unavailable is the answer of every endpoint that needs Redis while it
+// cannot be reached.
+func unavailable() *Error {
+	e := newError(http.StatusServiceUnavailable, codeUnavailable,
+		"the study store (Redis) is not reachable; retry after "+itoa(retryUnavailable)+" s")
+	e.RetryAfter = retryUnavailable
+	return e
+}
+
 // fromBackend maps the worker's errors to HTTP in this one place.
 func fromBackend(err error) *Error {
 	var ae *Error
 	switch {
 	case errors.As(err, &ae):
 		return ae
+	case errors.Is(err, worker.ErrKeyReused):
+		return newError(http.StatusUnprocessableEntity, codeKeyReused,
+			"this Idempotency-Key was used for another study file; use a new key for a new study", Field{Path: "Idempotency-Key", Problem: "already used for a different request body"})
+	case errors.Is(err, worker.ErrKeyInFlight):
+		e := newError(http.StatusConflict, codeKeyInFlight, "a request with this Idempotency-Key is still being answered; retry after 1 s")
+		e.RetryAfter = 1
+		return e
+	case errors.Is(err, context.Canceled):
+		// The client left; no one reads this answer.
+		return newError(http.StatusServiceUnavailable, codeNotReady, "the request was canceled")
+	case worker.Unavailable(err):
+		return unavailable()
 	case errors.Is(err, worker.ErrNotFound):
 		return newError(http.StatusNotFound, codeNotFound, "no such study")
 	case errors.Is(err, worker.ErrNotDone):
 		return newError(http.StatusConflict, codeNotFinished, "the study has not finished; its report is not ready")
 	case errors.Is(err, worker.ErrFinished):
 		return newError(http.StatusConflict, codeAlreadyFinished, "the study already finished; there is nothing to cancel")
-	case errors.Is(err, context.DeadlineExceeded), errors.Is(err, context.Canceled):
-		return newError(http.StatusServiceUnavailable, codeNotReady, "the study store did not answer in time")
 	}
 	return newError(http.StatusInternalServerError, codeInternal, "internal error")
 }
@@ -102,5 +143,8 @@ func writeJSON(w http.ResponseWriter, status int, v any) {
 }
 
 func writeError(w http.ResponseWriter, e *Error) {
+	if e.RetryAfter > 0 {
+		w.Header().Set("Retry-After", itoa(e.RetryAfter))
+	}
 	writeJSON(w, e.Status, map[string]*Error{"error": e})
 }

@@ -8,6 +8,7 @@ import (
 	"mime"
 	"net/http"
 	"strconv"
+	"strings"
 	"time"
 
 	"discrimen/models"
@@ -104,7 +105,20 @@ func (s *Server) submit(w http.ResponseWriter, r *http.Request) {
 		writeError(w, newError(http.StatusUnprocessableEntity, codeOverBudget, msg, budgetFields(study)...))
 		return
 	}
-	st, err := s.cfg.Backend.Submit(r.Context(), owner(r), body, study)
+	key, kerr := idempotencyKey(r.Header)
+	if kerr != nil {
+		writeError(w, kerr)
+		return
+	}
+	estimate := worker.EstimateReportBytes(study, len(body))
+	if estimate > s.cfg.MaxReportBytes {
+		writeError(w, newError(http.StatusUnprocessableEntity, codeOverReport, fmt.Sprintf(
+			"the study's report is estimated at %d bytes, over this server's cap of %d bytes per study; cut participants, hypotheses or variants",
+			estimate, s.cfg.MaxReportBytes), Field{Path: "designs", Problem: fmt.Sprintf("estimated report: %d bytes (cap %d)", estimate, s.cfg.MaxReportBytes)}))
+		return
+	}
+	admit := func(ctx context.Context) error { return s.admit(ctx, owner(r), study.TotalFits(), estimate) }
+	st, replayed, err := s.cfg.Backend.SubmitOnce(r.Context(), owner(r), key, body, study, estimate, admit)
 	if err != nil {
 		s.fail(w, r, err)
 		return
@@ -114,7 +128,92 @@ func (s *Server) submit(w http.ResponseWriter, r *http.Request) {
 	for i, p := range warnings {
 		warn[i] = Field{Path: p.Path, Problem: p.Problem}
 	}
-	writeJSON(w, http.StatusAccepted, submitBody{ID: st.ID, Status: st.State, StatusURL: statusURL(st.ID), ReportURL: reportURL(st.ID), Warnings: warn})
+	code := http.StatusAccepted
+	if replayed {
+		// The study of the first request with this key, as it is now.
+		code = http.StatusOK
+	}
+	writeJSON(w, code, submitBody{ID: st.ID, Status: st.State, StatusURL: statusURL(st.ID), ReportURL: reportURL(st.ID), Warnings: warn})
+}
+
+// retryQuota is the Retry-After, in seconds, of a submit over a key's
+// in-flight quota: about the time a small study takes to finish.
+const retryQuota = 30
+
+// admit checks owner's quotas for one more study of fits fits and an
+// estimated report of estimate bytes. Concurrent submits of one key are
+// checked against the same usage, so they may pass the quota together by
+// at most their number (which the key's rate limit bounds).
+func (s *Server) admit(ctx context.Context, owner string, fits int, estimate int64) error {
+	u, err := s.cfg.Backend.Usage(ctx, owner)
+	if err != nil {
+		return err
+	}
+	over := func(what string, limit, used, adds int64) *Error {
+		e := newError(http.StatusTooManyRequests, codeOverQuota, fmt.Sprintf(
+			"over this key's quota of %d %s: %d in use, this study adds %d; retry once some of the key's studies finish",
+			limit, what, used, adds))
+		e.RetryAfter = retryQuota
+		return e
+	}
+	switch {
+	case u.StudiesInFlight+1 > s.cfg.MaxStudiesInFlight:
+		return over("studies in flight (queued or running)", int64(s.cfg.MaxStudiesInFlight), int64(u.StudiesInFlight), 1)
+	case u.FitsInFlight+fits > s.cfg.MaxFitsInFlight:
+		return over("fits in flight", int64(s.cfg.MaxFitsInFlight), int64(u.FitsInFlight), int64(fits))
+	case u.StoredBytes+estimate > s.cfg.MaxStoredBytes:
+		return newError(http.StatusUnprocessableEntity, codeOverStorage, fmt.Sprintf(
+			"over this key's quota of %d stored bytes: its studies store %d, this study's report is estimated at %d; space returns as studies expire",
+			s.cfg.MaxStoredBytes, u.StoredBytes, estimate))
+	}
+	return nil
+}
+
+// maxIdempotencyKey caps the Idempotency-Key header's value, in bytes.
+const maxIdempotencyKey = 255
+
+// idempotencyKey reads the Idempotency-Key header: a structured-field
+// string ("..."), as the IETF draft "The Idempotency-Key HTTP Header Field"
+// writes it, or the bare value; "" when absent.
+func idempotencyKey(h http.Header) (string, *Error) {
+	vs := h.Values("Idempotency-Key")
+	if len(vs) == 0 {
+		return "", nil
+	}
+	bad := func(problem string) (string, *Error) {
+		return "", newError(http.StatusBadRequest, codeBadKey, "bad Idempotency-Key header: "+problem,
+			Field{Path: "Idempotency-Key", Problem: problem})
+	}
+	if len(vs) > 1 {
+		return bad("send the header once")
+	}
+	v := strings.TrimSpace(vs[0])
+	if len(v) >= 2 && v[0] == '"' && v[len(v)-1] == '"' {
+		var b strings.Builder
+		for i := 1; i < len(v)-1; i++ {
+			c := v[i]
+			if c == '\\' {
+				i++
+				if i == len(v)-1 || (v[i] != '"' && v[i] != '\\') {
+					return bad(`a backslash in a quoted key must escape " or \`)
+				}
+				c = v[i]
+			} else if c == '"' {
+				return bad("a quote inside a quoted key must be escaped")
+			}
+			b.WriteByte(c)
+		}
+		v = b.String()
+	}
+	if v == "" || len(v) > maxIdempotencyKey {
+		return bad(fmt.Sprintf("the key must be 1 to %d characters, got %d", maxIdempotencyKey, len(v)))
+	}
+	for i := 0; i < len(v); i++ {
+		if v[i] < 0x20 || v[i] > 0x7e {
+			return bad("the key must be printable ASCII")
+		}
+	}
+	return v, nil
 }
 
 // budgetFields names each design's share of the fits, so the caller sees
@@ -139,7 +238,10 @@ func budgetFields(st *models.Study) []Field {
 // fail answers a backend error, logging the ones that are ours.
 func (s *Server) fail(w http.ResponseWriter, r *http.Request, err error) {
 	e := fromBackend(err)
-	if e.Status >= 500 {
+	switch {
+	case e.Code == codeUnavailable:
+		s.log.Warn("redis unreachable", "route", r.Pattern, "err", err)
+	case e.Status >= 500:
 		s.log.Error("backend", "route", r.Pattern, "err", err)
 	}
 	writeError(w, e)
@@ -280,7 +382,9 @@ func (s *Server) readyz(w http.ResponseWriter, r *http.Request) {
 	ctx, cancel := context.WithTimeout(r.Context(), 2*time.Second)
 	defer cancel()
 	if err := s.cfg.Backend.Ping(ctx); err != nil {
-		writeError(w, newError(http.StatusServiceUnavailable, codeNotReady, "redis is not reachable"))
+		e := newError(http.StatusServiceUnavailable, codeNotReady, "redis is not reachable")
+		e.RetryAfter = retryUnavailable
+		writeError(w, e)
 		return
 	}
 	writeJSON(w, http.StatusOK, map[string]string{"status": "ready"})

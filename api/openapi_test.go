@@ -2,19 +2,46 @@ package api
 
 import (
 	"bytes"
+	"context"
 	"encoding/json"
 	"mime"
+	"net"
 	"net/http/httptest"
 	"regexp"
 	"sort"
 	"strings"
+	"syscall"
 	"testing"
 	"time"
 
 	"github.com/santhosh-tekuri/jsonschema/v6"
 
 	"discrimen/models"
+	"discrimen/worker"
 )
+
+// errBackend answers every call with err.
+type errBackend struct{ err error }
+
+func (b *errBackend) SubmitOnce(context.Context, string, string, []byte, *models.Study, int64, func(context.Context) error) (worker.Status, bool, error) {
+	return worker.Status{}, false, b.err
+}
+func (b *errBackend) Usage(context.Context, string) (worker.Usage, error) {
+	return worker.Usage{}, b.err
+}
+func (b *errBackend) Status(context.Context, string, string) (worker.Status, error) {
+	return worker.Status{}, b.err
+}
+func (b *errBackend) List(context.Context, string, string, int) ([]worker.Status, string, error) {
+	return nil, "", b.err
+}
+func (b *errBackend) Cancel(context.Context, string, string) (worker.Status, error) {
+	return worker.Status{}, b.err
+}
+func (b *errBackend) Report(context.Context, string, string, worker.ReportKind) ([]byte, error) {
+	return nil, b.err
+}
+func (b *errBackend) Ping(context.Context) error { return b.err }
 
 // openAPI is the served document, parsed, with the means to validate a
 // response against it.
@@ -272,6 +299,13 @@ func TestOpenAPIResponses(t *testing.T) {
 	ex("DELETE", sub.StatusURL, key, nil)
 	ex("DELETE", "/v1/studies/"+done, key, nil)
 
+	// A retry under an Idempotency-Key: 200 with the first study.
+	retry := strings.Replace(tinyStudy, `"seed": 11`, `"seed": 13`, 1)
+	if p := r.do("POST", "/v1/studies", key, []byte(retry), "Idempotency-Key", `"watch-13"`); p.code != 202 {
+		t.Fatalf("first keyed submit: %d %s", p.code, p.body)
+	}
+	ex("POST", "/v1/studies", key, []byte(retry), "Idempotency-Key", `"watch-13"`)
+
 	// 429 everywhere: the "limited" key spends its burst first.
 	limited := r.keys["limited"]
 	r.api.limits = newLimiters(0.001, 1)
@@ -291,6 +325,34 @@ func TestOpenAPIResponses(t *testing.T) {
 	rec := httptest.NewRecorder()
 	dead.ServeHTTP(rec, mustRequest(t, "GET", "/readyz"))
 	o.check("GET", "/readyz", reply{code: rec.Code, header: rec.Header(), body: rec.Body.Bytes()})
+
+	// 503 from every route that reads Redis, and 409 from a keyed retry
+	// while the first request runs, from a backend that answers only that.
+	for _, be := range []*errBackend{{err: &net.OpError{Op: "dial", Net: "tcp", Err: syscall.ECONNREFUSED}}, {err: worker.ErrKeyInFlight}} {
+		a, err := New(Config{Backend: be, NoAuth: true})
+		if err != nil {
+			t.Fatal(err)
+		}
+		send := func(method, path string, body []byte) {
+			t.Helper()
+			req := mustRequest(t, method, path)
+			if body != nil {
+				req = httptest.NewRequest(method, path, bytes.NewReader(body))
+			}
+			rec := httptest.NewRecorder()
+			a.ServeHTTP(rec, req)
+			o.check(method, path, reply{code: rec.Code, header: rec.Header(), body: rec.Body.Bytes()})
+		}
+		send("POST", "/v1/studies", []byte(tinyStudy))
+		if be.err == worker.ErrKeyInFlight {
+			continue
+		}
+		send("GET", "/v1/studies", nil)
+		send("DELETE", sub.StatusURL, nil)
+		for _, suffix := range []string{"", "/report", "/report.html", "/fits.csv", "/fits.json", "/params.csv", "/params.json", "/measurement.csv", "/measurement.json"} {
+			send("GET", sub.StatusURL+suffix, nil)
+		}
+	}
 
 	var missed []string
 	for path, item := range obj(o.doc["paths"]) {

@@ -62,10 +62,16 @@ func (s *syncBuffer) String() string {
 // "harbour" and "pilot".
 func newRig(t testing.TB, mod func(*Config), names ...string) *rig {
 	t.Helper()
+	return newRigOn(t, workertest.New(t, dbOffset), mod, names...)
+}
+
+// newRigOn is newRig on a given Redis.
+func newRigOn(t testing.TB, redis *workertest.Redis, mod func(*Config), names ...string) *rig {
+	t.Helper()
 	if len(names) == 0 {
 		names = []string{"harbour", "pilot"}
 	}
-	r := &rig{t: t, redis: workertest.New(t, dbOffset), keys: map[string]string{}, logs: &syncBuffer{}}
+	r := &rig{t: t, redis: redis, keys: map[string]string{}, logs: &syncBuffer{}}
 	r.keyFile = filepath.Join(t.TempDir(), "keys")
 	if err := os.WriteFile(r.keyFile, nil, 0o600); err != nil {
 		t.Fatal(err)

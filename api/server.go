@@ -21,7 +21,8 @@ import (
 
 // Backend is what the API needs of the queue; *worker.Client is one.
 type Backend interface {
-	Submit(ctx context.Context, owner string, input []byte, s *models.Study) (worker.Status, error)
+	SubmitOnce(ctx context.Context, owner, key string, input []byte, s *models.Study, estimate int64, admit func(context.Context) error) (worker.Status, bool, error)
+	Usage(ctx context.Context, owner string) (worker.Usage, error)
 	Status(ctx context.Context, owner, id string) (worker.Status, error)
 	List(ctx context.Context, owner, cursor string, limit int) ([]worker.Status, string, error)
 	Cancel(ctx context.Context, owner, id string) (worker.Status, error)
@@ -48,6 +49,19 @@ type Config struct {
 	// MaxFits caps a study's compute budget, its total fits (default
 	// 1,000,000; at most models.MaxFits).
 	MaxFits int
+	// MaxReportBytes caps a study's report files, estimated at submit by
+	// worker.EstimateReportBytes (default worker.DefaultMaxReportBytes).
+	MaxReportBytes int64
+	// Per-key quotas, checked at submit: studies queued or running
+	// (default 10), their fits (default 2,000,000) and the bytes the key's
+	// studies store, a study in flight counted at its report estimate
+	// (default 2 GiB).
+	MaxStudiesInFlight int
+	MaxFitsInFlight    int
+	MaxStoredBytes     int64
+	// RequestTimeout bounds the handling of one request: the context of
+	// every Redis call ends then (default 15 s).
+	RequestTimeout time.Duration
 	// Logger receives one line per request (default: discard).
 	Logger *slog.Logger
 	// Registerer receives the HTTP metrics; Gatherer is served on /metrics
@@ -65,6 +79,11 @@ const (
 	DefaultBurst        = 40
 	DefaultMaxBodyBytes = 1 << 20
 	DefaultMaxFits      = 1_000_000
+
+	DefaultMaxStudiesInFlight = 10
+	DefaultMaxFitsInFlight    = 2 * DefaultMaxFits
+	DefaultMaxStoredBytes     = 2 << 30
+	DefaultRequestTimeout     = 15 * time.Second
 )
 
 // Server is the HTTP API.
@@ -125,6 +144,21 @@ func New(cfg Config) (*Server, error) {
 	}
 	if cfg.MaxFits <= 0 {
 		cfg.MaxFits = DefaultMaxFits
+	}
+	if cfg.MaxReportBytes <= 0 {
+		cfg.MaxReportBytes = worker.DefaultMaxReportBytes
+	}
+	if cfg.MaxStudiesInFlight <= 0 {
+		cfg.MaxStudiesInFlight = DefaultMaxStudiesInFlight
+	}
+	if cfg.MaxFitsInFlight <= 0 {
+		cfg.MaxFitsInFlight = DefaultMaxFitsInFlight
+	}
+	if cfg.MaxStoredBytes <= 0 {
+		cfg.MaxStoredBytes = DefaultMaxStoredBytes
+	}
+	if cfg.RequestTimeout <= 0 {
+		cfg.RequestTimeout = DefaultRequestTimeout
 	}
 	if cfg.MaxFits > models.MaxFits {
 		return nil, fmt.Errorf("api: MaxFits %d is over the study file's own limit of %d", cfg.MaxFits, models.MaxFits)
@@ -190,10 +224,16 @@ func New(cfg Config) (*Server, error) {
 	return s, nil
 }
 
-// ServeHTTP serves the API.
+// ServeHTTP serves the API. Each request's context ends after
+// RequestTimeout, which ends its Redis calls (answered 503); the work
+// between them is bounded by the study file's caps. A context deadline,
+// not http.TimeoutHandler, so that a report is written as it is read
+// rather than buffered whole.
 func (s *Server) ServeHTTP(w http.ResponseWriter, r *http.Request) {
 	w.Header().Set("X-Content-Type-Options", "nosniff")
-	s.mux.ServeHTTP(w, r)
+	ctx, cancel := context.WithTimeout(r.Context(), s.cfg.RequestTimeout)
+	defer cancel()
+	s.mux.ServeHTTP(w, r.WithContext(ctx))
 }
 
 // NewHTTPServer wraps a handler in an http.Server with timeouts that bound

@@ -16,9 +16,14 @@ import (
 // acceptBackend accepts every study without Redis.
 type acceptBackend struct{ worker.Client }
 
-func (acceptBackend) Submit(_ context.Context, owner string, _ []byte, s *models.Study) (worker.Status, error) {
-	return worker.Status{ID: "s-1", Owner: owner, Name: s.Name, State: worker.Queued}, nil
+func (acceptBackend) SubmitOnce(ctx context.Context, owner, _ string, _ []byte, s *models.Study, _ int64, admit func(context.Context) error) (worker.Status, bool, error) {
+	if err := admit(ctx); err != nil {
+		return worker.Status{}, false, err
+	}
+	return worker.Status{ID: "s-1", Owner: owner, Name: s.Name, State: worker.Queued}, false, nil
 }
+
+func (acceptBackend) Usage(context.Context, string) (worker.Usage, error) { return worker.Usage{}, nil }
 
 // TestSubmitReturnsWarnings: a study whose logistic midpoint is written in
 // milliseconds is accepted (202) with that one warning beside the answer; a

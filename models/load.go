@@ -39,6 +39,9 @@ func CheckStudy(data []byte) (*Study, []Problem, error) {
 	if !isJSON {
 		return nil, nil, &ValidationError{Problems: plain(schemaProbs)}
 	}
+	if len(schemaProbs) > 0 && schemaProbs[0].kind == kindLimit {
+		return nil, nil, &ValidationError{Problems: capProblems(plain(schemaProbs)), OverLimit: true}
+	}
 	s, err := DecodeStudy(data)
 	if err != nil {
 		// With schema problems present, the decoder failed on one of them;
@@ -54,7 +57,7 @@ func CheckStudy(data []byte) (*Study, []Problem, error) {
 			news = []located{decodeProblem(data, err)}
 		}
 		for _, dp := range news {
-			if len(schemaProbs) == 0 || (dp.Path != "" && !covered(dp.Problem, schemaProbs)) {
+			if len(schemaProbs) == 0 || (dp.Path != "" && !newCoverage(schemaProbs).covers(dp.Problem)) {
 				schemaProbs = append(schemaProbs, dp)
 			}
 		}
@@ -70,19 +73,20 @@ func CheckStudy(data []byte) (*Study, []Problem, error) {
 		}
 		if s == nil {
 			sortProblems(schemaProbs)
-			return nil, nil, &ValidationError{Problems: plain(schemaProbs)}
+			return nil, nil, &ValidationError{Problems: capProblems(plain(schemaProbs))}
 		}
 	}
 	all := schemaProbs
+	cov := newCoverage(schemaProbs)
 	for _, p := range s.Validate() {
-		if !covered(p, schemaProbs) {
+		if !cov.covers(p) {
 			all = append(all, located{Problem: p, kind: kindSemantic})
 		}
 	}
 	warnings := s.Warnings()
 	if len(all) > 0 {
 		sortProblems(all)
-		ve := &ValidationError{Problems: plain(all), Warnings: warnings}
+		ve := &ValidationError{Problems: capProblems(plain(all)), Warnings: warnings}
 		ve.OverBudget = len(all) == 1 && all[0].Path == "" && s.TotalFits() > MaxFits
 		return nil, warnings, ve
 	}
@@ -197,33 +201,49 @@ func zeroJSON(t reflect.Type) any {
 	return json.Number("0")
 }
 
-// covered reports whether a schema problem already speaks of p's value: at
+// coverage answers whether a schema problem already speaks of a value: at
 // the same path, or at its parent or child (a missing field is reported on
 // its object by the schema and on the field by Validate). Array-length and
 // repeat problems cover only their own path, since they say nothing of the
 // elements, and so do unknown-field problems, which say nothing of the
-// fields the object has.
-func covered(p Problem, schemaProbs []located) bool {
-	ps := splitPath(p.Path)
+// fields the object has. The paths are kept in sets, so each question
+// costs the length of one path, not a pass over every schema problem.
+type coverage struct {
+	exact   map[string]bool // every schema problem's path
+	paths   map[string]bool // canonical paths of value and object problems
+	parents map[string]bool // canonical parents of those paths
+}
+
+func newCoverage(schemaProbs []located) coverage {
+	c := coverage{exact: map[string]bool{}, paths: map[string]bool{}, parents: map[string]bool{}}
 	for _, sp := range schemaProbs {
-		if sp.Path == p.Path && !(sp.kind == kindSchemaUnknown && p.Path == "") {
+		if !(sp.kind == kindSchemaUnknown && sp.Path == "") {
 			// (an unknown field of the study object says nothing of its
 			// budget, the one semantic problem of the file as a whole)
-			return true
+			c.exact[sp.Path] = true
 		}
 		if sp.kind == kindSchemaArray || sp.kind == kindSchemaUnknown {
 			continue
 		}
-		ss := splitPath(sp.Path)
-		if isChild(ps, ss) || isChild(ss, ps) {
-			return true
+		segs := splitPath(sp.Path)
+		c.paths[strings.Join(segs, "\x00")] = true
+		if len(segs) > 0 {
+			c.parents[strings.Join(segs[:len(segs)-1], "\x00")] = true
 		}
 	}
-	return false
+	return c
 }
 
-func isChild(child, parent []string) bool {
-	return len(child) == len(parent)+1 && slices.Equal(child[:len(parent)], parent)
+func (c coverage) covers(p Problem) bool {
+	if c.exact[p.Path] {
+		return true
+	}
+	segs := splitPath(p.Path)
+	// p is a child of a schema problem's path, or its parent.
+	if len(segs) > 0 && c.paths[strings.Join(segs[:len(segs)-1], "\x00")] {
+		return true
+	}
+	return c.parents[strings.Join(segs, "\x00")]
 }
 
 // splitPath cuts a dotted path into segments: "a.b[2]" → a, b, [2].
@@ -265,8 +285,9 @@ func splitPath(p string) []string {
 
 // comparePaths orders paths segment by segment, indices numerically, so
 // designs[2] comes before designs[10].
-func comparePaths(a, b string) int {
-	as, bs := splitPath(a), splitPath(b)
+func comparePaths(a, b string) int { return compareSegments(splitPath(a), splitPath(b)) }
+
+func compareSegments(as, bs []string) int {
 	for i := 0; i < len(as) && i < len(bs); i++ {
 		x, y := as[i], bs[i]
 		if x == y {
@@ -285,12 +306,24 @@ func comparePaths(a, b string) int {
 func sortProblems(ps []located) {
 	// The message breaks ties so the order never depends on the schema
 	// validator's map iteration.
-	sort.SliceStable(ps, func(i, j int) bool {
-		if c := comparePaths(ps[i].Path, ps[j].Path); c != 0 {
+	// Each path is split once, not at every comparison.
+	type keyed struct {
+		segs []string
+		p    located
+	}
+	ks := make([]keyed, len(ps))
+	for i, p := range ps {
+		ks[i] = keyed{splitPath(p.Path), p}
+	}
+	sort.SliceStable(ks, func(i, j int) bool {
+		if c := compareSegments(ks[i].segs, ks[j].segs); c != 0 {
 			return c < 0
 		}
-		return ps[i].Problem.Problem < ps[j].Problem.Problem
+		return ks[i].p.Problem.Problem < ks[j].p.Problem.Problem
 	})
+	for i := range ks {
+		ps[i] = ks[i].p
+	}
 }
 
 // numberProblems walks a parsed study file along the Go type it decodes

@@ -152,6 +152,7 @@ const (
 	kindSchemaArray               // a schema problem about an array's length or repeats
 	kindDecode                    // the value passed the schema but does not fit its Go type
 	kindSchemaUnknown             // unknown fields of an object: says nothing of the fields it has
+	kindLimit                     // a value over a size cap (limits.go); nothing else is checked
 )
 
 type located struct {
@@ -184,6 +185,15 @@ func schemaProblems(data []byte) (problems []located, ok bool) {
 	inst, err := jsonschema.UnmarshalJSON(bytes.NewReader(data))
 	if err != nil {
 		return []located{{Problem: Problem{Path: "", Problem: notJSONMessage(data, err)}, kind: kindSchema}}, false
+	}
+	if lp := limitProblems(inst); lp != nil {
+		// Over a size cap: nothing else is checked, so the work stays
+		// linear in the file (limits.go).
+		for _, p := range lp {
+			problems = append(problems, located{Problem: p, kind: kindLimit})
+		}
+		sortProblems(problems)
+		return problems, true
 	}
 	cs := loadSchema()
 	err = cs.schema.Validate(inst)

@@ -8,6 +8,7 @@ import (
 	"sort"
 	"strconv"
 	"strings"
+	"unicode/utf8"
 )
 
 // Problem is one thing wrong with a study file. Path is a JSON path in dotted
@@ -37,6 +38,11 @@ type ValidationError struct {
 	// Warnings are the study's warnings (Study.Warnings) where the file
 	// decoded far enough to find them.
 	Warnings []Problem
+	// OverLimit is true when the file is over a size cap of limits.go
+	// (values per vary block, variants, string length, array entries, ...):
+	// the problems name each value over a cap, and nothing else was
+	// checked.
+	OverLimit bool
 }
 
 // Error lists the problems one per line.
@@ -153,17 +159,16 @@ func (s *Study) Validate() []Problem {
 		for _, p := range probs {
 			c.add(join(prefix, p.Path), "%s", p.Problem)
 		}
-		inBase := map[Problem]bool{}
-		for _, p := range base {
-			inBase[p] = true
-		}
 		for _, v := range variants {
 			expanded[i] = append(expanded[i], v.design)
 			names = append(names, named{v.design.Name, join(prefix, v.valuePath), join(prefix, v.namePath)})
+			if len(base) > 0 {
+				// The variants repeat the design's problems; checking each
+				// would cost variants × the design's size. Their own
+				// problems show once the design is right.
+				continue
+			}
 			for _, p := range designProblems(&v.design) {
-				if inBase[p] {
-					continue // already reported once for the design itself
-				}
 				c.add(join(prefix, v.valuePath), "variant %q: %s", v.design.Name, p.Problem)
 			}
 		}
@@ -172,6 +177,10 @@ func (s *Study) Validate() []Problem {
 	for _, n := range names {
 		if n.name == "" {
 			c.add(n.path, "name must not be empty")
+			continue
+		}
+		if l := utf8.RuneCountInString(n.name); l > MaxVariantNameLength {
+			c.add(n.path, "the variant's name %q… is %d characters; the cap is %d: give the vary block labels", truncateRunes(n.name, 40), l, MaxVariantNameLength)
 			continue
 		}
 		if w, dup := firstUse[n.name]; dup {
@@ -202,6 +211,11 @@ func (s *Study) Validate() []Problem {
 	var all []Design
 	for _, e := range expanded {
 		all = append(all, e...)
+	}
+	if len(all) > MaxVariants {
+		// LoadStudy refuses such a file before decoding; this is for a
+		// study built in Go.
+		c.add("designs", "the designs expand to %d variants; the cap is %d variants per study", len(all), MaxVariants)
 	}
 	replicationProblems(c, &s.Replication, all)
 	rankingProblems(c, &s.Ranking)

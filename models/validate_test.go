@@ -431,7 +431,7 @@ func TestPathOrderAndCover(t *testing.T) {
 		"designs[0].cti_ms[1]":             false, // array-length problems say nothing of elements
 		"designs[0].streams":               false,
 	} {
-		if got := covered(Problem{Path: path}, schema); got != want {
+		if got := newCoverage(schema).covers(Problem{Path: path}); got != want {
 			t.Errorf("covered(%q) = %v, want %v", path, got, want)
 		}
 	}

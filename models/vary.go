@@ -25,7 +25,9 @@ import (
 // Expand fails with a *ValidationError (paths relative to the design, such
 // as "vary[0].values[1]") when a block names an unknown field, has no
 // values, has labels that do not match its values, or has a value that does
-// not fit the field's type. It does not validate the variants; Validate does.
+// not fit the field's type, and when a block has more than MaxVaryValues
+// values or the design more than MaxVariants variants (refused before any
+// copy is made). It does not validate the variants; Validate does.
 func (d Design) Expand() ([]Design, error) {
 	if len(d.Vary) == 0 {
 		return []Design{d.clone()}, nil
@@ -57,6 +59,10 @@ func (s *Study) ExpandedDesigns() ([]Design, error) {
 		}
 		out = append(out, ds...)
 	}
+	if len(probs) == 0 && len(out) > MaxVariants {
+		probs = append(probs, Problem{Path: "designs", Problem: fmt.Sprintf(
+			"the designs expand to %d variants; the cap is %d variants per study", len(out), MaxVariants)})
+	}
 	if len(probs) > 0 {
 		return nil, &ValidationError{Problems: probs}
 	}
@@ -74,6 +80,10 @@ type variant struct {
 func expandDesign(d Design) ([]variant, []Problem) {
 	c := &checker{}
 	var out []variant
+	// Variants are copies of the design without its vary blocks: copying
+	// the blocks into each variant made expansion quadratic in their size.
+	base := d
+	base.Vary = nil
 	for k, v := range d.Vary {
 		vp := fmt.Sprintf("vary[%d]", k)
 		if !slices.Contains(VaryFields, v.Field) {
@@ -84,13 +94,20 @@ func expandDesign(d Design) ([]variant, []Problem) {
 			c.add(vp+".values", "%s", countText("values", 1, -1, 0))
 			continue
 		}
+		if len(v.Values) > MaxVaryValues {
+			c.add(vp+".values", "a vary block may have at most %d values, got %d", MaxVaryValues, len(v.Values))
+			continue
+		}
+		if len(out)+len(v.Values) > MaxVariants {
+			c.add(vp+".values", "the design's vary blocks reach %d variants at this block; the cap is %d variants per study", len(out)+len(v.Values), MaxVariants)
+			break
+		}
 		if len(v.Labels) > 0 && len(v.Labels) != len(v.Values) {
 			c.add(vp+".labels", "labels must have one label per value (%d values), got %d", len(v.Values), len(v.Labels))
 		}
 		for n, raw := range v.Values {
 			valuePath := fmt.Sprintf("%s.values[%d]", vp, n)
-			nd := d.clone()
-			nd.Vary = nil
+			nd := base.clone()
 			if want := setField(&nd, &d, v.Field, raw); want != "" {
 				c.add(valuePath, "values[%d] (%s) must be %s, got %s", n, v.Field, want, display(rawValue(raw)))
 				continue

@@ -52,6 +52,11 @@ type Config struct {
 	// Identity names this worker process in a study's record (default
 	// host:pid).
 	Identity string
+	// MaxReportBytes caps the bytes of a study's three report files; an
+	// assembly over it fails the study instead of storing them (default
+	// DefaultMaxReportBytes; the api refuses at submit a study whose
+	// EstimateReportBytes is over its own cap).
+	MaxReportBytes int64
 	// Logger receives structured logs (default: discard).
 	Logger *slog.Logger
 	// Registerer receives the worker's metrics (default: none).
@@ -65,6 +70,11 @@ type Config struct {
 // compute, below the 5% goal, while the demo's 7,200 fits still split into
 // 30 shards to spread over several workers.
 const DefaultShardFits = 240
+
+// DefaultMaxReportBytes is the default cap on a study's report files, 256
+// MiB: half of the 512 MB a Redis string may hold (redis.io, "Strings";
+// from memory), so report.html alone always fits.
+const DefaultMaxReportBytes = 256 << 20
 
 func (c Config) withDefaults() (Config, error) {
 	if c.Redis == nil {
@@ -105,6 +115,9 @@ func (c Config) withDefaults() (Config, error) {
 	}
 	if c.Identity == "" {
 		c.Identity = defaultIdentity()
+	}
+	if c.MaxReportBytes <= 0 {
+		c.MaxReportBytes = DefaultMaxReportBytes
 	}
 	if c.Logger == nil {
 		c.Logger = slog.New(slog.NewTextHandler(io.Discard, nil))

@@ -10,7 +10,9 @@
 // report depends only on the study and its seed (recovery's seeds derive
 // from design, generator and participant), never on which worker ran what.
 //
-// Client is the API's side: submit, status, list, cancel, report. Server is
+// Client is the API's side: submit (with an idempotency key), status,
+// list, cancel, report, and a key's usage for the API's quotas
+// (admission.go). Server is
 // a worker process. Every Redis key is built in keys.go, which documents
 // the layout.
 package worker

@@ -27,6 +27,10 @@ package worker
 //	                                              params.json, measurement.csv, measurement.json)
 //	discrimen:{owner:NAME}:studies    sorted set  the study ids of one API key, all score 0 (ids sort by time)
 //	discrimen:{index}:studies         sorted set  every study id, all score 0, for metrics
+//	discrimen:{owner:NAME}:idem:HASH  string      an Idempotency-Key of the owner (HASH: hex SHA-256 of the key):
+//	                                              "pending FP" while its request runs (1 min at most),
+//	                                              then "study FP ID" for the retention; FP is the hex
+//	                                              SHA-256 of the study file (admission.go)
 //
 // Fields of discrimen:{ID}:study, decoded into a studyRecord by
 // decodeRecord (record.go). The first five are written when the study is
@@ -47,6 +51,7 @@ package worker
 //	grid_seconds optional  wall time of the first compile, seconds (strconv 'g' format)
 //	last_shard   optional  time the latest shard was stored
 //	assemblies   optional  times an assembly stored a report (1 for a finished study)
+//	report_estimate optional  EstimateReportBytes of the study, written just after submission
 //
 // The values of the done, partial and runs hashes are counts as above,
 // their fields shard indexes.
@@ -58,6 +63,11 @@ package worker
 // entries whose study has expired are removed when they are next read.
 //
 // Every Redis call on these keys is a method of store (store.go).
+
+import (
+	"crypto/sha256"
+	"encoding/hex"
+)
 
 const keyPrefix = "discrimen:"
 
@@ -89,6 +99,13 @@ func studyKeys(id string) []string {
 func ownerKey(owner string) string { return keyPrefix + "{owner:" + owner + "}:studies" }
 
 const indexKey = keyPrefix + "{index}:studies"
+
+// idempotencyKey holds one Idempotency-Key of owner. The key is hashed so
+// any bytes the client sends make a short, safe Redis key.
+func idempotencyKey(owner, key string) string {
+	sum := sha256.Sum256([]byte(key))
+	return keyPrefix + "{owner:" + owner + "}:idem:" + hex.EncodeToString(sum[:])
+}
 
 // Task IDs: asynq refuses a second task with the same ID while the first is
 // kept, which makes each plan, shard and assembly unique per study.

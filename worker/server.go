@@ -458,6 +458,9 @@ func (s *Server) handleAssemble(ctx context.Context, t *asynq.Task) error {
 		}
 		files[k] = f.Data
 	}
+	if err := CheckReportSize(files, s.cfg.MaxReportBytes); err != nil {
+		return permanent("%v", err)
+	}
 	if err := s.st.storeReports(ctx, id, files); err != nil {
 		return err
 	}

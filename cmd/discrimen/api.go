@@ -31,6 +31,11 @@ type apiFlags struct {
 	burst   int
 	maxBody int64
 	maxFits int
+
+	maxStudiesInFlight int
+	maxFitsInFlight    int
+	maxStoredBytes     int64
+	requestTimeout     time.Duration
 }
 
 func (f *apiFlags) register(fs *flag.FlagSet) {
@@ -41,11 +46,17 @@ func (f *apiFlags) register(fs *flag.FlagSet) {
 	fs.IntVar(&f.burst, "burst", api.DefaultBurst, "requests a key may send at once above the rate")
 	fs.Int64Var(&f.maxBody, "max-body", api.DefaultMaxBodyBytes, "largest request body in `BYTES`")
 	fs.IntVar(&f.maxFits, "max-fits", api.DefaultMaxFits, fmt.Sprintf("largest compute budget of one study, in fits (at most %d)", models.MaxFits))
+	fs.IntVar(&f.maxStudiesInFlight, "max-studies-in-flight", api.DefaultMaxStudiesInFlight, "studies one key may have queued or running at once")
+	fs.IntVar(&f.maxFitsInFlight, "max-fits-in-flight", api.DefaultMaxFitsInFlight, "fits of the studies one key may have queued or running at once")
+	fs.Int64Var(&f.maxStoredBytes, "max-stored-bytes", api.DefaultMaxStoredBytes, "`BYTES` one key's studies may keep in Redis (study files and reports; a study in flight counts at its report estimate)")
+	fs.DurationVar(&f.requestTimeout, "request-timeout", api.DefaultRequestTimeout, "longest handling of one request; Redis calls still waiting then answer 503")
 }
 
 // config checks the flags and loads the keys.
 func (f *apiFlags) config(log *slog.Logger) (api.Config, error) {
-	cfg := api.Config{NoAuth: f.noAuth, Rate: rate.Limit(f.rate), Burst: f.burst, MaxBodyBytes: f.maxBody, MaxFits: f.maxFits, Logger: log}
+	cfg := api.Config{NoAuth: f.noAuth, Rate: rate.Limit(f.rate), Burst: f.burst, MaxBodyBytes: f.maxBody, MaxFits: f.maxFits,
+		MaxStudiesInFlight: f.maxStudiesInFlight, MaxFitsInFlight: f.maxFitsInFlight, MaxStoredBytes: f.maxStoredBytes,
+		RequestTimeout: f.requestTimeout, Logger: log}
 	switch {
 	case f.noAuth && f.keys != "":
 		return cfg, errors.New("give --keys FILE or --no-auth, not both")
@@ -67,6 +78,9 @@ func (f *apiFlags) config(log *slog.Logger) (api.Config, error) {
 	}
 	if f.rate <= 0 || f.burst < 1 || f.maxBody < 1 || f.maxFits < 1 {
 		return cfg, errors.New("--rate, --burst, --max-body and --max-fits must be positive")
+	}
+	if f.maxStudiesInFlight < 1 || f.maxFitsInFlight < 1 || f.maxStoredBytes < 1 || f.requestTimeout <= 0 {
+		return cfg, errors.New("--max-studies-in-flight, --max-fits-in-flight, --max-stored-bytes and --request-timeout must be positive")
 	}
 	if f.maxFits > models.MaxFits {
 		return cfg, fmt.Errorf("--max-fits %d is over the study file's own limit of %d", f.maxFits, models.MaxFits)
@@ -147,6 +161,7 @@ func cmdAPI(args []string, stdout, stderr io.Writer) int {
 		fmt.Fprintln(stderr, "discrimen api:", err)
 		return 2
 	}
+	cfg.MaxReportBytes = qf.maxReportBytes
 	ctx, stop := signalContext()
 	defer stop()
 	reg := newRegistry()

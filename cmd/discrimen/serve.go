@@ -70,6 +70,7 @@ func cmdServe(args []string, stdout, stderr io.Writer) int {
 		fmt.Fprintln(stderr, "discrimen serve:", err)
 		return 2
 	}
+	cfg.MaxReportBytes = qf.maxReportBytes
 	if opt == nil {
 		m, stopRedis, err := embeddedRedis()
 		if err != nil {
@@ -89,7 +90,7 @@ func cmdServe(args []string, stdout, stderr io.Writer) int {
 	srv, err := worker.NewServer(worker.Config{
 		Redis: opt, Queue: qf.queue, Concurrency: wf.concurrency, ShardFits: wf.shardFits,
 		Retention: qf.retention, TaskRetention: wf.taskRetention, MaxRetry: wf.maxRetry,
-		ShutdownTimeout: wf.shutdownTimeout, Logger: log, Registerer: reg,
+		ShutdownTimeout: wf.shutdownTimeout, MaxReportBytes: qf.maxReportBytes, Logger: log, Registerer: reg,
 	})
 	if err != nil {
 		fmt.Fprintln(stderr, "discrimen serve:", err)

@@ -95,13 +95,16 @@ func redactURL(s string) string {
 
 // queueFlags are the settings the API and the workers must agree on.
 type queueFlags struct {
-	queue     string
-	retention time.Duration
+	queue          string
+	retention      time.Duration
+	maxReportBytes int64
 }
 
 func (f *queueFlags) register(fs *flag.FlagSet) {
 	fs.StringVar(&f.queue, "queue", "discrimen", "asynq queue `NAME` of shard tasks (plans and assemblies use NAME.control)")
 	fs.DurationVar(&f.retention, "retention", 7*24*time.Hour, "how long studies and reports are kept after their last change")
+	fs.Int64Var(&f.maxReportBytes, "max-report-bytes", worker.DefaultMaxReportBytes,
+		"largest report of one study in `BYTES` (report.json, report.html and fits.csv together): the api refuses at submit a study estimated over it, a worker fails a study whose real report is over it")
 }
 
 // workerFlags configure a worker process.
@@ -213,7 +216,7 @@ func cmdWorker(args []string, stdout, stderr io.Writer) int {
 	srv, err := worker.NewServer(worker.Config{
 		Redis: opt, Queue: qf.queue, Concurrency: wf.concurrency, ShardFits: wf.shardFits,
 		Retention: qf.retention, TaskRetention: wf.taskRetention, MaxRetry: wf.maxRetry,
-		ShutdownTimeout: wf.shutdownTimeout, Logger: log, Registerer: reg,
+		ShutdownTimeout: wf.shutdownTimeout, MaxReportBytes: qf.maxReportBytes, Logger: log, Registerer: reg,
 	})
 	if err != nil {
 		fmt.Fprintln(stderr, "discrimen worker:", err)
