@@ -97,7 +97,7 @@ func registerClientMetrics(r prometheus.Registerer, c *Client) error {
 			"Age of the oldest pending task of an asynq queue.", []string{"queue"}, nil),
 		upDesc:   prometheus.NewDesc("discrimen_redis_up", "1 when the last scrape could read Redis.", nil, nil),
 		timeout:  5 * time.Second,
-		queueIDs: []string{c.cfg.Queue, c.cfg.controlQueue()},
+		queueIDs: c.cfg.queues(),
 	})
 }
 

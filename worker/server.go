@@ -75,10 +75,8 @@ func NewServer(cfg Config) (*Server, error) {
 	}
 	s.srv = asynq.NewServerFromRedisClient(st.rdb, asynq.Config{
 		Concurrency: cfg.Concurrency,
-		// Plans and assemblies are short and unblock whole studies, so they
-		// go before any shard.
-		Queues:                   map[string]int{cfg.controlQueue(): 2, cfg.Queue: 1},
-		StrictPriority:           true,
+		Queues:                   queueWeights(cfg),
+		StrictPriority:           false,
 		RetryDelayFunc:           retryDelay,
 		ErrorHandler:             asynq.ErrorHandlerFunc(s.handleError),
 		Logger:                   asynqLogger{s.log},
@@ -88,6 +86,22 @@ func NewServer(cfg Config) (*Server, error) {
 		DelayedTaskCheckInterval: time.Second,
 	})
 	return s, nil
+}
+
+// queueWeights gives every shard queue the same weight, so a worker that
+// finds several non-empty shard queues picks among them evenly (asynq
+// draws a queue in proportion to its weight at each dequeue and moves on
+// to the next when it is empty): each owner's shards get an equal share of
+// the workers however long another owner's backlog is. The control queue
+// weighs as much as all shard queues together: plans and assemblies are
+// short and unblock whole studies, so they are drawn first half of the
+// time even when every shard queue is busy.
+func queueWeights(cfg Config) map[string]int {
+	w := map[string]int{cfg.controlQueue(): ShareQueues}
+	for _, q := range cfg.shareQueues() {
+		w[q] = 1
+	}
+	return w
 }
 
 // retryDelay retries a task whose worker died at once (its lease has
@@ -213,7 +227,7 @@ func (s *Server) liveStudy(ctx context.Context, t *asynq.Task) (id string, rec s
 // stored. A retried plan enqueues again; existing task IDs conflict
 // and are skipped.
 func (s *Server) handlePlan(ctx context.Context, t *asynq.Task) error {
-	id, _, skip, err := s.liveStudy(ctx, t)
+	id, rec, skip, err := s.liveStudy(ctx, t)
 	if skip || err != nil {
 		return err
 	}
@@ -243,18 +257,18 @@ func (s *Server) handlePlan(ctx context.Context, t *asynq.Task) error {
 		if stored {
 			continue
 		}
-		if _, err := s.queue.EnqueueContext(ctx, s.cfg.shardTask(id, spec)); err != nil && !errors.Is(err, asynq.ErrTaskIDConflict) {
+		if _, err := s.queue.EnqueueContext(ctx, s.cfg.shardTask(id, rec.Owner, spec)); err != nil && !errors.Is(err, asynq.ErrTaskIDConflict) {
 			return err
 		}
 	}
 	// A cancel that landed while the shards were being enqueued could not
 	// see them; drop them now.
-	rec, err := s.st.record(ctx, id)
+	rec, err = s.st.record(ctx, id)
 	if err != nil {
 		return err // the retry enqueues nothing new and checks again
 	}
 	if rec.State.Final() {
-		if err := dropTasks(ctx, s.inspector, s.cfg, id, len(specs)); err != nil {
+		if err := dropTasks(ctx, s.inspector, s.cfg, id, rec.Owner, len(specs)); err != nil {
 			s.log.Warn("dropping the tasks of a study canceled while planned", "study", id, "err", err)
 		}
 		return nil
@@ -520,7 +534,7 @@ func (s *Server) fail(ctx context.Context, id, msg string) bool {
 		s.log.Warn("reading a failed study to drop its tasks", "study", id, "err", err)
 		return true
 	}
-	if err := dropTasks(ctx, s.inspector, s.cfg, id, rec.Shards); err != nil {
+	if err := dropTasks(ctx, s.inspector, s.cfg, id, rec.Owner, rec.Shards); err != nil {
 		s.log.Warn("dropping a failed study's tasks", "study", id, "err", err)
 	}
 	if err := s.st.finish(ctx, id, rec.Owner); err != nil {

@@ -184,8 +184,8 @@ discrimen_studies{state="running"} 0
 	if err := testutil.GatherAndCompare(reg, strings.NewReader(want), "discrimen_studies"); err != nil {
 		t.Fatal(err)
 	}
-	if n, err := testutil.GatherAndCount(reg, "discrimen_queue_tasks", "discrimen_shard_duration_seconds", "discrimen_fit_duration_seconds"); err != nil || n != 2*6+2 {
-		t.Fatalf("queue and duration series: %d (%v), want 14", n, err)
+	if n, err := testutil.GatherAndCount(reg, "discrimen_queue_tasks", "discrimen_shard_duration_seconds", "discrimen_fit_duration_seconds"); err != nil || n != (1+ShareQueues)*6+2 {
+		t.Fatalf("queue and duration series: %d (%v), want %d", n, err, (1+ShareQueues)*6+2)
 	}
 }
 
@@ -299,7 +299,7 @@ func TestDuplicateShardAfterDone(t *testing.T) {
 		t.Fatal(err)
 	}
 	spec := c.Plan(8)[0]
-	if err := srv.handleShard(context.Background(), r.cfg.shardTask(st.ID, spec)); err != nil {
+	if err := srv.handleShard(context.Background(), r.cfg.shardTask(st.ID, "harbour", spec)); err != nil {
 		t.Fatal(err)
 	}
 	if err := srv.handleAssemble(context.Background(), r.cfg.assembleTask(st.ID)); err != nil {
@@ -616,13 +616,13 @@ func TestProgressAfterFinishExpires(t *testing.T) {
 func TestDropTasks(t *testing.T) {
 	r := newRig(t, nil)
 	id := newStudyID(time.Now())
-	if err := dropTasks(context.Background(), r.client.inspector, r.cfg, id, 3); err != nil {
+	if err := dropTasks(context.Background(), r.client.inspector, r.cfg, id, "harbour", 3); err != nil {
 		t.Fatalf("dropping tasks that were never enqueued: %v, want nil", err)
 	}
-	if _, err := r.client.queue.Enqueue(r.cfg.shardTask(id, recovery.ShardSpec{Index: 1})); err != nil {
+	if _, err := r.client.queue.Enqueue(r.cfg.shardTask(id, "harbour", recovery.ShardSpec{Index: 1})); err != nil {
 		t.Fatal(err)
 	}
-	if err := dropTasks(context.Background(), r.client.inspector, r.cfg, id, 3); err != nil {
+	if err := dropTasks(context.Background(), r.client.inspector, r.cfg, id, "harbour", 3); err != nil {
 		t.Fatalf("dropping a pending shard task: %v", err)
 	}
 	if shards, _, err := r.client.QueueSizes(); err != nil || shards != 0 {
@@ -630,7 +630,7 @@ func TestDropTasks(t *testing.T) {
 	}
 	ctx, cancel := context.WithCancel(context.Background())
 	cancel()
-	if err := dropTasks(ctx, r.client.inspector, r.cfg, id, 3); err == nil || !strings.Contains(err.Error(), "stopped after 0 of 3") {
+	if err := dropTasks(ctx, r.client.inspector, r.cfg, id, "harbour", 3); err == nil || !strings.Contains(err.Error(), "stopped after 0 of 3") {
 		t.Fatalf("dropping with a canceled context: %v, want it to say where it stopped", err)
 	}
 }
