@@ -74,7 +74,7 @@ func NewServer(cfg Config) (*Server, error) {
 		}
 	}
 	s.srv = asynq.NewServerFromRedisClient(st.rdb, asynq.Config{
-		Concurrency: cfg.Concurrency,
+		Concurrency:              cfg.Concurrency,
 		Queues:                   queueWeights(cfg),
 		StrictPriority:           false,
 		RetryDelayFunc:           retryDelay,
