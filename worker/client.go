@@ -59,6 +59,11 @@ func (c *Client) Ping(ctx context.Context) error { return c.st.ping(ctx) }
 func (c *Client) Submit(ctx context.Context, owner string, input []byte, s *models.Study) (Status, error) {
 	now := c.now()
 	id := newStudyID(now)
+	// The unplanned entry goes first, so a crash after any later step
+	// leaves one for the watchdog (keys.go).
+	if err := c.st.markUnplanned(ctx, id, now); err != nil {
+		return Status{}, err
+	}
 	if err := c.st.create(ctx, id, owner, s.Name, input, s.TotalFits(), now); err != nil {
 		return Status{}, err
 	}

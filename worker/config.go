@@ -47,6 +47,14 @@ type Config struct {
 	// PollInterval is how often a running shard reports progress and checks
 	// whether its study was canceled (default 500 ms).
 	PollInterval time.Duration
+	// ReplanAfter is the age at which a watchdog enqueues the plan again of
+	// a study still waiting to be planned (its api died mid-submit, or its
+	// plan task is slow to run; a plan enqueued twice runs once), default
+	// 10 s.
+	ReplanAfter time.Duration
+	// WatchdogInterval is how often a Server's watchdog looks for unplanned
+	// studies and lost shards, and how often it beats (default 2 s).
+	WatchdogInterval time.Duration
 	// CompiledCache is the number of compiled studies a Server keeps
 	// (default 4).
 	CompiledCache int
@@ -100,6 +108,12 @@ func (c Config) withDefaults() (Config, error) {
 	}
 	if c.PollInterval <= 0 {
 		c.PollInterval = 500 * time.Millisecond
+	}
+	if c.ReplanAfter <= 0 {
+		c.ReplanAfter = 10 * time.Second
+	}
+	if c.WatchdogInterval <= 0 {
+		c.WatchdogInterval = 2 * time.Second
 	}
 	if c.CompiledCache <= 0 {
 		c.CompiledCache = 4

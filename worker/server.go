@@ -25,13 +25,13 @@ import (
 // client and inspector use too. Shutdown stops them in this order, so that
 // nothing calls Redis once the client is closed:
 //
-//  1. the archive sweeper: its context is canceled and Shutdown waits for
-//     its goroutine to return (a sweep in progress stops at its next
-//     check);
+//  1. the archive sweeper and the watchdog (watchdog.go): their context is
+//     canceled and Shutdown waits for their goroutines to return (a pass
+//     in progress stops at its next check);
 //  2. asynq's server: it takes no new task, gives running handlers up to
 //     ShutdownTimeout to finish (each shard handler joins its progress
 //     poller before it returns) and puts the others back on the queue;
-//  3. the Redis client.
+//  3. this worker's beat is removed, then the Redis client is closed.
 type Server struct {
 	cfg       Config
 	st        *store
@@ -121,12 +121,20 @@ func (s *Server) Start() error {
 	mux.HandleFunc(TypeShard, s.handleShard)
 	mux.HandleFunc(TypeAssemble, s.handleAssemble)
 	s.log.Info("worker starting", "concurrency", s.cfg.Concurrency, "queue", s.cfg.Queue)
+	ctx, cancel := context.WithCancel(context.Background())
+	// The first beat is written before any task is taken, so a running
+	// entry of this worker always has a beat to be judged by.
+	if err := s.st.beat(ctx, s.cfg.Identity, time.Now()); err != nil {
+		cancel()
+		return fmt.Errorf("worker: first beat: %w", err)
+	}
 	if err := s.srv.Start(mux); err != nil {
+		cancel()
 		return err
 	}
-	ctx, cancel := context.WithCancel(context.Background())
 	s.stopSweep = cancel
 	s.sweeper.Go(func() { s.sweepLoop(ctx) })
+	s.sweeper.Go(func() { s.watchdogLoop(ctx) })
 	return nil
 }
 
@@ -141,6 +149,13 @@ func (s *Server) Shutdown() {
 		}
 		s.sweeper.Wait()
 		s.srv.Shutdown()
+		// Every handler has returned: this worker runs no shard, and its
+		// beat can go.
+		ctx, cancel := context.WithTimeout(context.Background(), 5*time.Second)
+		if err := s.st.forgetWorker(ctx, s.cfg.Identity); err != nil {
+			s.log.Warn("removing this worker's beat", "err", err)
+		}
+		cancel()
 		if err := s.st.close(); err != nil {
 			s.log.Warn("closing the Redis client", "err", err)
 		}
@@ -228,8 +243,11 @@ func (s *Server) liveStudy(ctx context.Context, t *asynq.Task) (id string, rec s
 // and are skipped.
 func (s *Server) handlePlan(ctx context.Context, t *asynq.Task) error {
 	id, rec, skip, err := s.liveStudy(ctx, t)
-	if skip || err != nil {
+	if err != nil {
 		return err
+	}
+	if skip {
+		return s.st.planned(ctx, id)
 	}
 	study, err := s.study(ctx, id)
 	if err != nil {
@@ -271,7 +289,10 @@ func (s *Server) handlePlan(ctx context.Context, t *asynq.Task) error {
 		if err := dropTasks(ctx, s.inspector, s.cfg, id, rec.Owner, len(specs)); err != nil {
 			s.log.Warn("dropping the tasks of a study canceled while planned", "study", id, "err", err)
 		}
-		return nil
+		return s.st.planned(ctx, id)
+	}
+	if err := s.st.planned(ctx, id); err != nil {
+		return err // the retry enqueues nothing new and removes it again
 	}
 	s.log.Info("study planned", "study", id, "shards", len(specs), "shard_size", size, "fits", study.TotalFits())
 	return s.maybeAssemble(ctx, id, len(specs))
@@ -308,6 +329,23 @@ func (s *Server) handleShard(ctx context.Context, t *asynq.Task) error {
 	if err := s.st.countRun(ctx, id, spec.Index); err != nil {
 		return err
 	}
+	// The running entry lets another worker's watchdog rerun this shard
+	// soon if this process dies; it goes when the handler returns.
+	field := runningField(id, spec.Index, s.cfg.Identity)
+	if err := s.st.addRunning(ctx, field, runningShard{
+		Worker: s.cfg.Identity, Study: id, Index: spec.Index, Payload: t.Payload(), Started: time.Now(),
+	}); err != nil {
+		return err
+	}
+	defer func() {
+		ctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), 5*time.Second)
+		defer cancel()
+		if err := s.st.removeRunning(ctx, field); err != nil {
+			// Left behind, the entry is claimed by a watchdog once this
+			// worker stops beating, and the rerun finds the shard stored.
+			s.log.Warn("removing a running entry", "study", id, "shard", spec.Index, "err", err)
+		}
+	}()
 	c, err := s.compiled(ctx, id)
 	if err != nil {
 		return err

@@ -236,13 +236,18 @@ func TestKeyLayout(t *testing.T) {
 			if err != nil || ttl <= time.Hour || ttl > 2*time.Hour {
 				t.Errorf("index %q has TTL %v (%v), want in (1h, 2h]", k, ttl, err)
 			}
+		} else if k == beatsKey {
+			ttl, err := rdb.TTL(context.Background(), k).Result()
+			if err != nil || ttl <= 0 || ttl > beatsForgotten {
+				t.Errorf("%q has TTL %v (%v), want in (0, %v]", k, ttl, err, beatsForgotten)
+			}
 		} else {
-			t.Errorf("key %q is neither the study's nor an index", k)
+			t.Errorf("key %q is neither the study's, an index nor the live worker's beat", k)
 		}
 	}
 	// The shard results and partial progress are dropped once done.
 	want := []string{studyKey(st.ID), inputKey(st.ID), doneKey(st.ID), runsKey(st.ID), workersKey(st.ID),
-		reportKey(st.ID, ReportJSON), reportKey(st.ID, ReportHTML), reportKey(st.ID, FitsCSV), ownerKey("harbour"), indexKey}
+		reportKey(st.ID, ReportJSON), reportKey(st.ID, ReportHTML), reportKey(st.ID, FitsCSV), ownerKey("harbour"), indexKey, beatsKey}
 	if d := cmp.Diff(sortedCopy(want), sortedCopy(ours)); d != "" {
 		t.Fatalf("keys after a finished study (-want +got):\n%s", d)
 	}
