@@ -173,7 +173,7 @@ func TestSubmitToReport(t *testing.T) {
 		t.Fatalf("discrimen_fits_total = %v, want 32", n)
 	}
 	want := `
-# HELP discrimen_studies Studies kept in Redis, by state.
+# HELP discrimen_studies Studies kept in Redis, by state (a snapshot at most 5 s old).
 # TYPE discrimen_studies gauge
 discrimen_studies{state="canceled"} 0
 discrimen_studies{state="done"} 1
@@ -646,7 +646,7 @@ func TestMetricsBeforeAnyTask(t *testing.T) {
 	reg := prometheus.NewRegistry()
 	r := newRig(t, func(c *Config) { c.Registerer = reg })
 	want := `
-# HELP discrimen_redis_up 1 when the last scrape could read Redis.
+# HELP discrimen_redis_up 1 when the latest snapshot could read Redis.
 # TYPE discrimen_redis_up gauge
 discrimen_redis_up 1
 `
