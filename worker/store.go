@@ -77,6 +77,8 @@ type Status struct {
 	ID    string
 	Owner string
 	Name  string
+	// State is the stored state, or Recovering for a running study with a
+	// lost shard waiting to be rerun.
 	State State
 	// Done and Total count fits. Done includes the finished participants
 	// of running shards, so it moves smoothly.
