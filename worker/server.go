@@ -49,6 +49,10 @@ type Server struct {
 	stopSweep  context.CancelFunc
 	sweeper    sync.WaitGroup
 
+	// beatingSince is when the watchdog's beats last started to succeed
+	// (zero after a failed beat); only its goroutine touches it.
+	beatingSince time.Time
+
 	shutdown sync.Once
 }
 

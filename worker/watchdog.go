@@ -87,10 +87,14 @@ func (s *Server) watchdogLoop(ctx context.Context) {
 func (s *Server) watch(ctx context.Context) {
 	now := time.Now()
 	if err := s.st.beat(ctx, s.cfg.Identity, now); err != nil {
+		s.beatingSince = time.Time{}
 		if ctx.Err() == nil {
 			s.log.Warn("watchdog: beating", "err", err)
 		}
 		return
+	}
+	if s.beatingSince.IsZero() {
+		s.beatingSince = now
 	}
 	if n, err := s.replan(ctx, now); err != nil {
 		if ctx.Err() == nil {
@@ -98,6 +102,11 @@ func (s *Server) watch(ctx context.Context) {
 		}
 	} else if n > 0 {
 		s.log.Info("watchdog: enqueued the plans of studies left unplanned", "studies", n)
+	}
+	// After an outage of Redis every worker's beat is old; judging others
+	// before they had lostAfter to beat again would rerun live shards.
+	if now.Sub(s.beatingSince) < s.cfg.lostAfter() {
+		return
 	}
 	if n, err := s.rescue(ctx, now); err != nil {
 		if ctx.Err() == nil {

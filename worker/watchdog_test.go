@@ -126,6 +126,12 @@ func TestLostShardRerun(t *testing.T) {
 	if before.State != Running || before.Done != 3 {
 		t.Fatalf("before the rescue: %s with %d fits done, want running with the ghost's 3", before.State, before.Done)
 	}
+	// A watchdog that has only just begun to beat (a start, or Redis back
+	// after an outage) does not judge others yet.
+	idle.watch(ctx)
+	if running, err := idle.st.runningShards(ctx); err != nil || len(running) != 1 {
+		t.Fatalf("after a first watchdog pass: %d running entries (%v), want the ghost's 1 untouched", len(running), err)
+	}
 	if n, err := idle.rescue(ctx, time.Now()); err != nil || n != 1 {
 		t.Fatalf("rescue: %d shards (%v), want 1", n, err)
 	}
