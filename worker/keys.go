@@ -12,10 +12,11 @@ package worker
 // A submit writes, in this order, the unplanned entry, the study (record
 // and input in one transaction), the two index entries, then the plan
 // task. An api that dies anywhere in between leaves an unplanned entry:
-// each worker's watchdog (replan.go) enqueues the plan again for an entry
+// each worker's watchdog (watchdog.go) enqueues the plan again for an entry
 // older than Config.ReplanAfter whose study exists (and puts it back in
 // the indexes), and drops an entry whose study was never stored. So no
-// stored study stays queued without a plan.
+// stored study stays queued without a plan. The unplanned set has no
+// expiry: the watchdog removes every entry.
 //
 // asynq keeps its own keys under "asynq:{<queue>}:..."; those are asynq's
 // layout, not ours, and are only touched through asynq's client and
