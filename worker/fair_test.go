@@ -2,6 +2,7 @@ package worker
 
 import (
 	"context"
+	"errors"
 	"strings"
 	"testing"
 	"time"
@@ -65,5 +66,46 @@ func TestFairShares(t *testing.T) {
 	r.checkReport(t, b, small.ID, smallStudy)
 	if _, err := r.client.Cancel(context.Background(), a, big.ID); err != nil {
 		t.Fatal(err)
+	}
+}
+
+// BenchmarkFairShares reports the seconds a 100-fit study of one key takes
+// while another key has 50,004 fits queued: "fair" with the two keys in
+// different shard queues, "shared" with two keys that hash into the same
+// queue, which then runs first in, first out (the old behaviour for every
+// pair of keys). Run it once:
+//
+//	go test ./worker -run '^$' -bench FairShares -benchtime 1x
+func BenchmarkFairShares(b *testing.B) {
+	for _, tc := range []struct {
+		name   string
+		shared bool
+	}{{"fair", false}, {"shared", true}} {
+		b.Run(tc.name, func(b *testing.B) {
+			const a = "owner-a"
+			other := "owner-b"
+			for i := 0; (ShareIndex(other) == ShareIndex(a)) != tc.shared; i++ {
+				other = "owner-" + itoa(i)
+			}
+			var secs float64
+			for range b.N {
+				r := newRig(b, nil)
+				srv := r.server(b, nil)
+				big := r.submit(b, a, backlogStudy)
+				r.wait(b, a, big.ID, time.Minute, func(s Status) bool { return s.State == Running && s.Done > 0 })
+				start := time.Now()
+				small := r.submit(b, other, smallStudy)
+				st := r.wait(b, other, small.ID, 5*time.Minute, final)
+				secs += time.Since(start).Seconds()
+				if st.State != Done {
+					b.Fatalf("small study %s: %s", st.State, st.Error)
+				}
+				if _, err := r.client.Cancel(context.Background(), a, big.ID); err != nil && !errors.Is(err, ErrFinished) {
+					b.Fatal(err)
+				}
+				srv.Shutdown()
+			}
+			b.ReportMetric(secs/float64(b.N), "small-study-s")
+		})
 	}
 }
