@@ -128,7 +128,11 @@ func (s *Server) Start() error {
 	ctx, cancel := context.WithCancel(context.Background())
 	// The first beat is written before any task is taken, so a running
 	// entry of this worker always has a beat to be judged by.
-	if err := s.st.beat(ctx, s.cfg.Identity, time.Now()); err != nil {
+	now, err := s.st.rdb.Time(ctx).Result()
+	if err == nil {
+		err = s.st.beat(ctx, s.cfg.Identity, now)
+	}
+	if err != nil {
 		cancel()
 		return fmt.Errorf("worker: first beat: %w", err)
 	}

@@ -41,7 +41,7 @@ func (c Config) lostAfter() time.Duration { return 5 * c.WatchdogInterval }
 const beatsForgotten = time.Hour
 
 // runningShard is the value of a running hash entry: enough to enqueue
-// the shard again.
+// the shard again, and when it started (this host's clock; for operators).
 type runningShard struct {
 	Worker  string    `json:"worker"`
 	Study   string    `json:"study"`
@@ -85,8 +85,13 @@ func (s *Server) watchdogLoop(ctx context.Context) {
 // watch is one watchdog pass; failures are logged and tried again at the
 // next pass.
 func (s *Server) watch(ctx context.Context) {
-	now := time.Now()
-	if err := s.st.beat(ctx, s.cfg.Identity, now); err != nil {
+	// Redis's clock, not this host's: beats written by one host are judged
+	// by another, whose clock may be off by more than lostAfter.
+	now, err := s.st.rdb.Time(ctx).Result()
+	if err == nil {
+		err = s.st.beat(ctx, s.cfg.Identity, now)
+	}
+	if err != nil {
 		s.beatingSince = time.Time{}
 		if ctx.Err() == nil {
 			s.log.Warn("watchdog: beating", "err", err)
@@ -169,11 +174,11 @@ func (s *Server) rescue(ctx context.Context, now time.Time) (int, error) {
 	busy := map[string]bool{}
 	for field, r := range running {
 		busy[r.Worker] = true
+		// A worker beats before it takes its first task, and its beat is
+		// forgotten only while it runs nothing: no beat at all means the
+		// beats hash expired, every worker silent for beatsForgotten.
 		if last, ok := beats[r.Worker]; ok && now.Sub(last) < s.cfg.lostAfter() {
 			continue
-		}
-		if r.Started.After(now.Add(-s.cfg.lostAfter())) {
-			continue // registered before its worker's first beat was written
 		}
 		claimed, err := s.st.claimLost(ctx, field)
 		if err != nil {
