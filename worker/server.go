@@ -510,15 +510,15 @@ func (s *Server) handleAssemble(ctx context.Context, t *asynq.Task) error {
 	if files[FitsCSV], err = rep.FitsCSV(); err != nil {
 		return permanent("rendering fits.csv: %v", err)
 	}
-	if err := s.st.storeReports(ctx, id, files); err != nil {
-		return err
+	ok, err := s.st.complete(ctx, id, files, finished)
+	if errors.Is(err, ErrNotFound) {
+		return nil // expired while assembling
 	}
-	ok, err := s.st.setStatus(ctx, id, []State{Queued, Running}, Done, "assemblies", "finished", finished.UnixNano())
 	if err != nil {
 		return err
 	}
 	if !ok {
-		return nil // canceled while assembling
+		return nil // canceled, failed or assembled by a duplicate meanwhile
 	}
 	s.m.assemblies.Inc()
 	s.cache.forget(id)

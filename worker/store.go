@@ -584,15 +584,46 @@ func (st *store) workerCount(ctx context.Context, id string) (int, error) {
 	return int(n), err
 }
 
-// storeReports writes the rendered report files with the retention TTL.
-func (st *store) storeReports(ctx context.Context, id string, files map[ReportKind][]byte) error {
-	_, err := st.rdb.TxPipelined(ctx, func(p redis.Pipeliner) error {
-		for k, b := range files {
-			p.Set(ctx, reportKey(id, k), b, st.retention)
+// completeScript stores a study's report files (KEYS[2..4], ARGV[3..5],
+// expiring after ARGV[2] ms) and marks it done at time ARGV[1], only while
+// its status (KEYS[1]) is queued or running: the first assembly's report
+// stands, and a duplicate or retried assembly that finishes later changes
+// nothing. It returns 1 when applied, 0 when the study was final already,
+// -1 when it is gone.
+var completeScript = redis.NewScript(`
+local cur = redis.call('HGET', KEYS[1], 'status')
+if not cur then return -1 end
+if cur ~= 'queued' and cur ~= 'running' then return 0 end
+for i = 2, #KEYS do
+  redis.call('SET', KEYS[i], ARGV[i + 1], 'PX', ARGV[2])
+end
+redis.call('HSET', KEYS[1], 'status', 'done', 'finished', ARGV[1])
+redis.call('HINCRBY', KEYS[1], 'assemblies', 1)
+return 1
+`)
+
+// complete stores the report files and marks the study done, in one
+// step, unless it reached a final state first (see completeScript).
+func (st *store) complete(ctx context.Context, id string, files map[ReportKind][]byte, finished time.Time) (bool, error) {
+	kinds := []ReportKind{ReportJSON, ReportHTML, FitsCSV}
+	keys := []string{studyKey(id)}
+	args := []any{finished.UnixNano(), st.retention.Milliseconds()}
+	for _, k := range kinds {
+		b, ok := files[k]
+		if !ok {
+			panic("worker: complete needs every report file")
 		}
-		return nil
-	})
-	return err
+		keys = append(keys, reportKey(id, k))
+		args = append(args, b)
+	}
+	n, err := completeScript.Run(ctx, st.rdb, keys, args...).Int()
+	if err != nil {
+		return false, err
+	}
+	if n < 0 {
+		return false, ErrNotFound
+	}
+	return n == 1, nil
 }
 
 func (st *store) report(ctx context.Context, id string, k ReportKind) ([]byte, error) {
