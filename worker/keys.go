@@ -38,7 +38,7 @@ package worker
 //	discrimen:{index}:studies         sorted set  every study id, all score 0, for metrics
 //	discrimen:{plans}:unplanned       sorted set  study id → submission time (Unix ms): written before the study, removed once its plan is stored
 //	discrimen:{workers}:beats         hash        worker identity → time of its watchdog's last beat
-//	discrimen:{workers}:running       hash        "ID:index@identity" → JSON of a shard running now (watchdog.go's runningShard)
+//	discrimen:{workers}:running       hash        "TYPE:ID:index@identity" → JSON of a task running now (watchdog.go's runningTask; index -1 for a plan or assembly)
 //
 // Fields of discrimen:{ID}:study, decoded into a studyRecord by
 // decodeRecord (record.go). The first five are written when the study is
@@ -63,10 +63,11 @@ package worker
 // The values of the done, partial and runs hashes are counts as above,
 // their fields shard indexes; the lost hash's values are times as above.
 //
-// A shard handler adds its running entry before it runs and removes it
-// when it returns; a worker killed mid-shard leaves it behind, and the
+// Every task handler adds its running entry before it runs and removes it
+// when it returns; a worker killed mid-task leaves it behind, and the
 // watchdog of a live worker (watchdog.go) that sees the entry's worker
-// stopped beating claims it (HDEL), marks the shard lost and requeues it.
+// stopped beating claims it (HDEL) and requeues the task (a shard is
+// marked lost first).
 // The beats hash expires an hour after the last beat of any worker; the
 // running hash has no expiry (a live entry must stay), and the watchdog
 // empties it of dead workers' entries.

@@ -121,9 +121,9 @@ func retryDelay(n int, err error, _ *asynq.Task) time.Duration {
 // Start begins taking tasks; it returns at once.
 func (s *Server) Start() error {
 	mux := asynq.NewServeMux()
-	mux.HandleFunc(TypePlan, s.handlePlan)
-	mux.HandleFunc(TypeShard, s.handleShard)
-	mux.HandleFunc(TypeAssemble, s.handleAssemble)
+	mux.HandleFunc(TypePlan, s.tracked(s.handlePlan))
+	mux.HandleFunc(TypeShard, s.tracked(s.handleShard))
+	mux.HandleFunc(TypeAssemble, s.tracked(s.handleAssemble))
 	s.log.Info("worker starting", "concurrency", s.cfg.Concurrency, "queue", s.cfg.Queue)
 	ctx, cancel := context.WithCancel(context.Background())
 	// The first beat is written before any task is taken, so a running
@@ -337,23 +337,6 @@ func (s *Server) handleShard(ctx context.Context, t *asynq.Task) error {
 	if err := s.st.countRun(ctx, id, spec.Index); err != nil {
 		return err
 	}
-	// The running entry lets another worker's watchdog rerun this shard
-	// soon if this process dies; it goes when the handler returns.
-	field := runningField(id, spec.Index, s.cfg.Identity)
-	if err := s.st.addRunning(ctx, field, runningShard{
-		Worker: s.cfg.Identity, Study: id, Index: spec.Index, Payload: t.Payload(), Started: time.Now(),
-	}); err != nil {
-		return err
-	}
-	defer func() {
-		ctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), 5*time.Second)
-		defer cancel()
-		if err := s.st.removeRunning(ctx, field); err != nil {
-			// Left behind, the entry is claimed by a watchdog once this
-			// worker stops beating, and the rerun finds the shard stored.
-			s.log.Warn("removing a running entry", "study", id, "shard", spec.Index, "err", err)
-		}
-	}()
 	c, err := s.compiled(ctx, id)
 	if err != nil {
 		return err

@@ -504,8 +504,8 @@ func (st *store) beats(ctx context.Context) (map[string]time.Time, error) {
 	return out, nil
 }
 
-// addRunning registers a shard run of this worker; removeRunning ends it.
-func (st *store) addRunning(ctx context.Context, field string, r runningShard) error {
+// addRunning registers a task run of this worker; removeRunning ends it.
+func (st *store) addRunning(ctx context.Context, field string, r runningTask) error {
 	b, err := json.Marshal(r)
 	if err != nil {
 		return fmt.Errorf("worker: encoding a running entry: %w", err)
@@ -524,16 +524,16 @@ func (st *store) claimLost(ctx context.Context, field string) (bool, error) {
 	return n == 1, err
 }
 
-// runningShards returns every registered shard run. An entry that does not
+// runningTasks returns every registered shard run. An entry that does not
 // decode is removed (it can name no shard to rerun) and skipped.
-func (st *store) runningShards(ctx context.Context) (map[string]runningShard, error) {
+func (st *store) runningTasks(ctx context.Context) (map[string]runningTask, error) {
 	m, err := st.rdb.HGetAll(ctx, runningKey).Result()
 	if err != nil {
 		return nil, err
 	}
-	out := make(map[string]runningShard, len(m))
+	out := make(map[string]runningTask, len(m))
 	for f, v := range m {
-		var r runningShard
+		var r runningTask
 		if err := json.Unmarshal([]byte(v), &r); err != nil || !ValidID(r.Study) {
 			if err := st.rdb.HDel(ctx, runningKey, f).Err(); err != nil {
 				return nil, err

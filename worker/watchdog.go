@@ -19,13 +19,14 @@ import (
 //     submit gets its plan task again (the api died between storing it and
 //     enqueueing the plan; a plan that is still queued conflicts on its
 //     task ID and nothing changes);
-//   - it rescues lost shards: a shard registered as running by a worker
-//     whose last beat is older than lostAfter is marked lost (the study's
-//     status reads "recovering"), its partial progress is dropped and a
-//     rerun task goes to the control queue, served first. asynq v0.26
-//     would give the shard back only once its lease expired and its
-//     recoverer ran, about a minute later; the original task still comes
-//     back then, finds the result stored and does nothing.
+//   - it rescues lost tasks: a task registered as running (tracked) by a
+//     worker whose last beat is older than lostAfter gets a rerun task in
+//     the control queue, served first. A lost shard is also marked lost
+//     (the study's status reads "recovering") and its partial progress is
+//     dropped. asynq v0.26 would give the task back only once its lease
+//     expired and its recoverer ran, about a minute later; the original
+//     task still comes back then and finds nothing left to do (the shard
+//     stored, the study planned or done).
 //
 // Every step is idempotent, so any number of workers run it at once: a
 // lost shard is claimed by exactly one of them (HDEL of its running entry
@@ -40,19 +41,57 @@ func (c Config) lostAfter() time.Duration { return 5 * c.WatchdogInterval }
 // beatsForgotten is how old a beat is when the worker's entry is removed.
 const beatsForgotten = time.Hour
 
-// runningShard is the value of a running hash entry: enough to enqueue
-// the shard again, and when it started (this host's clock; for operators).
-type runningShard struct {
-	Worker  string    `json:"worker"`
-	Study   string    `json:"study"`
+// runningTask is the value of a running hash entry: enough to enqueue the
+// task again, and when it started (this host's clock; for operators).
+type runningTask struct {
+	Worker string `json:"worker"`
+	Type   string `json:"type"`
+	Study  string `json:"study"`
+	// Index is the shard's index, -1 for a plan or an assembly.
 	Index   int       `json:"index"`
 	Payload []byte    `json:"payload"`
 	Started time.Time `json:"started"`
 }
 
-// runningField names one worker's run of one shard.
-func runningField(id string, index int, worker string) string {
-	return id + ":" + strconv.Itoa(index) + "@" + worker
+// runningField names one worker's run of one task.
+func runningField(typ, id string, index int, worker string) string {
+	return typ + ":" + id + ":" + strconv.Itoa(index) + "@" + worker
+}
+
+// tracked registers a task as running for as long as h runs, so that the
+// watchdog of another worker reruns it soon if this process dies.
+func (s *Server) tracked(h func(context.Context, *asynq.Task) error) func(context.Context, *asynq.Task) error {
+	return func(ctx context.Context, t *asynq.Task) error {
+		var p struct {
+			Study string `json:"study"`
+			Spec  *struct {
+				Index int `json:"index"`
+			} `json:"spec"`
+		}
+		if err := json.Unmarshal(t.Payload(), &p); err != nil || !ValidID(p.Study) {
+			return h(ctx, t) // the handler reports the bad payload
+		}
+		index := -1
+		if p.Spec != nil {
+			index = p.Spec.Index
+		}
+		field := runningField(t.Type(), p.Study, index, s.cfg.Identity)
+		if err := s.st.addRunning(ctx, field, runningTask{
+			Worker: s.cfg.Identity, Type: t.Type(), Study: p.Study, Index: index, Payload: t.Payload(), Started: time.Now(),
+		}); err != nil {
+			return err
+		}
+		defer func() {
+			ctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), 5*time.Second)
+			defer cancel()
+			if err := s.st.removeRunning(ctx, field); err != nil {
+				// Left behind, the entry is claimed by a watchdog once this
+				// worker stops beating, and the rerun finds nothing to do.
+				s.log.Warn("removing a running entry", "task", t.Type(), "study", p.Study, "err", err)
+			}
+		}()
+		return h(ctx, t)
+	}
 }
 
 // rerunTaskID is unique per loss: the shard's run count at the time it
@@ -65,6 +104,14 @@ func (c Config) rerunTask(id string, index, runs int, payload []byte) *asynq.Tas
 	return asynq.NewTask(TypeShard, payload,
 		asynq.TaskID(rerunTaskID(id, index, runs)), asynq.Queue(c.controlQueue()), asynq.MaxRetry(c.MaxRetry),
 		asynq.Timeout(c.ShardTimeout))
+}
+
+// rerunControlTask reruns a lost plan or assembly; its ID is unique per
+// loss by the time (Unix ms) it was found lost.
+func (c Config) rerunControlTask(typ, id string, at time.Time, payload []byte) *asynq.Task {
+	return asynq.NewTask(typ, payload,
+		asynq.TaskID("rerun:"+typ+":"+id+":"+strconv.FormatInt(at.UnixMilli(), 10)),
+		asynq.Queue(c.controlQueue()), asynq.MaxRetry(c.MaxRetry))
 }
 
 // watchdogLoop beats at once, then runs a watchdog pass every
@@ -159,14 +206,14 @@ func (s *Server) replan(ctx context.Context, now time.Time) (int, error) {
 	return n, nil
 }
 
-// rescue reruns the shards of workers that stopped beating and returns
-// how many it requeued.
+// rescue reruns the tasks of workers that stopped beating and returns how
+// many it requeued.
 func (s *Server) rescue(ctx context.Context, now time.Time) (int, error) {
 	beats, err := s.st.beats(ctx)
 	if err != nil {
 		return 0, err
 	}
-	running, err := s.st.runningShards(ctx)
+	running, err := s.st.runningTasks(ctx)
 	if err != nil {
 		return 0, err
 	}
@@ -187,7 +234,7 @@ func (s *Server) rescue(ctx context.Context, now time.Time) (int, error) {
 		if !claimed {
 			continue // another watchdog took it
 		}
-		ok, err := s.requeueLost(ctx, r)
+		ok, err := s.requeueLost(ctx, r, now)
 		if err != nil {
 			return n, err
 		}
@@ -205,9 +252,10 @@ func (s *Server) rescue(ctx context.Context, now time.Time) (int, error) {
 	return n, nil
 }
 
-// requeueLost marks a claimed lost shard and enqueues its rerun, unless
-// its study is final or gone or the shard is stored already.
-func (s *Server) requeueLost(ctx context.Context, r runningShard) (bool, error) {
+// requeueLost enqueues the rerun of a claimed lost task, unless its study
+// is final or gone or, for a shard, the shard is stored already; a lost
+// shard is marked lost first.
+func (s *Server) requeueLost(ctx context.Context, r runningTask, now time.Time) (bool, error) {
 	rec, err := s.st.record(ctx, r.Study)
 	if errors.Is(err, ErrNotFound) {
 		return false, nil
@@ -218,22 +266,27 @@ func (s *Server) requeueLost(ctx context.Context, r runningShard) (bool, error) 
 	if rec.State.Final() {
 		return false, nil
 	}
-	if stored, err := s.st.shardStored(ctx, r.Study, r.Index); err != nil || stored {
-		return false, err
-	}
-	runs, err := s.st.markLost(ctx, r.Study, r.Index, time.Now())
-	if err != nil {
-		return false, err
-	}
-	var p shardPayload
-	if err := json.Unmarshal(r.Payload, &p); err != nil || p.Study != r.Study {
-		s.log.Warn("watchdog: a running shard's payload does not decode; asynq's lease recovery will rerun it", "study", r.Study, "shard", r.Index)
+	var task *asynq.Task
+	switch r.Type {
+	case TypeShard:
+		if stored, err := s.st.shardStored(ctx, r.Study, r.Index); err != nil || stored {
+			return false, err
+		}
+		runs, err := s.st.markLost(ctx, r.Study, r.Index, now)
+		if err != nil {
+			return false, err
+		}
+		task = s.cfg.rerunTask(r.Study, r.Index, runs, r.Payload)
+	case TypePlan, TypeAssemble:
+		task = s.cfg.rerunControlTask(r.Type, r.Study, now, r.Payload)
+	default:
+		s.log.Warn("watchdog: a running entry of an unknown task type; asynq's lease recovery will rerun it", "type", r.Type, "study", r.Study)
 		return false, nil
 	}
-	_, err = s.queue.EnqueueContext(ctx, s.cfg.rerunTask(r.Study, r.Index, runs, r.Payload))
+	_, err = s.queue.EnqueueContext(ctx, task)
 	if err != nil && !errors.Is(err, asynq.ErrTaskIDConflict) {
 		return false, err
 	}
-	s.log.Info("watchdog: shard lost with its worker, rerun queued", "study", r.Study, "shard", r.Index, "worker", r.Worker)
+	s.log.Info("watchdog: task lost with its worker, rerun queued", "type", r.Type, "study", r.Study, "shard", r.Index, "worker", r.Worker)
 	return true, nil
 }

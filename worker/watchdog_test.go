@@ -108,8 +108,8 @@ func TestLostShardRerun(t *testing.T) {
 	if err := idle.st.beat(ctx, "ghost", dead); err != nil {
 		t.Fatal(err)
 	}
-	if err := idle.st.addRunning(ctx, runningField(st.ID, 0, "ghost"), runningShard{
-		Worker: "ghost", Study: st.ID, Index: 0, Payload: r.cfg.shardTask(st.ID, "harbour", spec).Payload(), Started: dead,
+	if err := idle.st.addRunning(ctx, runningField(TypeShard, st.ID, 0, "ghost"), runningTask{
+		Worker: "ghost", Type: TypeShard, Study: st.ID, Index: 0, Payload: r.cfg.shardTask(st.ID, "harbour", spec).Payload(), Started: dead,
 	}); err != nil {
 		t.Fatal(err)
 	}
@@ -129,7 +129,7 @@ func TestLostShardRerun(t *testing.T) {
 	// A watchdog that has only just begun to beat (a start, or Redis back
 	// after an outage) does not judge others yet.
 	idle.watch(ctx)
-	if running, err := idle.st.runningShards(ctx); err != nil || len(running) != 1 {
+	if running, err := idle.st.runningTasks(ctx); err != nil || len(running) != 1 {
 		t.Fatalf("after a first watchdog pass: %d running entries (%v), want the ghost's 1 untouched", len(running), err)
 	}
 	if n, err := idle.rescue(ctx, time.Now()); err != nil || n != 1 {
@@ -177,5 +177,44 @@ func TestLostShardRerun(t *testing.T) {
 	}
 	if string(before2) != string(after2) {
 		t.Fatal("a duplicate shard after the rerun changed the report")
+	}
+}
+
+// TestLostPlanRerun: a plan whose worker died mid-plan is rerun from the
+// control queue; the study reaches done with the in-process report.
+func TestLostPlanRerun(t *testing.T) {
+	r := newRig(t, nil)
+	ctx := context.Background()
+	st := r.submit(t, "harbour", tinyStudy)
+	idle := idleServer(t, r, nil)
+	if err := r.client.inspector.DeleteTask(r.cfg.controlQueue(), planTaskID(st.ID)); err != nil {
+		t.Fatal(err)
+	}
+	dead := time.Now().Add(-time.Minute)
+	if err := idle.st.beat(ctx, "ghost", dead); err != nil {
+		t.Fatal(err)
+	}
+	plan := r.cfg.planTask(st.ID)
+	if err := idle.st.addRunning(ctx, runningField(TypePlan, st.ID, -1, "ghost"), runningTask{
+		Worker: "ghost", Type: TypePlan, Study: st.ID, Index: -1, Payload: plan.Payload(), Started: dead,
+	}); err != nil {
+		t.Fatal(err)
+	}
+	if n, err := idle.rescue(ctx, time.Now()); err != nil || n != 1 {
+		t.Fatalf("rescue: %d tasks (%v), want 1", n, err)
+	}
+	srv := r.server(t, nil)
+	defer srv.Shutdown()
+	done := r.wait(t, "harbour", st.ID, time.Minute, final)
+	if done.State != Done || done.Assemblies != 1 {
+		t.Fatalf("after the plan's rerun: %s (%s), %d assemblies", done.State, done.Error, done.Assemblies)
+	}
+	r.checkReport(t, "harbour", st.ID, tinyStudy)
+	running, err := srv.st.runningTasks(ctx)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(running) != 0 {
+		t.Fatalf("%d running entries once the study is done, want 0: %v", len(running), running)
 	}
 }
