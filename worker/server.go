@@ -100,8 +100,12 @@ func NewServer(cfg Config) (*Server, error) {
 // weighs as much as all shard queues together: plans and assemblies are
 // short and unblock whole studies, so they are drawn first half of the
 // time even when every shard queue is busy.
+//
+// The queue named Queue itself, where earlier releases put every shard,
+// is served too, with weight 1, so that shards enqueued before an upgrade
+// still run.
 func queueWeights(cfg Config) map[string]int {
-	w := map[string]int{cfg.controlQueue(): ShareQueues}
+	w := map[string]int{cfg.controlQueue(): ShareQueues, cfg.Queue: 1}
 	for _, q := range cfg.shareQueues() {
 		w[q] = 1
 	}
