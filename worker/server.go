@@ -52,6 +52,8 @@ type Server struct {
 	// beatingSince is when the watchdog's beats last started to succeed
 	// (zero after a failed beat); only its goroutine touches it.
 	beatingSince time.Time
+	// passes counts the watchdog's passes (its goroutine only).
+	passes int
 
 	shutdown sync.Once
 }

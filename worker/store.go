@@ -487,6 +487,20 @@ func (st *store) forgetWorker(ctx context.Context, identity string) error {
 	return st.rdb.HDel(ctx, beatsKey, identity).Err()
 }
 
+// forgetSilentScript removes a worker's beat only if it is still the one
+// read (ARGV[2]): a beat that arrived since stays.
+var forgetSilentScript = redis.NewScript(`
+if redis.call('HGET', KEYS[1], ARGV[1]) == ARGV[2] then
+  return redis.call('HDEL', KEYS[1], ARGV[1])
+end
+return 0
+`)
+
+// forgetSilent removes a silent worker's beat, last as read by beats.
+func (st *store) forgetSilent(ctx context.Context, identity string, last time.Time) error {
+	return forgetSilentScript.Run(ctx, st.rdb, []string{beatsKey}, identity, last.UnixNano()).Err()
+}
+
 // beats returns every worker's last beat.
 func (st *store) beats(ctx context.Context) (map[string]time.Time, error) {
 	m, err := st.rdb.HGetAll(ctx, beatsKey).Result()

@@ -38,7 +38,29 @@ import (
 // under load (a full machine, a slow Redis) is not taken for dead.
 func (c Config) lostAfter() time.Duration { return 5 * c.WatchdogInterval }
 
-// beatsForgotten is how old a beat is when the worker's entry is removed.
+// fullRescueEvery: every this many passes (a minute at the default
+// interval) the watchdog reads the running hash even when every beat is
+// fresh.
+const fullRescueEvery = 30
+
+// staleBeat reports whether some worker's beat is older than lostAfter.
+func (s *Server) staleBeat(ctx context.Context, now time.Time) (bool, error) {
+	beats, err := s.st.beats(ctx)
+	if err != nil {
+		return false, err
+	}
+	for _, last := range beats {
+		if now.Sub(last) >= s.cfg.lostAfter() {
+			return true, nil
+		}
+	}
+	return false, nil
+}
+
+// beatsForgotten is the expiry of the beats hash, restarted by every beat:
+// it goes once no worker has beaten for that long. A single silent
+// worker's beat goes sooner: once it is older than lostAfter and the
+// worker has no running entry left (rescue).
 const beatsForgotten = time.Hour
 
 // runningTask is the value of a running hash entry: enough to enqueue the
@@ -160,6 +182,19 @@ func (s *Server) watch(ctx context.Context) {
 	if now.Sub(s.beatingSince) < s.cfg.lostAfter() {
 		return
 	}
+	s.passes++
+	if s.passes%fullRescueEvery != 0 {
+		// The running hash can be large (every task of every worker);
+		// read it only when some worker is silent. Entries of a worker
+		// with no beat at all (every beat expired) wait for a full pass.
+		stale, err := s.staleBeat(ctx, now)
+		if err != nil || !stale {
+			if err != nil && ctx.Err() == nil {
+				s.log.Warn("watchdog: reading the beats", "err", err)
+			}
+			return
+		}
+	}
 	if n, err := s.rescue(ctx, now); err != nil {
 		if ctx.Err() == nil {
 			s.log.Warn("watchdog: rescuing lost shards", "err", err)
@@ -222,8 +257,9 @@ func (s *Server) rescue(ctx context.Context, now time.Time) (int, error) {
 	for field, r := range running {
 		busy[r.Worker] = true
 		// A worker beats before it takes its first task, and its beat is
-		// forgotten only while it runs nothing: no beat at all means the
-		// beats hash expired, every worker silent for beatsForgotten.
+		// forgotten only once it is silent with nothing running: no beat
+		// means it died, or it is so slow that a rerun is worth it (a
+		// duplicate run stores the same result).
 		if last, ok := beats[r.Worker]; ok && now.Sub(last) < s.cfg.lostAfter() {
 			continue
 		}
@@ -243,8 +279,8 @@ func (s *Server) rescue(ctx context.Context, now time.Time) (int, error) {
 		}
 	}
 	for w, last := range beats {
-		if !busy[w] && now.Sub(last) > beatsForgotten {
-			if err := s.st.forgetWorker(ctx, w); err != nil {
+		if !busy[w] && now.Sub(last) >= s.cfg.lostAfter() {
+			if err := s.st.forgetSilent(ctx, w, last); err != nil {
 				return n, err
 			}
 		}

@@ -138,6 +138,15 @@ func TestLostShardRerun(t *testing.T) {
 	if n, err := idle.rescue(ctx, time.Now()); err != nil || n != 0 {
 		t.Fatalf("second rescue: %d shards (%v), want 0: the first claimed it", n, err)
 	}
+	// The ghost has nothing running any more: its beat is forgotten, so the
+	// watchdogs stop reading the running hash for it.
+	beats, err := idle.st.beats(ctx)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, ok := beats["ghost"]; ok || len(beats) != 1 {
+		t.Fatalf("beats after the ghost's shard was requeued: %v, want only the idle server's (from its watch pass)", beats)
+	}
 	after, err := r.client.Status(ctx, "harbour", st.ID)
 	if err != nil {
 		t.Fatal(err)
