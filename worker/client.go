@@ -67,7 +67,9 @@ func (c *Client) Submit(ctx context.Context, owner string, input []byte, s *mode
 	if err := c.st.create(ctx, id, owner, s.Name, input, s.TotalFits(), now); err != nil {
 		return Status{}, err
 	}
-	if _, err := c.queue.EnqueueContext(ctx, c.cfg.planTask(id)); err != nil {
+	// A conflict means a watchdog enqueued the plan already (this submit
+	// was slower than Config.ReplanAfter): the study is on its way.
+	if _, err := c.queue.EnqueueContext(ctx, c.cfg.planTask(id)); err != nil && !errors.Is(err, asynq.ErrTaskIDConflict) {
 		// The caller gets the enqueue error either way; the stored study
 		// should not read "queued" for ever. Not applied only if it was
 		// canceled meanwhile, which is as final.

@@ -29,12 +29,17 @@ import (
 //     stored, the study planned or done).
 //
 // Every step is idempotent, so any number of workers run it at once: a
-// lost shard is claimed by exactly one of them (HDEL of its running entry
-// returns 1 once), and a rerun and the original writing the same shard
-// store the same bytes under the same index.
+// lost task is claimed by exactly one of them (HDEL of its running entry
+// returns 1 once), a rerun and the original writing the same shard store
+// the same result under the same index, and only the first assembly's
+// report is kept (store.complete).
+//
+// Unplanned entries are scored by the api host's clock and judged by
+// Redis's: a skew between the two only moves the replan earlier (the plan
+// task then conflicts) or later by the skew.
 
 // lostAfter is how long a worker may go without beating before its
-// running shards are rerun: five beats, so a worker whose beat is late
+// running tasks are rerun: five beats, so a worker whose beat is late
 // under load (a full machine, a slow Redis) is not taken for dead.
 func (c Config) lostAfter() time.Duration { return 5 * c.WatchdogInterval }
 
@@ -197,10 +202,10 @@ func (s *Server) watch(ctx context.Context) {
 	}
 	if n, err := s.rescue(ctx, now); err != nil {
 		if ctx.Err() == nil {
-			s.log.Warn("watchdog: rescuing lost shards", "err", err)
+			s.log.Warn("watchdog: rescuing lost tasks", "err", err)
 		}
 	} else if n > 0 {
-		s.log.Info("watchdog: requeued shards of workers that stopped beating", "shards", n)
+		s.log.Info("watchdog: requeued tasks of workers that stopped beating", "tasks", n)
 	}
 }
 
