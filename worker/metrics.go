@@ -26,6 +26,10 @@ type serverMetrics struct {
 	fitSeconds     prometheus.Histogram
 	compileSeconds prometheus.Histogram
 	assemblies     prometheus.Counter
+	// rescued counts reruns this worker's watchdog enqueued, by task type;
+	// replanned the plans it enqueued for studies left unplanned.
+	rescued   *prometheus.CounterVec
+	replanned prometheus.Counter
 }
 
 func newServerMetrics() *serverMetrics {
@@ -58,6 +62,17 @@ func newServerMetrics() *serverMetrics {
 			Help: "Reports assembled and stored by this worker.",
 		}),
 	}
+	m.rescued = prometheus.NewCounterVec(prometheus.CounterOpts{
+		Name: "discrimen_rescued_tasks_total",
+		Help: "Tasks of dead workers whose rerun this worker's watchdog enqueued, by task type.",
+	}, []string{"type"})
+	for _, typ := range []string{TypePlan, TypeShard, TypeAssemble} {
+		m.rescued.WithLabelValues(typ)
+	}
+	m.replanned = prometheus.NewCounter(prometheus.CounterOpts{
+		Name: "discrimen_replanned_studies_total",
+		Help: "Studies left unplanned by their submit whose plan this worker's watchdog enqueued.",
+	})
 	m.shards = map[string]prometheus.Counter{}
 	for _, o := range []string{shardStored, shardDuplicate, shardCanceled, shardDropped} {
 		m.shards[o] = m.shardsVec.WithLabelValues(o)
@@ -66,7 +81,7 @@ func newServerMetrics() *serverMetrics {
 }
 
 func (m *serverMetrics) register(r prometheus.Registerer) error {
-	for _, c := range []prometheus.Collector{m.shardsVec, m.fits, m.shardSeconds, m.fitSeconds, m.compileSeconds, m.assemblies} {
+	for _, c := range []prometheus.Collector{m.shardsVec, m.fits, m.shardSeconds, m.fitSeconds, m.compileSeconds, m.assemblies, m.rescued, m.replanned} {
 		if err := r.Register(c); err != nil {
 			return err
 		}

@@ -241,6 +241,7 @@ func (s *Server) replan(ctx context.Context, now time.Time) (int, error) {
 			return n, err
 		default:
 			n++
+			s.m.replanned.Inc()
 		}
 	}
 	return n, nil
@@ -327,6 +328,9 @@ func (s *Server) requeueLost(ctx context.Context, r runningTask, now time.Time) 
 	_, err = s.queue.EnqueueContext(ctx, task)
 	if err != nil && !errors.Is(err, asynq.ErrTaskIDConflict) {
 		return false, err
+	}
+	if err == nil {
+		s.m.rescued.WithLabelValues(r.Type).Inc()
 	}
 	s.log.Info("watchdog: task lost with its worker, rerun queued", "type", r.Type, "study", r.Study, "shard", r.Index, "worker", r.Worker)
 	return true, nil

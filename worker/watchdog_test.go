@@ -6,6 +6,7 @@ import (
 	"time"
 
 	"github.com/hibiken/asynq"
+	"github.com/prometheus/client_golang/prometheus/testutil"
 )
 
 // idleServer is a Server that is never started, for calling its handlers
@@ -58,6 +59,9 @@ func TestReplanAfterCrashedSubmit(t *testing.T) {
 		t.Fatalf("replanned study %s: %s", st.State, st.Error)
 	}
 	r.checkReport(t, "harbour", id, tinyStudy)
+	if n := testutil.ToFloat64(srv.m.replanned); n != 1 {
+		t.Fatalf("discrimen_replanned_studies_total = %v, want 1", n)
+	}
 	list, _, err := r.client.List(ctx, "harbour", "", 10)
 	if err != nil {
 		t.Fatal(err)
@@ -137,6 +141,9 @@ func TestLostShardRerun(t *testing.T) {
 	}
 	if n, err := idle.rescue(ctx, time.Now()); err != nil || n != 0 {
 		t.Fatalf("second rescue: %d shards (%v), want 0: the first claimed it", n, err)
+	}
+	if n := testutil.ToFloat64(idle.m.rescued.WithLabelValues(TypeShard)); n != 1 {
+		t.Fatalf("discrimen_rescued_tasks_total{type=study:shard} = %v, want 1", n)
 	}
 	// The ghost has nothing running any more: its beat is forgotten, so the
 	// watchdogs stop reading the running hash for it.
