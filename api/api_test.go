@@ -387,8 +387,8 @@ func TestMetrics(t *testing.T) {
 		`discrimen_http_request_duration_seconds_count{code="404",route="GET /v1/studies/{id}"} 1`,
 		`discrimen_studies{state="done"} 1`,
 		`discrimen_studies{state="running"} 0`,
-		`discrimen_queue_tasks{queue="discrimen",state="pending"} 0`,
-		`discrimen_queue_latency_seconds{queue="discrimen"}`,
+		`discrimen_queue_tasks{queue="discrimen.share0",state="pending"} 0`,
+		`discrimen_queue_latency_seconds{queue="discrimen.control"}`,
 		`discrimen_redis_up 1`,
 	} {
 		if !bytes.Contains(p.body, []byte(want)) {

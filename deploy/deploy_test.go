@@ -101,7 +101,8 @@ func port(t *testing.T, addr string) string {
 	return p
 }
 
-// TestCompose: redis with append-only persistence on a volume, the API and
+// TestCompose: redis with append-only persistence on a volume and a memory
+// cap that never evicts, the API and
 // two workers on it, Prometheus scraping exactly the API and the workers on
 // the ports they listen on.
 func TestCompose(t *testing.T) {
@@ -118,6 +119,14 @@ func TestCompose(t *testing.T) {
 	redis := c.Services["redis"]
 	if flagValue(redis.Command, "--appendonly") != "yes" {
 		t.Fatalf("redis command %v lacks --appendonly yes", redis.Command)
+	}
+	// Study data must never be evicted silently: a memory cap is set and
+	// the policy refuses writes when it is reached.
+	if flagValue(redis.Command, "--maxmemory") == "" {
+		t.Errorf("redis command %v sets no --maxmemory", redis.Command)
+	}
+	if got := flagValue(redis.Command, "--maxmemory-policy"); got != "noeviction" {
+		t.Errorf("redis --maxmemory-policy %q, want noeviction", got)
 	}
 	if !slices.ContainsFunc(redis.Volumes, func(v string) bool { return strings.HasSuffix(v, ":/data") }) {
 		t.Fatalf("redis volumes %v do not keep /data", redis.Volumes)

@@ -59,10 +59,17 @@ func (c *Client) Ping(ctx context.Context) error { return c.st.ping(ctx) }
 func (c *Client) Submit(ctx context.Context, owner string, input []byte, s *models.Study) (Status, error) {
 	now := c.now()
 	id := newStudyID(now)
+	// The unplanned entry goes first, so a crash after any later step
+	// leaves one for the watchdog (keys.go).
+	if err := c.st.markUnplanned(ctx, id, now); err != nil {
+		return Status{}, err
+	}
 	if err := c.st.create(ctx, id, owner, s.Name, input, s.TotalFits(), now); err != nil {
 		return Status{}, err
 	}
-	if _, err := c.queue.EnqueueContext(ctx, c.cfg.planTask(id)); err != nil {
+	// A conflict means a watchdog enqueued the plan already (this submit
+	// was slower than Config.ReplanAfter): the study is on its way.
+	if _, err := c.queue.EnqueueContext(ctx, c.cfg.planTask(id)); err != nil && !errors.Is(err, asynq.ErrTaskIDConflict) {
 		// The caller gets the enqueue error either way; the stored study
 		// should not read "queued" for ever. Not applied only if it was
 		// canceled meanwhile, which is as final.
@@ -156,7 +163,7 @@ func (c *Client) Cancel(ctx context.Context, owner, id string) (Status, error) {
 	}
 	// The study is canceled from here on: a task left in the queue drops
 	// itself when it sees the final state.
-	if err := dropTasks(ctx, c.inspector, c.cfg, id, s.Shards); err != nil {
+	if err := dropTasks(ctx, c.inspector, c.cfg, id, owner, s.Shards); err != nil {
 		c.log.Warn("dropping a canceled study's tasks", "study", id, "err", err)
 	}
 	if err := c.st.finish(ctx, id, owner); err != nil {
@@ -169,7 +176,7 @@ func (c *Client) Cancel(ctx context.Context, owner, id string) (Status, error) {
 // cannot be deleted; they see the final status at their next check. A task
 // that is not there (done, never enqueued) or running is expected; any
 // other failure is returned, with ctx's error if it ended the loop early.
-func dropTasks(ctx context.Context, in *asynq.Inspector, cfg Config, id string, shards int) error {
+func dropTasks(ctx context.Context, in *asynq.Inspector, cfg Config, id, owner string, shards int) error {
 	var errs []error
 	drop := func(queue, task string) {
 		err := in.DeleteTask(queue, task)
@@ -186,7 +193,7 @@ func dropTasks(ctx context.Context, in *asynq.Inspector, cfg Config, id string, 
 	drop(cfg.controlQueue(), planTaskID(id))
 	i := 0
 	for ; i < shards && ctx.Err() == nil; i++ {
-		drop(cfg.Queue, shardTaskID(id, i))
+		drop(cfg.shareQueue(owner), shardTaskID(id, i))
 	}
 	if i < shards {
 		errs = append(errs, fmt.Errorf("stopped after %d of %d shard tasks: %w", i, shards, ctx.Err()))
@@ -213,18 +220,18 @@ func (c *Client) Runs(ctx context.Context, id string) (map[int]int, error) {
 }
 
 // QueueSizes returns the number of tasks waiting or running in the shard
-// queue and the control queue.
+// queues (all owners together) and the control queue.
 func (c *Client) QueueSizes() (shards, control int, err error) {
-	for i, q := range []string{c.cfg.Queue, c.cfg.controlQueue()} {
+	for i, q := range c.cfg.queues() {
 		info, err := queueInfo(c.inspector, q)
 		if err != nil {
 			return 0, 0, err
 		}
 		n := info.Pending + info.Active + info.Scheduled + info.Retry
 		if i == 0 {
-			shards = n
-		} else {
 			control = n
+		} else {
+			shards += n
 		}
 	}
 	return shards, control, nil

@@ -2,6 +2,7 @@ package worker
 
 import (
 	"fmt"
+	"hash/fnv"
 	"io"
 	"log/slog"
 	"runtime"
@@ -17,8 +18,11 @@ type Config struct {
 	// Redis is the connection: asynq.RedisClientOpt, RedisFailoverClientOpt
 	// (Sentinel) or RedisClusterClientOpt. Required.
 	Redis asynq.RedisConnOpt
-	// Queue names the asynq queue of shard tasks (default "discrimen"); plan
-	// and assemble tasks go to Queue+".control", served first.
+	// Queue is the base name of the asynq queues (default "discrimen"):
+	// plan and assemble tasks go to Queue+".control"; shard tasks go to one
+	// of ShareQueues queues Queue+".share0", ".share1", ..., the one its
+	// owner hashes into (shareQueue), so that one key's backlog cannot hold
+	// back another key's shards.
 	Queue string
 	// Concurrency is the number of shards a Server runs at once (default
 	// GOMAXPROCS). Each shard runs on one goroutine.
@@ -43,6 +47,14 @@ type Config struct {
 	// PollInterval is how often a running shard reports progress and checks
 	// whether its study was canceled (default 500 ms).
 	PollInterval time.Duration
+	// ReplanAfter is the age at which a watchdog enqueues the plan again of
+	// a study still waiting to be planned (its api died mid-submit, or its
+	// plan task is slow to run; a plan enqueued twice runs once), default
+	// 10 s.
+	ReplanAfter time.Duration
+	// WatchdogInterval is how often a Server's watchdog looks for unplanned
+	// studies and lost shards, and how often it beats (default 2 s).
+	WatchdogInterval time.Duration
 	// CompiledCache is the number of compiled studies a Server keeps
 	// (default 4).
 	CompiledCache int
@@ -107,6 +119,12 @@ func (c Config) withDefaults() (Config, error) {
 	if c.PollInterval <= 0 {
 		c.PollInterval = 500 * time.Millisecond
 	}
+	if c.ReplanAfter <= 0 {
+		c.ReplanAfter = 10 * time.Second
+	}
+	if c.WatchdogInterval <= 0 {
+		c.WatchdogInterval = 2 * time.Second
+	}
 	if c.CompiledCache <= 0 {
 		c.CompiledCache = 4
 	}
@@ -126,3 +144,37 @@ func (c Config) withDefaults() (Config, error) {
 }
 
 func (c Config) controlQueue() string { return c.Queue + ".control" }
+
+// ShareQueues is the number of shard queues owners are spread over. asynq
+// fixes a server's queues when it starts, so the set is fixed too: owners
+// hash into it, and two owners that hash into the same queue share it
+// first in, first out. 8 queues keep the chance that two given keys share
+// one at 1/8 while a worker still polls only 9 queues.
+const ShareQueues = 8
+
+// shareQueue is the shard queue of an owner: FNV-1a (32 bits) of the
+// owner's name modulo ShareQueues, so it is the same in every process and
+// release.
+func (c Config) shareQueue(owner string) string {
+	return c.Queue + ".share" + itoa(ShareIndex(owner))
+}
+
+// ShareIndex is the shard queue (0 to ShareQueues-1) an owner hashes into.
+func ShareIndex(owner string) int {
+	h := fnv.New32a()
+	_, _ = h.Write([]byte(owner)) // a hash.Hash never returns an error
+	return int(h.Sum32() % ShareQueues)
+}
+
+// shareQueues lists every shard queue.
+func (c Config) shareQueues() []string {
+	out := make([]string, ShareQueues)
+	for i := range out {
+		out[i] = c.Queue + ".share" + itoa(i)
+	}
+	return out
+}
+
+// queues lists every queue: the control queue first, then the shard
+// queues.
+func (c Config) queues() []string { return append([]string{c.controlQueue()}, c.shareQueues()...) }

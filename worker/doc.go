@@ -10,6 +10,13 @@
 // report depends only on the study and its seed (recovery's seeds derive
 // from design, generator and participant), never on which worker ran what.
 //
+// Shards go to one of ShareQueues queues by a hash of their owner, drawn
+// evenly, so one key's backlog does not hold back another key's studies.
+// Every Server also runs a watchdog (watchdog.go): it beats in Redis,
+// enqueues the plan of a study whose submit died before doing so, and
+// requeues the running shards of a worker that stopped beating, long
+// before asynq's own lease recovery would.
+//
 // Client is the API's side: submit (with an idempotency key), status,
 // list, cancel, report, and a key's usage for the API's quotas
 // (admission.go). Server is

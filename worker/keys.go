@@ -5,9 +5,18 @@ package worker
 // All keys start with the prefix "discrimen:" followed by a hash tag in
 // braces. A study's keys share the tag {<study id>}, so Redis Cluster puts
 // them in one slot and the multi-key transactions and scripts below (which
-// only ever touch one study) stay legal there. The two index keys carry
-// their own tags; they are never written in the same transaction as a
-// study's keys.
+// only ever touch one study) stay legal there. The index, unplanned and
+// worker keys carry their own tags; they are never written in the same
+// transaction as a study's keys.
+//
+// A submit writes, in this order, the unplanned entry, the study (record
+// and input in one transaction), the two index entries, then the plan
+// task. An api that dies anywhere in between leaves an unplanned entry:
+// each worker's watchdog (watchdog.go) enqueues the plan again for an entry
+// older than Config.ReplanAfter whose study exists (and puts it back in
+// the indexes), and drops an entry whose study was never stored. So no
+// stored study stays queued without a plan. The unplanned set has no
+// expiry: the watchdog removes every entry.
 //
 // asynq keeps its own keys under "asynq:{<queue>}:..."; those are asynq's
 // layout, not ours, and are only touched through asynq's client and
@@ -21,6 +30,7 @@ package worker
 //	discrimen:{ID}:partial            hash        shard index → fits finished so far by a running shard (refreshed by its poller)
 //	discrimen:{ID}:runs               hash        shard index → times a worker started the shard
 //	discrimen:{ID}:workers            set         identities of the worker processes that stored shards
+//	discrimen:{ID}:lost               hash        shard index → time its worker was found dead (until the rerun starts)
 //	discrimen:{ID}:report.json        string      report.json bytes
 //	discrimen:{ID}:report.html        string      report.html bytes
 //	discrimen:{ID}:fits.csv           string      fits.csv bytes (likewise fits.json, params.csv,
@@ -31,6 +41,9 @@ package worker
 //	                                              "pending FP" while its request runs (1 min at most),
 //	                                              then "study FP ID" for the retention; FP is the hex
 //	                                              SHA-256 of the study file (admission.go)
+//	discrimen:{plans}:unplanned       sorted set  study id → submission time (Unix ms): written before the study, removed once its plan is stored
+//	discrimen:{workers}:beats         hash        worker identity → time of its watchdog's last beat
+//	discrimen:{workers}:running       hash        "TYPE:ID:index@identity" → JSON of a task running now (watchdog.go's runningTask; index -1 for a plan or assembly)
 //
 // Fields of discrimen:{ID}:study, decoded into a studyRecord by
 // decodeRecord (record.go). The first five are written when the study is
@@ -54,7 +67,16 @@ package worker
 //	report_estimate optional  EstimateReportBytes of the study, written just after submission
 //
 // The values of the done, partial and runs hashes are counts as above,
-// their fields shard indexes.
+// their fields shard indexes; the lost hash's values are times as above.
+//
+// Every task handler adds its running entry before it runs and removes it
+// when it returns; a worker killed mid-task leaves it behind, and the
+// watchdog of a live worker (watchdog.go) that sees the entry's worker
+// stopped beating claims it (HDEL) and requeues the task (a shard is
+// marked lost first).
+// The beats hash expires an hour after the last beat of any worker; the
+// running hash has no expiry (a live entry must stay), and the watchdog
+// empties it of dead workers' entries.
 //
 // Every study key expires after the configured retention; a running study's
 // keys are refreshed each time a shard is stored, and the partial hash each
@@ -78,6 +100,7 @@ func doneKey(id string) string    { return keyPrefix + "{" + id + "}:done" }
 func partialKey(id string) string { return keyPrefix + "{" + id + "}:partial" }
 func runsKey(id string) string    { return keyPrefix + "{" + id + "}:runs" }
 func workersKey(id string) string { return keyPrefix + "{" + id + "}:workers" }
+func lostKey(id string) string    { return keyPrefix + "{" + id + "}:lost" }
 
 // reportKey holds one rendered report file of a study.
 func reportKey(id string, k ReportKind) string {
@@ -88,7 +111,7 @@ func reportKey(id string, k ReportKind) string {
 func studyKeys(id string) []string {
 	keys := []string{
 		studyKey(id), inputKey(id), resultsKey(id), doneKey(id), partialKey(id), runsKey(id),
-		workersKey(id),
+		workersKey(id), lostKey(id),
 	}
 	for _, k := range ReportKinds {
 		keys = append(keys, reportKey(id, k))
@@ -106,6 +129,13 @@ func idempotencyKey(owner, key string) string {
 	sum := sha256.Sum256([]byte(key))
 	return keyPrefix + "{owner:" + owner + "}:idem:" + hex.EncodeToString(sum[:])
 }
+
+const unplannedKey = keyPrefix + "{plans}:unplanned"
+
+const (
+	beatsKey   = keyPrefix + "{workers}:beats"
+	runningKey = keyPrefix + "{workers}:running"
+)
 
 // Task IDs: asynq refuses a second task with the same ID while the first is
 // kept, which makes each plan, shard and assembly unique per study.

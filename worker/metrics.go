@@ -2,6 +2,7 @@ package worker
 
 import (
 	"context"
+	"sync"
 	"time"
 
 	"github.com/hibiken/asynq"
@@ -25,6 +26,10 @@ type serverMetrics struct {
 	fitSeconds     prometheus.Histogram
 	compileSeconds prometheus.Histogram
 	assemblies     prometheus.Counter
+	// rescued counts reruns this worker's watchdog enqueued, by task type;
+	// replanned the plans it enqueued for studies left unplanned.
+	rescued   *prometheus.CounterVec
+	replanned prometheus.Counter
 }
 
 func newServerMetrics() *serverMetrics {
@@ -57,6 +62,17 @@ func newServerMetrics() *serverMetrics {
 			Help: "Reports assembled and stored by this worker.",
 		}),
 	}
+	m.rescued = prometheus.NewCounterVec(prometheus.CounterOpts{
+		Name: "discrimen_rescued_tasks_total",
+		Help: "Tasks of dead workers whose rerun this worker's watchdog enqueued, by task type.",
+	}, []string{"type"})
+	for _, typ := range []string{TypePlan, TypeShard, TypeAssemble} {
+		m.rescued.WithLabelValues(typ)
+	}
+	m.replanned = prometheus.NewCounter(prometheus.CounterOpts{
+		Name: "discrimen_replanned_studies_total",
+		Help: "Studies left unplanned by their submit whose plan this worker's watchdog enqueued.",
+	})
 	m.shards = map[string]prometheus.Counter{}
 	for _, o := range []string{shardStored, shardDuplicate, shardCanceled, shardDropped} {
 		m.shards[o] = m.shardsVec.WithLabelValues(o)
@@ -65,7 +81,7 @@ func newServerMetrics() *serverMetrics {
 }
 
 func (m *serverMetrics) register(r prometheus.Registerer) error {
-	for _, c := range []prometheus.Collector{m.shardsVec, m.fits, m.shardSeconds, m.fitSeconds, m.compileSeconds, m.assemblies} {
+	for _, c := range []prometheus.Collector{m.shardsVec, m.fits, m.shardSeconds, m.fitSeconds, m.compileSeconds, m.assemblies, m.rescued, m.replanned} {
 		if err := r.Register(c); err != nil {
 			return err
 		}
@@ -73,9 +89,16 @@ func (m *serverMetrics) register(r prometheus.Registerer) error {
 	return nil
 }
 
-// clientCollector reports, at scrape time, the studies by state (read from
-// the study index) and the asynq queues' depth and latency (read through
-// asynq's Inspector).
+// metricsMaxAge is how long a snapshot of the studies and queues serves
+// scrapes before the next scrape reads Redis again.
+const metricsMaxAge = 5 * time.Second
+
+// clientCollector reports the studies by state (read from the study
+// index) and the asynq queues' depth and latency (read through asynq's
+// Inspector). Reading them scans every indexed study, so a snapshot serves
+// every scrape for metricsMaxAge: however many scrapers there are, Redis
+// sees at most one scan per metricsMaxAge, and the scrapes between issue
+// no Redis command.
 type clientCollector struct {
 	c        *Client
 	studies  *prometheus.Desc
@@ -84,20 +107,24 @@ type clientCollector struct {
 	upDesc   *prometheus.Desc
 	timeout  time.Duration
 	queueIDs []string
+
+	mu    sync.Mutex // held while a snapshot is read, so scrapes share one read
+	snap  []prometheus.Metric
+	taken time.Time
 }
 
 func registerClientMetrics(r prometheus.Registerer, c *Client) error {
 	return r.Register(&clientCollector{
 		c: c,
-		studies: prometheus.NewDesc("discrimen_studies", "Studies kept in Redis, by state.",
+		studies: prometheus.NewDesc("discrimen_studies", "Studies kept in Redis, by state (a snapshot at most 5 s old).",
 			[]string{"state"}, nil),
-		tasks: prometheus.NewDesc("discrimen_queue_tasks", "Tasks in an asynq queue, by task state.",
+		tasks: prometheus.NewDesc("discrimen_queue_tasks", "Tasks in an asynq queue, by task state (a snapshot at most 5 s old).",
 			[]string{"queue", "state"}, nil),
 		latency: prometheus.NewDesc("discrimen_queue_latency_seconds",
-			"Age of the oldest pending task of an asynq queue.", []string{"queue"}, nil),
-		upDesc:   prometheus.NewDesc("discrimen_redis_up", "1 when the last scrape could read Redis.", nil, nil),
+			"Age of the oldest pending task of an asynq queue (a snapshot at most 5 s old).", []string{"queue"}, nil),
+		upDesc:   prometheus.NewDesc("discrimen_redis_up", "1 when the latest snapshot could read Redis.", nil, nil),
 		timeout:  5 * time.Second,
-		queueIDs: []string{c.cfg.Queue, c.cfg.controlQueue()},
+		queueIDs: c.cfg.queues(),
 	})
 }
 
@@ -109,6 +136,21 @@ func (cc *clientCollector) Describe(ch chan<- *prometheus.Desc) {
 }
 
 func (cc *clientCollector) Collect(ch chan<- prometheus.Metric) {
+	cc.mu.Lock()
+	now := cc.c.now()
+	if cc.snap == nil || now.Sub(cc.taken) >= metricsMaxAge {
+		cc.snap, cc.taken = cc.read(), now
+	}
+	snap := cc.snap
+	cc.mu.Unlock()
+	for _, m := range snap {
+		ch <- m
+	}
+}
+
+// read takes a snapshot from Redis.
+func (cc *clientCollector) read() []prometheus.Metric {
+	var out []prometheus.Metric
 	ctx, cancel := context.WithTimeout(context.Background(), cc.timeout)
 	defer cancel()
 	up := 1.0
@@ -118,12 +160,12 @@ func (cc *clientCollector) Collect(ch chan<- prometheus.Metric) {
 		cc.c.log.Warn("metrics: counting studies by state", "err", err)
 	}
 	// The counts are right without the expired entries either way; a
-	// failed removal is tried again at the next scrape.
+	// failed removal is tried again at the next snapshot.
 	if err := cc.c.st.unindexAll(ctx, gone); err != nil {
 		cc.c.log.Warn("metrics: dropping expired studies from the index", "err", err)
 	}
 	for _, s := range States {
-		ch <- prometheus.MustNewConstMetric(cc.studies, prometheus.GaugeValue, float64(counts[s]), string(s))
+		out = append(out, prometheus.MustNewConstMetric(cc.studies, prometheus.GaugeValue, float64(counts[s]), string(s)))
 	}
 	for _, q := range cc.queueIDs {
 		info, err := queueInfo(cc.c.inspector, q)
@@ -137,9 +179,9 @@ func (cc *clientCollector) Collect(ch chan<- prometheus.Metric) {
 			n    int
 		}{{"pending", info.Pending}, {"active", info.Active}, {"scheduled", info.Scheduled},
 			{"retry", info.Retry}, {"archived", info.Archived}, {"completed", info.Completed}} {
-			ch <- prometheus.MustNewConstMetric(cc.tasks, prometheus.GaugeValue, float64(st.n), q, st.name)
+			out = append(out, prometheus.MustNewConstMetric(cc.tasks, prometheus.GaugeValue, float64(st.n), q, st.name))
 		}
-		ch <- prometheus.MustNewConstMetric(cc.latency, prometheus.GaugeValue, info.Latency.Seconds(), q)
+		out = append(out, prometheus.MustNewConstMetric(cc.latency, prometheus.GaugeValue, info.Latency.Seconds(), q))
 	}
-	ch <- prometheus.MustNewConstMetric(cc.upDesc, prometheus.GaugeValue, up)
+	return append(out, prometheus.MustNewConstMetric(cc.upDesc, prometheus.GaugeValue, up))
 }

@@ -25,13 +25,13 @@ import (
 // client and inspector use too. Shutdown stops them in this order, so that
 // nothing calls Redis once the client is closed:
 //
-//  1. the archive sweeper: its context is canceled and Shutdown waits for
-//     its goroutine to return (a sweep in progress stops at its next
-//     check);
+//  1. the archive sweeper and the watchdog (watchdog.go): their context is
+//     canceled and Shutdown waits for their goroutines to return (a pass
+//     in progress stops at its next check);
 //  2. asynq's server: it takes no new task, gives running handlers up to
 //     ShutdownTimeout to finish (each shard handler joins its progress
 //     poller before it returns) and puts the others back on the queue;
-//  3. the Redis client.
+//  3. this worker's beat is removed, then the Redis client is closed.
 type Server struct {
 	cfg       Config
 	st        *store
@@ -48,6 +48,12 @@ type Server struct {
 	sweep      func(context.Context)
 	stopSweep  context.CancelFunc
 	sweeper    sync.WaitGroup
+
+	// beatingSince is when the watchdog's beats last started to succeed
+	// (zero after a failed beat); only its goroutine touches it.
+	beatingSince time.Time
+	// passes counts the watchdog's passes (its goroutine only).
+	passes int
 
 	shutdown sync.Once
 }
@@ -74,11 +80,9 @@ func NewServer(cfg Config) (*Server, error) {
 		}
 	}
 	s.srv = asynq.NewServerFromRedisClient(st.rdb, asynq.Config{
-		Concurrency: cfg.Concurrency,
-		// Plans and assemblies are short and unblock whole studies, so they
-		// go before any shard.
-		Queues:                   map[string]int{cfg.controlQueue(): 2, cfg.Queue: 1},
-		StrictPriority:           true,
+		Concurrency:              cfg.Concurrency,
+		Queues:                   queueWeights(cfg),
+		StrictPriority:           false,
 		RetryDelayFunc:           retryDelay,
 		ErrorHandler:             asynq.ErrorHandlerFunc(s.handleError),
 		Logger:                   asynqLogger{s.log},
@@ -88,6 +92,26 @@ func NewServer(cfg Config) (*Server, error) {
 		DelayedTaskCheckInterval: time.Second,
 	})
 	return s, nil
+}
+
+// queueWeights gives every shard queue the same weight, so a worker that
+// finds several non-empty shard queues picks among them evenly (asynq
+// draws a queue in proportion to its weight at each dequeue and moves on
+// to the next when it is empty): each owner's shards get an equal share of
+// the workers however long another owner's backlog is. The control queue
+// weighs as much as all shard queues together: plans and assemblies are
+// short and unblock whole studies, so they are drawn first half of the
+// time even when every shard queue is busy.
+//
+// The queue named Queue itself, where earlier releases put every shard,
+// is served too, with weight 1, so that shards enqueued before an upgrade
+// still run.
+func queueWeights(cfg Config) map[string]int {
+	w := map[string]int{cfg.controlQueue(): ShareQueues, cfg.Queue: 1}
+	for _, q := range cfg.shareQueues() {
+		w[q] = 1
+	}
+	return w
 }
 
 // retryDelay retries a task whose worker died at once (its lease has
@@ -103,16 +127,28 @@ func retryDelay(n int, err error, _ *asynq.Task) time.Duration {
 // Start begins taking tasks; it returns at once.
 func (s *Server) Start() error {
 	mux := asynq.NewServeMux()
-	mux.HandleFunc(TypePlan, s.handlePlan)
-	mux.HandleFunc(TypeShard, s.handleShard)
-	mux.HandleFunc(TypeAssemble, s.handleAssemble)
+	mux.HandleFunc(TypePlan, s.tracked(s.handlePlan))
+	mux.HandleFunc(TypeShard, s.tracked(s.handleShard))
+	mux.HandleFunc(TypeAssemble, s.tracked(s.handleAssemble))
 	s.log.Info("worker starting", "concurrency", s.cfg.Concurrency, "queue", s.cfg.Queue)
+	ctx, cancel := context.WithCancel(context.Background())
+	// The first beat is written before any task is taken, so a running
+	// entry of this worker always has a beat to be judged by.
+	now, err := s.st.rdb.Time(ctx).Result()
+	if err == nil {
+		err = s.st.beat(ctx, s.cfg.Identity, now)
+	}
+	if err != nil {
+		cancel()
+		return fmt.Errorf("worker: first beat: %w", err)
+	}
 	if err := s.srv.Start(mux); err != nil {
+		cancel()
 		return err
 	}
-	ctx, cancel := context.WithCancel(context.Background())
 	s.stopSweep = cancel
 	s.sweeper.Go(func() { s.sweepLoop(ctx) })
+	s.sweeper.Go(func() { s.watchdogLoop(ctx) })
 	return nil
 }
 
@@ -127,6 +163,13 @@ func (s *Server) Shutdown() {
 		}
 		s.sweeper.Wait()
 		s.srv.Shutdown()
+		// Every handler has returned: this worker runs no shard, and its
+		// beat can go.
+		ctx, cancel := context.WithTimeout(context.Background(), 5*time.Second)
+		if err := s.st.forgetWorker(ctx, s.cfg.Identity); err != nil {
+			s.log.Warn("removing this worker's beat", "err", err)
+		}
+		cancel()
 		if err := s.st.close(); err != nil {
 			s.log.Warn("closing the Redis client", "err", err)
 		}
@@ -213,9 +256,12 @@ func (s *Server) liveStudy(ctx context.Context, t *asynq.Task) (id string, rec s
 // stored. A retried plan enqueues again; existing task IDs conflict
 // and are skipped.
 func (s *Server) handlePlan(ctx context.Context, t *asynq.Task) error {
-	id, _, skip, err := s.liveStudy(ctx, t)
-	if skip || err != nil {
+	id, rec, skip, err := s.liveStudy(ctx, t)
+	if err != nil {
 		return err
+	}
+	if skip {
+		return s.st.planned(ctx, id)
 	}
 	study, err := s.study(ctx, id)
 	if err != nil {
@@ -243,21 +289,24 @@ func (s *Server) handlePlan(ctx context.Context, t *asynq.Task) error {
 		if stored {
 			continue
 		}
-		if _, err := s.queue.EnqueueContext(ctx, s.cfg.shardTask(id, spec)); err != nil && !errors.Is(err, asynq.ErrTaskIDConflict) {
+		if _, err := s.queue.EnqueueContext(ctx, s.cfg.shardTask(id, rec.Owner, spec)); err != nil && !errors.Is(err, asynq.ErrTaskIDConflict) {
 			return err
 		}
 	}
 	// A cancel that landed while the shards were being enqueued could not
 	// see them; drop them now.
-	rec, err := s.st.record(ctx, id)
+	rec, err = s.st.record(ctx, id)
 	if err != nil {
 		return err // the retry enqueues nothing new and checks again
 	}
 	if rec.State.Final() {
-		if err := dropTasks(ctx, s.inspector, s.cfg, id, len(specs)); err != nil {
+		if err := dropTasks(ctx, s.inspector, s.cfg, id, rec.Owner, len(specs)); err != nil {
 			s.log.Warn("dropping the tasks of a study canceled while planned", "study", id, "err", err)
 		}
-		return nil
+		return s.st.planned(ctx, id)
+	}
+	if err := s.st.planned(ctx, id); err != nil {
+		return err // the retry enqueues nothing new and removes it again
 	}
 	s.log.Info("study planned", "study", id, "shards", len(specs), "shard_size", size, "fits", study.TotalFits())
 	return s.maybeAssemble(ctx, id, len(specs))
@@ -461,15 +510,15 @@ func (s *Server) handleAssemble(ctx context.Context, t *asynq.Task) error {
 	if err := CheckReportSize(files, s.cfg.MaxReportBytes); err != nil {
 		return permanent("%v", err)
 	}
-	if err := s.st.storeReports(ctx, id, files); err != nil {
-		return err
+	ok, err := s.st.complete(ctx, id, files, finished)
+	if errors.Is(err, ErrNotFound) {
+		return nil // expired while assembling
 	}
-	ok, err := s.st.setStatus(ctx, id, []State{Queued, Running}, Done, "assemblies", "finished", finished.UnixNano())
 	if err != nil {
 		return err
 	}
 	if !ok {
-		return nil // canceled while assembling
+		return nil // canceled, failed or assembled by a duplicate meanwhile
 	}
 	s.m.assemblies.Inc()
 	s.cache.forget(id)
@@ -531,7 +580,7 @@ func (s *Server) fail(ctx context.Context, id, msg string) bool {
 		s.log.Warn("reading a failed study to drop its tasks", "study", id, "err", err)
 		return true
 	}
-	if err := dropTasks(ctx, s.inspector, s.cfg, id, rec.Shards); err != nil {
+	if err := dropTasks(ctx, s.inspector, s.cfg, id, rec.Owner, rec.Shards); err != nil {
 		s.log.Warn("dropping a failed study's tasks", "study", id, "err", err)
 	}
 	if err := s.st.finish(ctx, id, rec.Owner); err != nil {

@@ -6,6 +6,7 @@ import (
 	"crypto/rand"
 	"encoding/gob"
 	"encoding/hex"
+	"encoding/json"
 	"errors"
 	"fmt"
 	"os"
@@ -28,9 +29,12 @@ const (
 	Done     State = "done"
 	Failed   State = "failed"
 	Canceled State = "canceled"
+	// Recovering is never stored: Status reports it for a running study
+	// one of whose shards lost its worker and waits to be rerun.
+	Recovering State = "recovering"
 )
 
-// States lists every state in life order.
+// States lists every stored state in life order.
 var States = []State{Queued, Running, Done, Failed, Canceled}
 
 // Final reports whether the study can no longer change.
@@ -96,6 +100,8 @@ type Status struct {
 	ID    string
 	Owner string
 	Name  string
+	// State is the stored state, or Recovering for a running study with a
+	// lost shard waiting to be rerun.
 	State State
 	// Done and Total count fits. Done includes the finished participants
 	// of running shards, so it moves smoothly.
@@ -203,6 +209,41 @@ func (st *store) create(ctx context.Context, id, owner, name string, input []byt
 	return st.keepIndexes(ctx, owner)
 }
 
+// markUnplanned records a study about to be stored as waiting for its
+// plan.
+func (st *store) markUnplanned(ctx context.Context, id string, now time.Time) error {
+	return st.rdb.ZAdd(ctx, unplannedKey, redis.Z{Score: float64(now.UnixMilli()), Member: id}).Err()
+}
+
+// planned removes a study's unplanned entry: its plan is stored, or it has
+// nothing left to plan (final or gone).
+func (st *store) planned(ctx context.Context, id string) error {
+	return st.rdb.ZRem(ctx, unplannedKey, id).Err()
+}
+
+// unplannedBefore returns up to limit studies marked unplanned before
+// cutoff, oldest first.
+func (st *store) unplannedBefore(ctx context.Context, cutoff time.Time, limit int) ([]string, error) {
+	return st.rdb.ZRangeByScore(ctx, unplannedKey, &redis.ZRangeBy{
+		Min: "-inf", Max: "(" + strconv.FormatInt(cutoff.UnixMilli(), 10), Count: int64(limit),
+	}).Result()
+}
+
+// reindex puts a study back in its owner's index and the global one (a
+// submit that died before writing them); adding an id already there
+// changes nothing.
+func (st *store) reindex(ctx context.Context, owner, id string) error {
+	_, err := st.rdb.Pipelined(ctx, func(p redis.Pipeliner) error {
+		p.ZAdd(ctx, ownerKey(owner), redis.Z{Member: id})
+		p.ZAdd(ctx, indexKey, redis.Z{Member: id})
+		return nil
+	})
+	if err != nil {
+		return fmt.Errorf("worker: indexing study %s: %w", id, err)
+	}
+	return st.keepIndexes(ctx, owner)
+}
+
 // keepIndexes restarts the indexes' expiry at twice the retention, so an
 // owner's index outlives every study in it unless one runs for longer than
 // that with no other study of the owner submitted or finished meanwhile.
@@ -292,10 +333,12 @@ func (st *store) input(ctx context.Context, id string) ([]byte, error) {
 // status reads a study's full status in one round trip.
 func (st *store) status(ctx context.Context, id string, now time.Time) (Status, error) {
 	var recCmd, doneCmd, partialCmd *redis.MapStringStringCmd
+	var lostCmd *redis.IntCmd
 	_, err := st.rdb.Pipelined(ctx, func(p redis.Pipeliner) error {
 		recCmd = p.HGetAll(ctx, studyKey(id))
 		doneCmd = p.HGetAll(ctx, doneKey(id))
 		partialCmd = p.HGetAll(ctx, partialKey(id))
+		lostCmd = p.HLen(ctx, lostKey(id))
 		return nil
 	})
 	if err != nil {
@@ -333,7 +376,10 @@ func (st *store) status(ctx context.Context, id string, now time.Time) (Status, 
 	if s.State != Done && s.Done > s.Total {
 		s.Done = s.Total
 	}
-	if s.State == Running && !s.Started.IsZero() && s.Done > 0 {
+	if s.State == Running && lostCmd.Val() > 0 {
+		s.State = Recovering
+	}
+	if (s.State == Running || s.State == Recovering) && !s.Started.IsZero() && s.Done > 0 {
 		// Constant-rate extrapolation: left = (total − done) · elapsed / done.
 		elapsed := now.Sub(s.Started)
 		left := time.Duration(float64(elapsed) * float64(s.Total-s.Done) / float64(s.Done))
@@ -351,6 +397,7 @@ func (st *store) storeShard(ctx context.Context, id string, index, fits int, blo
 		p.HSet(ctx, resultsKey(id), f, blob)
 		p.HSet(ctx, doneKey(id), f, fits)
 		p.HDel(ctx, partialKey(id), f)
+		p.HDel(ctx, lostKey(id), f)
 		p.SAdd(ctx, workersKey(id), identity)
 		p.HSet(ctx, studyKey(id), "last_shard", time.Now().UnixNano())
 		for _, k := range studyKeys(id) {
@@ -410,8 +457,129 @@ func (st *store) progress(ctx context.Context, id string, index, fits int) (Stat
 	return s, nil
 }
 
+// countRun counts a start of a shard; the shard is no longer waiting for
+// a rerun, so its lost entry goes.
 func (st *store) countRun(ctx context.Context, id string, index int) error {
-	return st.rdb.HIncrBy(ctx, runsKey(id), strconv.Itoa(index), 1).Err()
+	_, err := st.rdb.TxPipelined(ctx, func(p redis.Pipeliner) error {
+		p.HIncrBy(ctx, runsKey(id), strconv.Itoa(index), 1)
+		p.HDel(ctx, lostKey(id), strconv.Itoa(index))
+		return nil
+	})
+	return err
+}
+
+// markLost records a shard as lost with its worker: its partial progress
+// goes (the rerun starts from 0) and its lost entry makes the status read
+// "recovering". It returns the shard's run count.
+func (st *store) markLost(ctx context.Context, id string, index int, now time.Time) (int, error) {
+	f := strconv.Itoa(index)
+	var runs *redis.StringCmd
+	_, err := st.rdb.TxPipelined(ctx, func(p redis.Pipeliner) error {
+		p.HSet(ctx, lostKey(id), f, now.UnixNano())
+		p.Expire(ctx, lostKey(id), st.retention)
+		p.HDel(ctx, partialKey(id), f)
+		runs = p.HGet(ctx, runsKey(id), f)
+		return nil
+	})
+	if err != nil && !errors.Is(err, redis.Nil) {
+		return 0, err
+	}
+	if errors.Is(runs.Err(), redis.Nil) {
+		return 0, nil
+	}
+	n, err := parseCount(runs.Val())
+	if err != nil {
+		return 0, fmt.Errorf("worker: %s field %s = %q: %w", runsKey(id), f, runs.Val(), err)
+	}
+	return n, nil
+}
+
+// beat records that a worker is alive. The hash expires beatsForgotten
+// after the last beat of any worker.
+func (st *store) beat(ctx context.Context, identity string, now time.Time) error {
+	_, err := st.rdb.TxPipelined(ctx, func(p redis.Pipeliner) error {
+		p.HSet(ctx, beatsKey, identity, now.UnixNano())
+		p.Expire(ctx, beatsKey, beatsForgotten)
+		return nil
+	})
+	return err
+}
+
+// forgetWorker removes a worker's beat (it stopped, or died long ago).
+func (st *store) forgetWorker(ctx context.Context, identity string) error {
+	return st.rdb.HDel(ctx, beatsKey, identity).Err()
+}
+
+// forgetSilentScript removes a worker's beat only if it is still the one
+// read (ARGV[2]): a beat that arrived since stays.
+var forgetSilentScript = redis.NewScript(`
+if redis.call('HGET', KEYS[1], ARGV[1]) == ARGV[2] then
+  return redis.call('HDEL', KEYS[1], ARGV[1])
+end
+return 0
+`)
+
+// forgetSilent removes a silent worker's beat, last as read by beats.
+func (st *store) forgetSilent(ctx context.Context, identity string, last time.Time) error {
+	return forgetSilentScript.Run(ctx, st.rdb, []string{beatsKey}, identity, last.UnixNano()).Err()
+}
+
+// beats returns every worker's last beat.
+func (st *store) beats(ctx context.Context) (map[string]time.Time, error) {
+	m, err := st.rdb.HGetAll(ctx, beatsKey).Result()
+	if err != nil {
+		return nil, err
+	}
+	out := make(map[string]time.Time, len(m))
+	for w, v := range m {
+		t, err := parseUnixNano(v)
+		if err != nil {
+			return nil, fmt.Errorf("worker: %s field %s = %q: %w", beatsKey, w, v, err)
+		}
+		out[w] = t
+	}
+	return out, nil
+}
+
+// addRunning registers a task run of this worker; removeRunning ends it.
+func (st *store) addRunning(ctx context.Context, field string, r runningTask) error {
+	b, err := json.Marshal(r)
+	if err != nil {
+		return fmt.Errorf("worker: encoding a running entry: %w", err)
+	}
+	return st.rdb.HSet(ctx, runningKey, field, b).Err()
+}
+
+func (st *store) removeRunning(ctx context.Context, field string) error {
+	return st.rdb.HDel(ctx, runningKey, field).Err()
+}
+
+// claimLost removes a running entry and reports whether this call did, so
+// that of several watchdogs exactly one requeues the shard.
+func (st *store) claimLost(ctx context.Context, field string) (bool, error) {
+	n, err := st.rdb.HDel(ctx, runningKey, field).Result()
+	return n == 1, err
+}
+
+// runningTasks returns every registered shard run. An entry that does not
+// decode is removed (it can name no shard to rerun) and skipped.
+func (st *store) runningTasks(ctx context.Context) (map[string]runningTask, error) {
+	m, err := st.rdb.HGetAll(ctx, runningKey).Result()
+	if err != nil {
+		return nil, err
+	}
+	out := make(map[string]runningTask, len(m))
+	for f, v := range m {
+		var r runningTask
+		if err := json.Unmarshal([]byte(v), &r); err != nil || !ValidID(r.Study) {
+			if err := st.rdb.HDel(ctx, runningKey, f).Err(); err != nil {
+				return nil, err
+			}
+			continue
+		}
+		out[f] = r
+	}
+	return out, nil
 }
 
 // runs returns how many times each shard was started.
@@ -453,15 +621,46 @@ func (st *store) workerCount(ctx context.Context, id string) (int, error) {
 	return int(n), err
 }
 
-// storeReports writes the rendered report files with the retention TTL.
-func (st *store) storeReports(ctx context.Context, id string, files map[ReportKind][]byte) error {
-	_, err := st.rdb.TxPipelined(ctx, func(p redis.Pipeliner) error {
-		for k, b := range files {
-			p.Set(ctx, reportKey(id, k), b, st.retention)
+// completeScript stores a study's report files (KEYS[2..4], ARGV[3..5],
+// expiring after ARGV[2] ms) and marks it done at time ARGV[1], only while
+// its status (KEYS[1]) is queued or running: the first assembly's report
+// stands, and a duplicate or retried assembly that finishes later changes
+// nothing. It returns 1 when applied, 0 when the study was final already,
+// -1 when it is gone.
+var completeScript = redis.NewScript(`
+local cur = redis.call('HGET', KEYS[1], 'status')
+if not cur then return -1 end
+if cur ~= 'queued' and cur ~= 'running' then return 0 end
+for i = 2, #KEYS do
+  redis.call('SET', KEYS[i], ARGV[i + 1], 'PX', ARGV[2])
+end
+redis.call('HSET', KEYS[1], 'status', 'done', 'finished', ARGV[1])
+redis.call('HINCRBY', KEYS[1], 'assemblies', 1)
+return 1
+`)
+
+// complete stores the report files and marks the study done, in one
+// step, unless it reached a final state first (see completeScript).
+func (st *store) complete(ctx context.Context, id string, files map[ReportKind][]byte, finished time.Time) (bool, error) {
+	kinds := ReportKinds
+	keys := []string{studyKey(id)}
+	args := []any{finished.UnixNano(), st.retention.Milliseconds()}
+	for _, k := range kinds {
+		b, ok := files[k]
+		if !ok {
+			panic("worker: complete needs every report file")
 		}
-		return nil
-	})
-	return err
+		keys = append(keys, reportKey(id, k))
+		args = append(args, b)
+	}
+	n, err := completeScript.Run(ctx, st.rdb, keys, args...).Int()
+	if err != nil {
+		return false, err
+	}
+	if n < 0 {
+		return false, ErrNotFound
+	}
+	return n == 1, nil
 }
 
 func (st *store) report(ctx context.Context, id string, k ReportKind) ([]byte, error) {
@@ -476,7 +675,7 @@ func (st *store) report(ctx context.Context, id string, k ReportKind) ([]byte, e
 // state and restarts the retention clock on what is kept.
 func (st *store) finish(ctx context.Context, id, owner string) error {
 	_, err := st.rdb.TxPipelined(ctx, func(p redis.Pipeliner) error {
-		p.Del(ctx, resultsKey(id), partialKey(id))
+		p.Del(ctx, resultsKey(id), partialKey(id), lostKey(id))
 		for _, k := range studyKeys(id) {
 			p.Expire(ctx, k, st.retention)
 		}

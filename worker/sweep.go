@@ -20,7 +20,8 @@ const sweepInterval = time.Minute
 // stops early, between tasks, once ctx ends.
 func (s *Server) sweepArchived(ctx context.Context) int {
 	failed := 0
-	for _, q := range []string{s.cfg.controlQueue(), s.cfg.Queue} {
+	// The old shard queue too (see queueWeights).
+	for _, q := range append(s.cfg.queues(), s.cfg.Queue) {
 		for page := 1; ctx.Err() == nil; page++ {
 			tasks, err := s.inspector.ListArchivedTasks(q, asynq.PageSize(100), asynq.Page(page))
 			if err != nil {

@@ -39,9 +39,10 @@ func (c Config) planTask(id string) *asynq.Task {
 		asynq.TaskID(planTaskID(id)), asynq.Queue(c.controlQueue()), asynq.MaxRetry(c.MaxRetry))
 }
 
-func (c Config) shardTask(id string, spec recovery.ShardSpec) *asynq.Task {
+// shardTask goes to the owner's shard queue.
+func (c Config) shardTask(id, owner string, spec recovery.ShardSpec) *asynq.Task {
 	return asynq.NewTask(TypeShard, mustJSON(shardPayload{Study: id, Spec: spec}),
-		asynq.TaskID(shardTaskID(id, spec.Index)), asynq.Queue(c.Queue), asynq.MaxRetry(c.MaxRetry),
+		asynq.TaskID(shardTaskID(id, spec.Index)), asynq.Queue(c.shareQueue(owner)), asynq.MaxRetry(c.MaxRetry),
 		asynq.Timeout(c.ShardTimeout))
 }
 

@@ -186,7 +186,7 @@ func TestSubmitToReport(t *testing.T) {
 		t.Fatalf("discrimen_fits_total = %v, want 32", n)
 	}
 	want := `
-# HELP discrimen_studies Studies kept in Redis, by state.
+# HELP discrimen_studies Studies kept in Redis, by state (a snapshot at most 5 s old).
 # TYPE discrimen_studies gauge
 discrimen_studies{state="canceled"} 0
 discrimen_studies{state="done"} 1
@@ -197,8 +197,8 @@ discrimen_studies{state="running"} 0
 	if err := testutil.GatherAndCompare(reg, strings.NewReader(want), "discrimen_studies"); err != nil {
 		t.Fatal(err)
 	}
-	if n, err := testutil.GatherAndCount(reg, "discrimen_queue_tasks", "discrimen_shard_duration_seconds", "discrimen_fit_duration_seconds"); err != nil || n != 2*6+2 {
-		t.Fatalf("queue and duration series: %d (%v), want 14", n, err)
+	if n, err := testutil.GatherAndCount(reg, "discrimen_queue_tasks", "discrimen_shard_duration_seconds", "discrimen_fit_duration_seconds"); err != nil || n != (1+ShareQueues)*6+2 {
+		t.Fatalf("queue and duration series: %d (%v), want %d", n, err, (1+ShareQueues)*6+2)
 	}
 }
 
@@ -249,13 +249,18 @@ func TestKeyLayout(t *testing.T) {
 			if err != nil || ttl <= time.Hour || ttl > 2*time.Hour {
 				t.Errorf("index %q has TTL %v (%v), want in (1h, 2h]", k, ttl, err)
 			}
+		} else if k == beatsKey {
+			ttl, err := rdb.TTL(context.Background(), k).Result()
+			if err != nil || ttl <= 0 || ttl > beatsForgotten {
+				t.Errorf("%q has TTL %v (%v), want in (0, %v]", k, ttl, err, beatsForgotten)
+			}
 		} else {
-			t.Errorf("key %q is neither the study's nor an index", k)
+			t.Errorf("key %q is neither the study's, an index nor the live worker's beat", k)
 		}
 	}
 	// The shard results and partial progress are dropped once done.
 	want := []string{studyKey(st.ID), inputKey(st.ID), doneKey(st.ID), runsKey(st.ID), workersKey(st.ID),
-		ownerKey("harbour"), indexKey}
+		ownerKey("harbour"), indexKey, beatsKey}
 	for _, k := range ReportKinds {
 		want = append(want, reportKey(st.ID, k))
 	}
@@ -315,7 +320,7 @@ func TestDuplicateShardAfterDone(t *testing.T) {
 		t.Fatal(err)
 	}
 	spec := c.Plan(8)[0]
-	if err := srv.handleShard(context.Background(), r.cfg.shardTask(st.ID, spec)); err != nil {
+	if err := srv.handleShard(context.Background(), r.cfg.shardTask(st.ID, "harbour", spec)); err != nil {
 		t.Fatal(err)
 	}
 	if err := srv.handleAssemble(context.Background(), r.cfg.assembleTask(st.ID)); err != nil {
@@ -632,13 +637,13 @@ func TestProgressAfterFinishExpires(t *testing.T) {
 func TestDropTasks(t *testing.T) {
 	r := newRig(t, nil)
 	id := newStudyID(time.Now())
-	if err := dropTasks(context.Background(), r.client.inspector, r.cfg, id, 3); err != nil {
+	if err := dropTasks(context.Background(), r.client.inspector, r.cfg, id, "harbour", 3); err != nil {
 		t.Fatalf("dropping tasks that were never enqueued: %v, want nil", err)
 	}
-	if _, err := r.client.queue.Enqueue(r.cfg.shardTask(id, recovery.ShardSpec{Index: 1})); err != nil {
+	if _, err := r.client.queue.Enqueue(r.cfg.shardTask(id, "harbour", recovery.ShardSpec{Index: 1})); err != nil {
 		t.Fatal(err)
 	}
-	if err := dropTasks(context.Background(), r.client.inspector, r.cfg, id, 3); err != nil {
+	if err := dropTasks(context.Background(), r.client.inspector, r.cfg, id, "harbour", 3); err != nil {
 		t.Fatalf("dropping a pending shard task: %v", err)
 	}
 	if shards, _, err := r.client.QueueSizes(); err != nil || shards != 0 {
@@ -646,7 +651,7 @@ func TestDropTasks(t *testing.T) {
 	}
 	ctx, cancel := context.WithCancel(context.Background())
 	cancel()
-	if err := dropTasks(ctx, r.client.inspector, r.cfg, id, 3); err == nil || !strings.Contains(err.Error(), "stopped after 0 of 3") {
+	if err := dropTasks(ctx, r.client.inspector, r.cfg, id, "harbour", 3); err == nil || !strings.Contains(err.Error(), "stopped after 0 of 3") {
 		t.Fatalf("dropping with a canceled context: %v, want it to say where it stopped", err)
 	}
 }
@@ -657,7 +662,7 @@ func TestMetricsBeforeAnyTask(t *testing.T) {
 	reg := prometheus.NewRegistry()
 	r := newRig(t, func(c *Config) { c.Registerer = reg })
 	want := `
-# HELP discrimen_redis_up 1 when the last scrape could read Redis.
+# HELP discrimen_redis_up 1 when the latest snapshot could read Redis.
 # TYPE discrimen_redis_up gauge
 discrimen_redis_up 1
 `

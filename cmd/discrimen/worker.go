@@ -101,7 +101,7 @@ type queueFlags struct {
 }
 
 func (f *queueFlags) register(fs *flag.FlagSet) {
-	fs.StringVar(&f.queue, "queue", "discrimen", "asynq queue `NAME` of shard tasks (plans and assemblies use NAME.control)")
+	fs.StringVar(&f.queue, "queue", "discrimen", "base `NAME` of the asynq queues: NAME.control for plans and assemblies, NAME.share0-7 for shards (owners hash into one)")
 	fs.DurationVar(&f.retention, "retention", 7*24*time.Hour, "how long studies and reports are kept after their last change")
 	fs.Int64Var(&f.maxReportBytes, "max-report-bytes", worker.DefaultMaxReportBytes,
 		"largest report of one study in `BYTES` (report.json, report.html and fits.csv together): the api refuses at submit a study estimated over it, a worker fails a study whose real report is over it")

@@ -22,12 +22,14 @@ import (
 const killStudy = workertest.MediumStudy
 
 // TestWorkerKilled: a worker process killed with SIGKILL mid-study loses
-// nothing. asynq gives the killed shard back once its lease has expired
-// (30 s lease + 30 s grace, checked by the recoverer each minute and at
-// start), so this test takes about a minute.
+// nothing, and its lost shard reruns within 30 s: worker B's watchdog sees
+// that A stopped beating (after 5 beats of 2 s) and requeues A's running
+// shard, where asynq alone would wait about a minute for A's lease to
+// expire. Meanwhile the status may read recovering, and its progress never
+// counts the lost shard's partial fits twice.
 func TestWorkerKilled(t *testing.T) {
 	if testing.Short() {
-		t.Skip("waits a minute for asynq's lease to expire")
+		t.Skip("waits about 10 s for the watchdog to find the lost shard")
 	}
 	r := workertest.New(t, dbOffset)
 	ctx := context.Background()
@@ -78,22 +80,51 @@ func TestWorkerKilled(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
+	killedAt := time.Now()
+	lostRuns, err := client.Runs(ctx, st.ID)
+	if err != nil {
+		t.Fatal(err)
+	}
 	t.Logf("killed worker A at %d/%d shards", killed.ShardsDone, killed.Shards)
 	b := startChild(t, "worker B", workerArgs...)
-	deadline = time.Now().Add(150 * time.Second)
+	deadline = time.Now().Add(60 * time.Second)
+	var rerun time.Duration
+	recovering := 0
 	for {
 		s, err := client.Status(ctx, "harbour", st.ID)
 		if err != nil {
 			t.Fatal(err)
+		}
+		if s.State == worker.Recovering {
+			recovering++
+		}
+		if s.Done > s.Total {
+			t.Fatalf("progress %d of %d fits: counted twice", s.Done, s.Total)
+		}
+		if rerun == 0 {
+			runs, err := client.Runs(ctx, st.ID)
+			if err != nil {
+				t.Fatal(err)
+			}
+			for i, n := range lostRuns {
+				if runs[i] > n {
+					rerun = time.Since(killedAt)
+				}
+			}
 		}
 		if s.State.Final() {
 			st = s
 			break
 		}
 		if time.Now().After(deadline) {
-			t.Fatalf("study still %s at %d/%d shards %v after the kill", s.State, s.ShardsDone, s.Shards, 150*time.Second)
+			t.Fatalf("study still %s at %d/%d shards %v after the kill", s.State, s.ShardsDone, s.Shards, 60*time.Second)
 		}
-		time.Sleep(100 * time.Millisecond)
+		time.Sleep(10 * time.Millisecond)
+	}
+	t.Logf("the lost shard reran %.1f s after the kill, the study was done %.1f s after it; %d status reads said recovering",
+		rerun.Seconds(), time.Since(killedAt).Seconds(), recovering)
+	if rerun == 0 || rerun > 30*time.Second {
+		t.Fatalf("the lost shard reran %v after the kill, want within 30 s", rerun)
 	}
 	if st.State != worker.Done || st.Assemblies != 1 {
 		t.Fatalf("after the kill: %s (%s), %d assemblies", st.State, st.Error, st.Assemblies)
