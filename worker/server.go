@@ -130,7 +130,7 @@ func (s *Server) Start() error {
 	mux.HandleFunc(TypePlan, s.tracked(s.handlePlan))
 	mux.HandleFunc(TypeShard, s.tracked(s.handleShard))
 	mux.HandleFunc(TypeAssemble, s.tracked(s.handleAssemble))
-	s.log.Info("worker starting", "concurrency", s.cfg.Concurrency, "queue", s.cfg.Queue)
+	s.log.Info("worker starting", "concurrency", s.cfg.Concurrency, "queues", fmt.Sprintf("%s, %s.share0..%d", s.cfg.controlQueue(), s.cfg.Queue, ShareQueues-1))
 	ctx, cancel := context.WithCancel(context.Background())
 	// The first beat is written before any task is taken, so a running
 	// entry of this worker always has a beat to be judged by.
