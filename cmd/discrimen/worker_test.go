@@ -176,66 +176,95 @@ const speedStudy = `{
   "replication": {"group_sizes": [5, 10], "replicates": 20}
 }`
 
-// TestTwoWorkersFaster: through an `api` process and `worker` processes of
-// one slot each, two workers finish the study sooner than one, and both
-// give discrimen run's report. Each worker runs with GOMAXPROCS=1, as if on
-// a machine of its own core, so a lone worker cannot borrow the second core
-// for its compile and garbage collector.
-func TestTwoWorkersFaster(t *testing.T) {
-	if testing.Short() {
-		t.Skip("times two runs of a 1800-fit study")
+// runWorkers runs speedStudy through the api at base with n `worker`
+// processes of one slot each (GOMAXPROCS=1, as if each had a machine of its
+// own core), checks that the report is discrimen run's and that its timing
+// block counts n workers, and returns the time from submission to done.
+func runWorkers(tb testing.TB, r *workertest.Redis, base, key string, n int, wantJSON, wantCSV []byte) time.Duration {
+	tb.Helper()
+	var ws []*child
+	for i := 0; i < n; i++ {
+		w := startChildEnv(tb, fmt.Sprintf("worker %d/%d", i+1, n), []string{"GOMAXPROCS=1"},
+			"worker", "--redis", r.URL, "--concurrency", "1", "--metrics-listen", "")
+		w.waitFor(tb, regexpMust(`msg="worker ready"`), 30*time.Second)
+		ws = append(ws, w)
 	}
-	r := workertest.New(t, dbOffset)
-	keys := filepath.Join(t.TempDir(), "keys")
-	key, hash := api.NewKey()
-	if err := api.AppendKey(keys, "harbour", hash); err != nil {
-		t.Fatal(err)
+	st, d := submitAndWait(tb, base, key, speedStudy, 3*time.Minute)
+	if st.Status != "done" {
+		tb.Fatalf("%d worker(s): study ended %s: %v", n, st.Status, st.Error)
 	}
-	srv := startChild(t, "api", "api", "--redis", r.URL, "--keys", keys, "--listen", "127.0.0.1:0", "--rate", "100")
-	base := srv.waitFor(t, listeningRE, 30*time.Second)[1]
-	wantJSON, wantCSV := expectedReport(t, speedStudy)
-	// Two rounds, keeping each count's faster run: a burst of load from a
-	// test running beside this one slows one run, rarely both.
-	elapsed := map[int]time.Duration{}
-	for round := 0; round < 2; round++ {
-		for _, n := range []int{1, 2} {
-			var ws []*child
-			for i := 0; i < n; i++ {
-				w := startChildEnv(t, fmt.Sprintf("worker %d/%d", i+1, n), []string{"GOMAXPROCS=1"},
-					"worker", "--redis", r.URL, "--concurrency", "1", "--metrics-listen", "")
-				w.waitFor(t, regexpMust(`msg="worker ready"`), 30*time.Second)
-				ws = append(ws, w)
-			}
-			st, d := submitAndWait(t, base, key, speedStudy, 3*time.Minute)
-			if st.Status != "done" {
-				t.Fatalf("%d worker(s): study ended %s: %v", n, st.Status, st.Error)
-			}
-			if elapsed[n] == 0 || d < elapsed[n] {
-				elapsed[n] = d
-			}
-			code, body := httpDo(t, "GET", base+"/v1/studies/"+st.ID+"/report", key, nil)
-			if code != 200 || !bytes.Equal(wantJSON, stripTiming(t, body)) {
-				t.Fatalf("%d worker(s): report.json differs from discrimen run's (%d)", n, code)
-			}
-			if code, body := httpDo(t, "GET", base+"/v1/studies/"+st.ID+"/fits.csv", key, nil); code != 200 || !bytes.Equal(wantCSV, body) {
-				t.Fatalf("%d worker(s): fits.csv differs from discrimen run's (%d)", n, code)
-			}
-			if !strings.Contains(string(body), fmt.Sprintf(`"workers": %d`, n)) {
-				t.Errorf("%d worker(s): timing block does not count %d workers", n, n)
-			}
-			for _, w := range ws {
-				if code := w.stop(t, 40*time.Second); code != 0 {
-					t.Fatalf("%s exited %d after SIGTERM", w.name, code)
-				}
-			}
+	code, body := httpDo(tb, "GET", base+"/v1/studies/"+st.ID+"/report", key, nil)
+	if code != 200 || !bytes.Equal(wantJSON, stripTiming(tb, body)) {
+		tb.Fatalf("%d worker(s): report.json differs from discrimen run's (%d)", n, code)
+	}
+	if code, body := httpDo(tb, "GET", base+"/v1/studies/"+st.ID+"/fits.csv", key, nil); code != 200 || !bytes.Equal(wantCSV, body) {
+		tb.Fatalf("%d worker(s): fits.csv differs from discrimen run's (%d)", n, code)
+	}
+	if !strings.Contains(string(body), fmt.Sprintf(`"workers": %d`, n)) {
+		tb.Errorf("%d worker(s): timing block does not count %d workers", n, n)
+	}
+	for _, w := range ws {
+		if code := w.stop(tb, 40*time.Second); code != 0 {
+			tb.Fatalf("%s exited %d after SIGTERM", w.name, code)
 		}
 	}
-	t.Logf("1800 fits, faster of two rounds: one worker %.2f s, two workers %.2f s (speed-up %.2f×)", elapsed[1].Seconds(), elapsed[2].Seconds(), elapsed[1].Seconds()/elapsed[2].Seconds())
-	if elapsed[2] >= elapsed[1] {
-		t.Fatalf("two workers took %v, one took %v: no faster", elapsed[2], elapsed[1])
+	return d
+}
+
+// startSpeedAPI starts an `api` process for runWorkers and returns it, its
+// address and a key.
+func startSpeedAPI(tb testing.TB, r *workertest.Redis) (*child, string, string) {
+	tb.Helper()
+	keys := filepath.Join(tb.TempDir(), "keys")
+	key, hash := api.NewKey()
+	if err := api.AppendKey(keys, "harbour", hash); err != nil {
+		tb.Fatal(err)
+	}
+	srv := startChild(tb, "api", "api", "--redis", r.URL, "--keys", keys, "--listen", "127.0.0.1:0", "--rate", "100")
+	return srv, srv.waitFor(tb, listeningRE, 30*time.Second)[1], key
+}
+
+// TestTwoWorkersSameReport: through an `api` process, one worker and two
+// workers each give discrimen run's report, and the timing block counts
+// them. How much faster two are is BenchmarkTwoWorkers's (a timed test
+// would fail whenever the machine is busy).
+func TestTwoWorkersSameReport(t *testing.T) {
+	if testing.Short() {
+		t.Skip("runs a 1800-fit study twice through worker processes")
+	}
+	r := workertest.New(t, dbOffset)
+	srv, base, key := startSpeedAPI(t, r)
+	wantJSON, wantCSV := expectedReport(t, speedStudy)
+	for _, n := range []int{1, 2} {
+		d := runWorkers(t, r, base, key, n, wantJSON, wantCSV)
+		t.Logf("%d worker(s): %.2f s", n, d.Seconds())
 	}
 	if code := srv.stop(t, 20*time.Second); code != 0 {
 		t.Fatalf("api exited %d after SIGTERM", code)
+	}
+}
+
+// BenchmarkTwoWorkers reports the speed-up of two one-core workers over
+// one on speedStudy (1800 fits), the faster of b.N rounds each:
+//
+//	go test ./cmd/discrimen -run '^$' -bench TwoWorkers -benchtime 2x
+func BenchmarkTwoWorkers(b *testing.B) {
+	r := workertest.New(b, dbOffset)
+	srv, base, key := startSpeedAPI(b, r)
+	wantJSON, wantCSV := expectedReport(b, speedStudy)
+	best := map[int]time.Duration{}
+	for range b.N {
+		for _, n := range []int{1, 2} {
+			if d := runWorkers(b, r, base, key, n, wantJSON, wantCSV); best[n] == 0 || d < best[n] {
+				best[n] = d
+			}
+		}
+	}
+	b.ReportMetric(best[1].Seconds(), "s-one-worker")
+	b.ReportMetric(best[2].Seconds(), "s-two-workers")
+	b.ReportMetric(best[1].Seconds()/best[2].Seconds(), "speed-up")
+	if code := srv.stop(b, 20*time.Second); code != 0 {
+		b.Fatalf("api exited %d after SIGTERM", code)
 	}
 }
 
