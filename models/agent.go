@@ -41,6 +41,16 @@ type Listener struct {
 	deltaMs   float64
 	binMs     int
 	binIters  int
+
+	// sigma is agent.precision_sd (model.md §3b): 0 for the deterministic
+	// agent; gainLo and gainHi clip each trial's shifted precision course.
+	sigma, gainLo, gainHi float64
+	// dfSnaps[c] is the agent's state at target onset of CTI c apart from
+	// the gain factor. Before target onset no factor reads the gain
+	// beliefs (the items carry the only coupling to g), so d, f, x and the
+	// accumulated evidence follow one course for every hypothesis: it is
+	// run once here, and Predict runs only the gain factor up to onset.
+	dfSnaps []state
 }
 
 // NewListener compiles the agent for design d (defaults filled, valid).
@@ -116,8 +126,49 @@ func NewListener(d *Design) (*Listener, error) {
 	l.mkOther = 2*flog(1-mu) + (L-2)*flog(mu)
 	sp := (a.GainMax - a.GainMin) / float64(l.G-1)
 	l.inv2s2 = 1 / (2 * sp * sp)
+	if !(a.PrecisionSD >= 0) || math.IsInf(a.PrecisionSD, 0) {
+		return nil, fmt.Errorf("models: design %q: agent.precision_sd must be >= 0, got %g", d.Name, a.PrecisionSD)
+	}
+	l.sigma, l.gainLo, l.gainHi = a.PrecisionSD, a.GainMin, a.GainMax
+	l.prepareDF()
 	return l, nil
 }
+
+// prepareDF runs the preparatory epochs once for the factors that do not
+// depend on the hypothesis (d, f, x and their evidence) and keeps their
+// state at each target onset in dfSnaps. The gain factor is run too, under
+// a flat prior, only because iterate updates every factor; Predict
+// replaces it.
+func (l *Listener) prepareDF() {
+	ws := l.NewWorkspace()
+	flat := make([]float64, l.G)
+	st := &ws.cur
+	l.initState(st, flat)
+	l.dfSnaps = make([]state, len(l.nOn))
+	for c := range l.dfSnaps {
+		l.dfSnaps[c] = newState(l)
+	}
+	snapAt := func(tau int) {
+		for c, on := range l.nOn {
+			if on == tau {
+				l.dfSnaps[c].copyFrom(st)
+			}
+		}
+	}
+	for tau := 0; tau < l.maxOn; tau++ {
+		snapAt(tau)
+		cue := l.cueEpochs == 0 || tau < l.cueEpochs
+		for k := 0; k < l.K; k++ {
+			l.iterate(ws, st, flat, cue, false)
+		}
+		l.accumulate(ws, st, cue, false)
+	}
+	snapAt(l.maxOn)
+}
+
+// PrecisionSD is the trial-to-trial standard deviation of precision this
+// listener was compiled with (agent.precision_sd; 0 = deterministic).
+func (l *Listener) PrecisionSD() float64 { return l.sigma }
 
 // Prediction holds the exact predictions of one hypothesis at one
 // parameter point for one design (model.md §3 readouts).
@@ -136,7 +187,10 @@ type ClassPrediction struct {
 	RTms        []float64 // ms from target onset to the criterion crossing
 	Accuracy    []float64 // P(report the target item)
 	Misdirected []float64 // P(report the cued stream's item); 0 on valid trials
-	Censored    []bool    // criterion not reached inside the response window
+	// Censored is the share of trials whose criterion is not reached inside
+	// the response window: 0 or 1 for the deterministic agent, the
+	// expectation over trials with precision_sd > 0 (model.md §3b).
+	Censored []float64
 }
 
 // state is every belief the agent carries between iterations.
@@ -171,28 +225,64 @@ func (s *state) copyFrom(o *state) {
 // Workspace is the scratch memory of one Predict call; reuse it across
 // calls in one goroutine to avoid allocation.
 type Workspace struct {
-	l          *Listener
-	cur, br    state
-	snaps      []state
-	lnPrior    []float64 // epochs × G
-	prepE      []float64
-	tgt        []float64
-	prevSx     []float64
-	itemOn     []int // item shown on stream l
-	streamOf   []int // stream showing item x, or −1
-	choice     []float64
-	preparedTo int
+	l        *Listener
+	cur, br  state
+	gsnapV   [][]float64 // gain beliefs v_g, s_g at each target onset
+	gsnapS   [][]float64
+	gamma    []float64 // γ(t_τ) of the current run, per epoch
+	lnPrior  []float64 // epochs × G, filled on first use in a run
+	priorRun []uint32  // run number that filled lnPrior's epoch τ
+	run      uint32
+	prepE    []float64
+	e0       float64 // the neural baseline of the current run
+	tgt      []float64
+	prevSx   []float64
+	itemOn   []int // item shown on stream l
+	streamOf []int // stream showing item x, or −1
+	choice   []float64
+	res      []trialResult // per CTI × class of the current run
+	graded   *gradedScratch
+}
+
+// trialResult is one deterministic trial's readouts and its outcome
+// (model.md §3b step 1).
+type trialResult struct {
+	rt, acc, mis float64
+	censored     bool
+	// category of the most probable item at response (ties to the lowest
+	// item index): reportTarget, reportCued or reportOther.
+	category int8
+}
+
+const (
+	reportTarget int8 = iota
+	reportCued
+	reportOther
+)
+
+// outcome codes category and censoring into one comparable value.
+func (r trialResult) outcome() int8 {
+	o := 2 * r.category
+	if r.censored {
+		o++
+	}
+	return o
 }
 
 // NewWorkspace allocates scratch memory for Predict.
 func (l *Listener) NewWorkspace() *Workspace {
 	w := &Workspace{l: l, cur: newState(l), br: newState(l)}
-	w.snaps = make([]state, len(l.nOn))
-	for i := range w.snaps {
-		w.snaps[i] = newState(l)
+	w.gsnapV = make([][]float64, len(l.nOn))
+	w.gsnapS = make([][]float64, len(l.nOn))
+	for i := range w.gsnapV {
+		w.gsnapV[i] = make([]float64, l.G)
+		w.gsnapS[i] = make([]float64, l.G)
 	}
 	epochs := l.maxOn + l.window
+	w.gamma = make([]float64, epochs)
 	w.lnPrior = make([]float64, epochs*l.G)
+	w.priorRun = make([]uint32, epochs)
+	w.res = make([]trialResult, 2*len(l.nOn))
 	w.prepE = make([]float64, l.maxOn*l.K)
 	w.tgt = make([]float64, max(l.L, l.V, l.G))
 	w.prevSx = make([]float64, l.V)
@@ -206,7 +296,7 @@ func (l *Listener) NewWorkspace() *Workspace {
 func (l *Listener) NewPrediction() *Prediction {
 	n := len(l.nOn)
 	cp := func() ClassPrediction {
-		return ClassPrediction{RTms: make([]float64, n), Accuracy: make([]float64, n), Misdirected: make([]float64, n), Censored: make([]bool, n)}
+		return ClassPrediction{RTms: make([]float64, n), Accuracy: make([]float64, n), Misdirected: make([]float64, n), Censored: make([]float64, n)}
 	}
 	p := &Prediction{CTIms: append([]int(nil), l.ctiMs...), Valid: cp(), Invalid: cp(), BinMs: l.binMs, Neural: make([][]float64, n)}
 	for c, on := range l.nOn {
@@ -277,7 +367,8 @@ func (l *Listener) gainPrior(dst []float64, gamma float64) {
 // Predict computes the exact predictions of precision course p into dst
 // (from NewPrediction), using ws (from NewWorkspace; nil allocates one).
 // The preparatory part is run once to the longest CTI and branched at each
-// target onset into a valid and an invalid trial.
+// target onset into a valid and an invalid trial. With precision_sd > 0 the
+// predictions are expectations over trials (model.md §3b, predictGraded).
 func (l *Listener) Predict(p Precision, dst *Prediction, ws *Workspace) {
 	if ws == nil {
 		ws = l.NewWorkspace()
@@ -285,59 +376,108 @@ func (l *Listener) Predict(p Precision, dst *Prediction, ws *Workspace) {
 	if ws.l != l {
 		panic("models: workspace belongs to another listener")
 	}
-	G := l.G
-	epochs := l.maxOn + l.window
-	for tau := 0; tau < epochs; tau++ {
-		l.gainPrior(ws.lnPrior[tau*G:(tau+1)*G], p.At(float64(tau)*l.deltaMs/1000))
+	if l.sigma > 0 {
+		l.predictGraded(p, dst, ws)
+		return
 	}
-	st := &ws.cur
-	l.initState(st, ws.lnPrior[:G])
-	e0 := dot(l.gains, st.sg)
-
-	// Preparatory epochs, common to every CTI and trial class.
-	snapAt := func(tau int) {
-		for c, on := range l.nOn {
-			if on == tau {
-				ws.snaps[c].copyFrom(st)
-			}
-		}
+	for tau := range ws.gamma {
+		ws.gamma[tau] = p.At(float64(tau) * l.deltaMs / 1000)
 	}
-	for tau := 0; tau < l.maxOn; tau++ {
-		snapAt(tau)
-		cue := l.cueEpochs == 0 || tau < l.cueEpochs
-		prior := ws.lnPrior[tau*G : (tau+1)*G]
-		for k := 0; k < l.K; k++ {
-			l.iterate(ws, st, prior, cue, false)
-			ws.prepE[tau*l.K+k] = dot(l.gains, st.sg)
-		}
-		l.accumulate(ws, st, cue, false)
-	}
-	snapAt(l.maxOn)
-
-	for c, on := range l.nOn {
-		bins := dst.Neural[c]
-		for b := range bins {
-			s := 0.0
-			for i := b * l.binIters; i < (b+1)*l.binIters; i++ {
-				s += ws.prepE[i]
-			}
-			bins[b] = s/float64(l.binIters) - e0
-		}
+	l.runTrials(ws, l.maxOn, nil)
+	for c := range l.nOn {
+		l.neuralInto(ws, c, dst.Neural[c])
 		for class := 0; class < 2; class++ {
-			ws.br.copyFrom(&ws.snaps[c])
-			l.setItems(ws, class == 1)
-			rt, acc, mis, cens := l.respond(ws, &ws.br, on)
+			r := ws.res[2*c+class]
 			cp := &dst.Valid
 			if class == 1 {
 				cp = &dst.Invalid
 			}
-			cp.RTms[c], cp.Accuracy[c], cp.Censored[c] = rt, acc, cens
-			if class == 1 {
-				cp.Misdirected[c] = mis
-			} else {
-				cp.Misdirected[c] = 0
+			cp.RTms[c], cp.Accuracy[c], cp.Misdirected[c] = r.rt, r.acc, r.mis
+			cp.Censored[c] = 0
+			if r.censored {
+				cp.Censored[c] = 1
 			}
 		}
+	}
+}
+
+// prior returns ln P_τ(g) of the current run, computing it from ws.gamma
+// on first use.
+func (l *Listener) prior(ws *Workspace, tau int) []float64 {
+	G := l.G
+	dst := ws.lnPrior[tau*G : (tau+1)*G]
+	if ws.priorRun[tau] != ws.run {
+		l.gainPrior(dst, ws.gamma[tau])
+		ws.priorRun[tau] = ws.run
+	}
+	return dst
+}
+
+// runTrials runs one deterministic trial course under the precision in
+// ws.gamma: the gain factor through the preparatory epochs up to epoch
+// upto (the other factors come from dfSnaps), then, at each target onset
+// up to upto, a valid and an invalid trial for every CTI × class index i
+// with need == nil or need[i], into ws.res[i].
+func (l *Listener) runTrials(ws *Workspace, upto int, need []bool) {
+	ws.run++
+	if ws.run == 0 { // wrapped: forget every cached prior
+		clear(ws.priorRun)
+		ws.run = 1
+	}
+	vg, sg := ws.cur.vg, ws.cur.sg
+	// The gain beliefs start at P_0 (initState's renormalised prior).
+	prior0 := l.prior(ws, 0)
+	z := logSumExp(prior0)
+	for g := range vg {
+		vg[g] = prior0[g] - z
+		sg[g] = math.Exp(vg[g])
+	}
+	ws.e0 = dot(l.gains, sg)
+	snapAt := func(tau int) {
+		for c, on := range l.nOn {
+			if on == tau {
+				copy(ws.gsnapV[c], vg)
+				copy(ws.gsnapS[c], sg)
+			}
+		}
+	}
+	// Preparatory epochs: with no items the gain factor's target is its
+	// prior alone (model.md §3), so only softStep runs.
+	for tau := 0; tau < upto; tau++ {
+		snapAt(tau)
+		prior := l.prior(ws, tau)
+		for k := 0; k < l.K; k++ {
+			softStep(vg, sg, prior, l.invKappa)
+			ws.prepE[tau*l.K+k] = dot(l.gains, sg)
+		}
+	}
+	snapAt(upto)
+	for c, on := range l.nOn {
+		if on > upto {
+			continue
+		}
+		for class := 0; class < 2; class++ {
+			i := 2*c + class
+			if need != nil && !need[i] {
+				continue
+			}
+			ws.br.copyFrom(&l.dfSnaps[c])
+			copy(ws.br.vg, ws.gsnapV[c])
+			copy(ws.br.sg, ws.gsnapS[c])
+			l.setItems(ws, class == 1)
+			ws.res[i] = l.respond(ws, &ws.br, on)
+		}
+	}
+}
+
+// neuralInto writes the neural bins of CTI c of the current run into bins.
+func (l *Listener) neuralInto(ws *Workspace, c int, bins []float64) {
+	for b := range bins {
+		s := 0.0
+		for i := b * l.binIters; i < (b+1)*l.binIters; i++ {
+			s += ws.prepE[i]
+		}
+		bins[b] = s/float64(l.binIters) - ws.e0
 	}
 }
 
@@ -528,16 +668,16 @@ func (l *Listener) accumulate(ws *Workspace, st *state, cue, items bool) {
 
 // respond runs the response window from target onset (epoch on) until the
 // posterior max_x s_x crosses the criterion, returning the RT in ms, the
-// probabilities of reporting the target and the cued stream's item, and
-// whether the RT was censored at the window's end.
-func (l *Listener) respond(ws *Workspace, st *state, on int) (rt, acc, mis float64, censored bool) {
-	G := l.G
+// probabilities of reporting the target and the cued stream's item,
+// whether the RT was censored at the window's end, and the category of the
+// most probable item at response.
+func (l *Listener) respond(ws *Workspace, st *state, on int) trialResult {
 	prevMax := maxOf(st.sx)
 	copy(ws.prevSx, st.sx)
 	for tau := on; tau < on+l.window; tau++ {
 		items := tau-on < l.present
 		cue := l.cueEpochs > 0 && tau < l.cueEpochs
-		prior := ws.lnPrior[tau*G : (tau+1)*G]
+		prior := l.prior(ws, tau)
 		for k := 0; k < l.K; k++ {
 			l.iterate(ws, st, prior, cue, items)
 			m := maxOf(st.sx)
@@ -545,12 +685,13 @@ func (l *Listener) respond(ws *Workspace, st *state, on int) (rt, acc, mis float
 				// i* = i − 1 + (criterion − m_{i−1})/(m_i − m_{i−1})
 				frac := (l.crit - prevMax) / (m - prevMax)
 				i := float64((tau-on)*l.K + k)
-				rt = (i + frac) * l.deltaMs / float64(l.K)
+				rt := (i + frac) * l.deltaMs / float64(l.K)
 				for x := range ws.choice {
 					ws.choice[x] = ws.prevSx[x] + frac*(st.sx[x]-ws.prevSx[x])
 				}
-				acc, mis = l.choose(ws.choice, ws.itemOn[0])
-				return rt, acc, mis, false
+				cat := l.category(ws)
+				acc, mis := l.choose(ws.choice, ws.itemOn[0])
+				return trialResult{rt: rt, acc: acc, mis: mis, category: cat}
 			}
 			prevMax = m
 			copy(ws.prevSx, st.sx)
@@ -558,8 +699,28 @@ func (l *Listener) respond(ws *Workspace, st *state, on int) (rt, acc, mis float
 		l.accumulate(ws, st, cue, items)
 	}
 	copy(ws.choice, st.sx)
-	acc, mis = l.choose(ws.choice, ws.itemOn[0])
-	return float64(l.window) * l.deltaMs, acc, mis, true
+	cat := l.category(ws)
+	acc, mis := l.choose(ws.choice, ws.itemOn[0])
+	return trialResult{rt: float64(l.window) * l.deltaMs, acc: acc, mis: mis, censored: true, category: cat}
+}
+
+// category classifies the most probable item of ws.choice (ties to the
+// lowest item index): the target (item 0), the cued stream's item on an
+// invalid trial, or another item.
+func (l *Listener) category(ws *Workspace) int8 {
+	best := 0
+	for x, v := range ws.choice {
+		if v > ws.choice[best] {
+			best = x
+		}
+	}
+	switch {
+	case best == 0:
+		return reportTarget
+	case best == ws.itemOn[0]:
+		return reportCued
+	}
+	return reportOther
 }
 
 // choose returns P(report target) and P(report the cued stream's item)

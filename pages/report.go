@@ -837,7 +837,17 @@ func newPredictionSeries(preds []models.HypothesisPrediction, colour func(i int,
 		// cti_ms need not be ascending; a line joins its points by CTI.
 		ord := ascendingOrder(hp.CTIms)
 		pick := func(v []float64) []float64 { return permuteFloats(v, ord) }
-		pickB := func(v []bool) []bool { return permuteBools(v, ord) }
+		// A point is ringed where at least half its trials are censored.
+		pickB := func(v []float64) []bool {
+			if v == nil {
+				return nil
+			}
+			b := make([]bool, len(v))
+			for i, x := range v {
+				b[i] = x >= 0.5
+			}
+			return permuteBools(b, ord)
+		}
 		xs := pick(x)
 		ps.RT = append(ps.RT,
 			lineSeries{X: xs, Y: pick(hp.Valid.RTms), Hollow: pickB(hp.Censored.Valid), Colour: c, Markers: true},

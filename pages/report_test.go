@@ -99,7 +99,7 @@ func htmlDesign(name string, measures []string, group bool) recovery.DesignRepor
 			Valid:    models.ClassReadouts{RTms: []float64{110 - 10*float64(i), 60, 50}, Accuracy: []float64{0.9, 0.9, 0.9}},
 			Invalid:  models.ClassReadouts{RTms: []float64{130, 110 + float64(i), 1500}, Accuracy: []float64{0.9, 0.5, 0.05}},
 			Neural:   models.NeuralReadouts{BinMs: 100, ByCTI: [][]float64{{0, 0.1, 0.2}, {0, 0.1, 0.2, 0.3, 0.4, 0.5}, {0, 0.1 * float64(i), 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8}}},
-			Censored: models.CensoredReadouts{Valid: []bool{false, false, false}, Invalid: []bool{false, false, true}},
+			Censored: models.CensoredReadouts{Valid: []float64{0, 0, 0}, Invalid: []float64{0, 0, 1}},
 		}
 		d.Predictions = append(d.Predictions, hp)
 	}
