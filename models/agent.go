@@ -337,6 +337,27 @@ func softStep(v, s, target []float64, invKappa float64) {
 	}
 }
 
+// softmaxInto sets s = softmax(v) by the same operations as softStep's
+// second half, so that s matches the one softStep would leave bit for bit.
+func softmaxInto(v, s []float64) {
+	m := math.Inf(-1)
+	for _, x := range v {
+		if x > m {
+			m = x
+		}
+	}
+	sum := 0.0
+	for i, x := range v {
+		e := math.Exp(x - m)
+		s[i] = e
+		sum += e
+	}
+	inv := 1 / sum
+	for i := range s {
+		s[i] *= inv
+	}
+}
+
 func logSumExp(x []float64) float64 {
 	m := x[0]
 	for _, v := range x[1:] {
@@ -383,7 +404,7 @@ func (l *Listener) Predict(p Precision, dst *Prediction, ws *Workspace) {
 	for tau := range ws.gamma {
 		ws.gamma[tau] = p.At(float64(tau) * l.deltaMs / 1000)
 	}
-	l.runTrials(ws, l.maxOn, nil)
+	l.runTrials(ws, l.maxOn, nil, true)
 	for c := range l.nOn {
 		l.neuralInto(ws, c, dst.Neural[c])
 		for class := 0; class < 2; class++ {
@@ -417,8 +438,11 @@ func (l *Listener) prior(ws *Workspace, tau int) []float64 {
 // ws.gamma: the gain factor through the preparatory epochs up to epoch
 // upto (the other factors come from dfSnaps), then, at each target onset
 // up to upto, a valid and an invalid trial for every CTI × class index i
-// with need == nil or need[i], into ws.res[i].
-func (l *Listener) runTrials(ws *Workspace, upto int, need []bool) {
+// with need == nil or need[i], into ws.res[i]. With neural set the
+// expected precision of every preparatory iteration is kept in ws.prepE
+// (neuralInto reads it); without, the gain beliefs s_g are computed only
+// at target onsets: v_g's update does not read them.
+func (l *Listener) runTrials(ws *Workspace, upto int, need []bool, neural bool) {
 	ws.run++
 	if ws.run == 0 { // wrapped: forget every cached prior
 		clear(ws.priorRun)
@@ -437,15 +461,27 @@ func (l *Listener) runTrials(ws *Workspace, upto int, need []bool) {
 		for c, on := range l.nOn {
 			if on == tau {
 				copy(ws.gsnapV[c], vg)
+				if !neural && tau > 0 {
+					softmaxInto(vg, sg)
+				}
 				copy(ws.gsnapS[c], sg)
 			}
 		}
 	}
 	// Preparatory epochs: with no items the gain factor's target is its
-	// prior alone (model.md §3), so only softStep runs.
+	// prior alone (model.md §3), so only its step runs.
+	keep := 1 - l.invKappa
 	for tau := 0; tau < upto; tau++ {
 		snapAt(tau)
 		prior := l.prior(ws, tau)
+		if !neural {
+			for range l.K {
+				for g, p := range prior {
+					vg[g] = keep*vg[g] + l.invKappa*p
+				}
+			}
+			continue
+		}
 		for k := 0; k < l.K; k++ {
 			softStep(vg, sg, prior, l.invKappa)
 			ws.prepE[tau*l.K+k] = dot(l.gains, sg)
@@ -677,9 +713,23 @@ func (l *Listener) respond(ws *Workspace, st *state, on int) trialResult {
 	for tau := on; tau < on+l.window; tau++ {
 		items := tau-on < l.present
 		cue := l.cueEpochs > 0 && tau < l.cueEpochs
-		prior := l.prior(ws, tau)
+		// Once neither items nor the cue are shown, the item beliefs move
+		// towards their accumulated evidence alone (iterate's x step reads
+		// nothing else), and no readout reads d, f or g: only x is run, as
+		// iterate would run it, and there is nothing to accumulate.
+		xOnly := !items && !cue
+		var prior []float64
+		if !xOnly {
+			prior = l.prior(ws, tau)
+		}
+		still := xOnly && allZero(st.ex)
 		for k := 0; k < l.K; k++ {
-			l.iterate(ws, st, prior, cue, items)
+			switch {
+			case !xOnly:
+				l.iterate(ws, st, prior, cue, items)
+			case !still:
+				softStep(st.vx, st.sx, st.ex, l.invKappa)
+			}
 			m := maxOf(st.sx)
 			if m >= l.crit && prevMax < l.crit {
 				// i* = i − 1 + (criterion − m_{i−1})/(m_i − m_{i−1})
@@ -696,7 +746,9 @@ func (l *Listener) respond(ws *Workspace, st *state, on int) trialResult {
 			prevMax = m
 			copy(ws.prevSx, st.sx)
 		}
-		l.accumulate(ws, st, cue, items)
+		if !xOnly {
+			l.accumulate(ws, st, cue, items)
+		}
 	}
 	copy(ws.choice, st.sx)
 	cat := l.category(ws)

@@ -6,7 +6,6 @@ package models
 // expectation over δ, written in u = Φ(δ/σ) ∈ (0, 1).
 
 import (
-
 	"gonum.org/v1/gonum/integrate/quad"
 	"gonum.org/v1/gonum/mathext"
 )
@@ -38,13 +37,15 @@ var glNodes, glWeights = func() ([]float64, []float64) {
 
 // gradedScratch is the memory of one graded prediction set.
 type gradedScratch struct {
-	gam     []float64 // γ(t_τ) of the hypothesis, per epoch, unshifted
-	scan    [][]int8  // outcome per scan point × (CTI × class)
-	changes [][]float64
-	need    []bool
-	rtw     []float64 // E[p_target · RT] per CTI × class
-	rtPlain []float64 // E[RT], the fallback when E[p_target] underflows
-	bins    []float64
+	gam      []float64 // γ(t_τ) of the hypothesis, per epoch, unshifted
+	scan     [][]int8  // outcome per scan point × (CTI × class)
+	changes  [][]float64
+	need     []bool
+	rtw      []float64 // E[p_target · RT] per CTI × class
+	rtPlain  []float64 // E[RT], the fallback when E[p_target] underflows
+	bins     []float64
+	idx      []int
+	brackets []bracket
 	// trace, when set, records every integration node (tests).
 	trace func(i int, u, w float64, r trialResult)
 }
@@ -75,8 +76,9 @@ func (l *Listener) shift(u float64) float64 { return l.sigma * mathext.NormalQua
 
 // runShifted runs the trials of index i with need[i] (all when need is nil)
 // on the precision course shifted by δ(u) and clipped to the gain range.
-// It runs the preparation only up to the latest target onset needed.
-func (l *Listener) runShifted(ws *Workspace, u float64, need []bool) {
+// It runs the preparation only up to the latest target onset needed, and
+// keeps the neural signal only when neural is set.
+func (l *Listener) runShifted(ws *Workspace, u float64, need []bool, neural bool) {
 	g := ws.graded
 	d := l.shift(u)
 	upto := 0
@@ -88,41 +90,119 @@ func (l *Listener) runShifted(ws *Workspace, u float64, need []bool) {
 	for tau, v := range g.gam {
 		ws.gamma[tau] = min(l.gainHi, max(l.gainLo, v+d))
 	}
-	l.runTrials(ws, upto, need)
+	l.runTrials(ws, upto, need, neural)
 }
 
-// outcomeAt is the outcome of trial index i alone at u.
-func (l *Listener) outcomeAt(ws *Workspace, i int, u float64) int8 {
-	g := ws.graded
-	clear(g.need)
-	g.need[i] = true
-	l.runShifted(ws, u, g.need)
-	return ws.res[i].outcome()
+// bracket is one change of outcome being located for trial index i:
+// the outcome at lo is oa, at hi ohi ≠ oa; b (outcome ob) is the scan
+// point that closes the interval.
+type bracket struct {
+	i           int
+	lo, hi, b   float64
+	oa, ohi, ob int8
+	done        bool
+	galloping   bool    // looking for the next change beyond lo
+	step        float64 // the gallop's next step
+	gallopsLeft int
 }
 
-// locate appends to g.changes[i] the change of outcome between a (outcome
-// oa) and b (outcome ob ≠ oa), found by bisection to changeTol: the left
-// point moves while its outcome matches oa. If the right end of the final
-// bracket has another outcome than b, a further change lies between it
-// and b and is located too.
-func (l *Listener) locate(ws *Workspace, i int, a, b float64, oa, ob int8) {
+// gallops is the number of doublings from 2·changeTol with which a search
+// for a further change starts before it bisects the rest of its interval:
+// changes of outcome often come in clusters a few 1e-8 apart.
+const gallops = 8
+
+// locateAll finds every change of outcome between scan points j−1 and j
+// for the trial indices in idx (whose outcomes there differ), into
+// g.changes. Each change is bracketed by bisection, the left point moving
+// while its outcome matches the left end's, until the bracket is 2e-8
+// wide; its midpoint is the change. Brackets that share both ends share
+// their midpoint, so one run (branched to every such index) serves them
+// all. When the bracket's right end has another outcome than the scan
+// point, a further change lies beyond it: it is sought by doubling steps
+// from 2e-8, then by bisection.
+func (l *Listener) locateAll(ws *Workspace, j int, idx []int) {
 	g := ws.graded
+	a, b := scanU[j-1], scanU[j]
+	br := g.brackets[:0]
+	for _, i := range idx {
+		br = append(br, bracket{i: i, lo: a, hi: b, b: b, oa: g.scan[j-1][i], ohi: g.scan[j][i], ob: g.scan[j][i]})
+	}
 	for {
-		lo, hi, ohi := a, b, ob
-		for hi-lo > changeTol {
-			m := 0.5 * (lo + hi)
-			if om := l.outcomeAt(ws, i, m); om == oa {
-				lo = m
-			} else {
-				hi, ohi = m, om
+		// The probe of each live bracket, and one run per distinct probe.
+		clear(g.need)
+		var u float64
+		live := false
+		for k := range br {
+			x := &br[k]
+			if x.done {
+				continue
+			}
+			p := x.probe()
+			if !live {
+				u, live = p, true
+			}
+			if p == u {
+				g.need[x.i] = true
 			}
 		}
-		g.changes[i] = append(g.changes[i], 0.5*(lo+hi))
-		if ohi == ob {
-			return
+		if !live {
+			break
 		}
-		a, oa = hi, ohi
+		l.runShifted(ws, u, g.need, false)
+		for k := range br {
+			x := &br[k]
+			if x.done || !g.need[x.i] || x.probe() != u {
+				continue
+			}
+			if x.advance(u, ws.res[x.i].outcome()) {
+				g.changes[x.i] = append(g.changes[x.i], 0.5*(x.lo+x.hi))
+				if x.ohi == x.ob {
+					x.done = true
+					continue
+				}
+				// A further change between hi and b.
+				*x = bracket{i: x.i, lo: x.hi, hi: x.b, b: x.b, oa: x.ohi, ohi: x.ob, ob: x.ob,
+					galloping: true, step: 2 * changeTol, gallopsLeft: gallops}
+			}
+		}
 	}
+	g.brackets = br
+}
+
+// probe is the next point at which the bracket needs the outcome.
+func (x *bracket) probe() float64 {
+	if x.galloping {
+		if p := x.lo + x.step; p < x.hi {
+			return p
+		}
+	}
+	return 0.5 * (x.lo + x.hi)
+}
+
+// advance records outcome o at the probe u and reports whether the
+// bracket is narrow enough to place the change at its midpoint.
+func (x *bracket) advance(u float64, o int8) bool {
+	if x.galloping && u != 0.5*(x.lo+x.hi) {
+		if o == x.oa {
+			x.lo = u
+			x.step *= 2
+			x.gallopsLeft--
+			if x.gallopsLeft == 0 {
+				x.galloping = false
+			}
+		} else {
+			x.hi, x.ohi = u, o
+			x.galloping = false
+		}
+	} else {
+		x.galloping = false
+		if o == x.oa {
+			x.lo = u
+		} else {
+			x.hi, x.ohi = u, o
+		}
+	}
+	return x.hi-x.lo <= 2*changeTol
 }
 
 // predictGraded computes the expectations of model.md §3b into dst:
@@ -143,18 +223,25 @@ func (l *Listener) predictGraded(p Precision, dst *Prediction, ws *Workspace) {
 	}
 	n := 2 * len(l.nOn)
 	for j, u := range scanU {
-		l.runShifted(ws, u, nil)
+		l.runShifted(ws, u, nil, false)
 		for i := range n {
 			g.scan[j][i] = ws.res[i].outcome()
 		}
 	}
 	for i := range n {
 		g.changes[i] = g.changes[i][:0]
-		for j := 1; j < len(scanU); j++ {
-			if oa, ob := g.scan[j-1][i], g.scan[j][i]; oa != ob {
-				l.locate(ws, i, scanU[j-1], scanU[j], oa, ob)
+	}
+	for j := 1; j < len(scanU); j++ {
+		idx := g.idx[:0]
+		for i := range n {
+			if g.scan[j-1][i] != g.scan[j][i] {
+				idx = append(idx, i)
 			}
 		}
+		if len(idx) > 0 {
+			l.locateAll(ws, j, idx)
+		}
+		g.idx = idx
 	}
 
 	for _, cp := range []*ClassPrediction{&dst.Valid, &dst.Invalid} {
@@ -177,8 +264,12 @@ func (l *Listener) predictGraded(p Precision, dst *Prediction, ws *Workspace) {
 	}
 	if some {
 		shared := append([]bool(nil), g.need...)
+		neural := false
+		for c := range l.nOn {
+			neural = neural || shared[2*c]
+		}
 		for k, t := range glNodes {
-			l.runShifted(ws, t, shared)
+			l.runShifted(ws, t, shared, neural)
 			for i, ok := range shared {
 				if ok {
 					l.addNode(ws, dst, i, t, glWeights[k])
@@ -200,7 +291,7 @@ func (l *Listener) predictGraded(p Precision, dst *Prediction, ws *Workspace) {
 				u := a + (b-a)*t
 				clear(g.need)
 				g.need[i] = true
-				l.runShifted(ws, u, g.need)
+				l.runShifted(ws, u, g.need, i%2 == 0)
 				l.addNode(ws, dst, i, u, (b-a)*glWeights[k])
 			}
 			a = b
