@@ -6,6 +6,8 @@ package models
 // expectation over δ, written in u = Φ(δ/σ) ∈ (0, 1).
 
 import (
+	"slices"
+
 	"gonum.org/v1/gonum/integrate/quad"
 	"gonum.org/v1/gonum/mathext"
 )
@@ -32,6 +34,11 @@ var scanU = func() []float64 {
 var glNodes, glWeights = func() ([]float64, []float64) {
 	x, w := make([]float64, glPoints), make([]float64, glPoints)
 	quad.Legendre{}.FixedLocations(x, w, 0, 1)
+	// Ascending, so that every sum over nodes runs in one fixed order.
+	if x[0] > x[len(x)-1] {
+		slices.Reverse(x)
+		slices.Reverse(w)
+	}
 	return x, w
 }()
 
