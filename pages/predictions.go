@@ -40,6 +40,7 @@ type predictionsView struct {
 
 type predDesignView struct {
 	Name, Validity, CTIs, Measures, Criterion string
+	PrecisionSD                               string // "" when 0
 	Streams, Items, TrialsPerCTI              int
 	PresentationMs, ResponseWindowMs, EpochMs int
 	EEGBinMs                                  int
@@ -95,6 +96,9 @@ func Predictions(studyName string, d *models.Design, preds []models.HypothesisPr
 	}
 	if d.Agent.Criterion > 0 {
 		v.Design.Criterion = fmtG(d.Agent.Criterion, 3)
+	}
+	if d.Agent.PrecisionSD > 0 {
+		v.Design.PrecisionSD = fmtG(d.Agent.PrecisionSD, 3)
 	}
 	byOrder := func(i int, _ string) color.RGBA { return hypColour(i) }
 	for i, hp := range preds {

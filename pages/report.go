@@ -96,10 +96,14 @@ type htmlView struct {
 	HasGroup   bool
 	// ITINote names each design's inter-trial interval for the notes on
 	// testing minutes.
-	ITINote  string
-	Sections []sectionLink
-	Timing   string
-	Method   methodView
+	ITINote string
+	// GradedNote names the designs with trial-to-trial variability of
+	// precision and what it costs; empty when every design is
+	// deterministic.
+	GradedNote string
+	Sections   []sectionLink
+	Timing     string
+	Method     methodView
 }
 
 // methodView holds the method constants the notes quote, formatted from
@@ -287,7 +291,7 @@ func Report(r *recovery.Report) ([]byte, error) {
 	if r == nil {
 		panic("pages: Report: nil report")
 	}
-	v := htmlView{R: r, Ranking: newRankingView(r), Method: newMethodView(r.Method), ITINote: itiNote(r.Designs)}
+	v := htmlView{R: r, Ranking: newRankingView(r), Method: newMethodView(r.Method), ITINote: itiNote(r.Designs), GradedNote: gradedNote(r.Designs)}
 	hypIndex := map[string]int{}
 	specs := map[string]models.Hypothesis{}
 	if r.StudyFile != nil {
@@ -486,6 +490,25 @@ func fmtITI(ms int) string {
 
 // itiNote names the designs' inter-trial intervals: "1 s in every
 // design", or each design's.
+// gradedNote lists the designs whose agent has precision_sd > 0, with
+// their σ ("lamp-behaviour (0.2) and lamp-behaviour-eeg (0.2)"), or
+// returns "" when there are none.
+func gradedNote(ds []recovery.DesignReport) string {
+	var parts []string
+	for _, d := range ds {
+		if d.PrecisionSD > 0 {
+			parts = append(parts, fmt.Sprintf("%s (%s)", d.Name, fmtG(d.PrecisionSD, 3)))
+		}
+	}
+	switch len(parts) {
+	case 0:
+		return ""
+	case 1:
+		return parts[0]
+	}
+	return strings.Join(parts[:len(parts)-1], ", ") + " and " + parts[len(parts)-1]
+}
+
 func itiNote(ds []recovery.DesignReport) string {
 	if len(ds) == 0 {
 		return "—"

@@ -532,6 +532,28 @@ func TestHTMLITIFromDesigns(t *testing.T) {
 	}
 }
 
+// TestHTMLGradedNote: the method notes state precision_sd and its cost
+// for the designs that have it, and say nothing of it when none does (the
+// deterministic agent's report is as before).
+func TestHTMLGradedNote(t *testing.T) {
+	r := htmlReport(true)
+	if m := sectionBody(t, renderHTML(t, r), "method"); strings.Contains(m, "Trial-to-trial variability") {
+		t.Errorf("deterministic designs: the method notes speak of trial-to-trial variability")
+	}
+	esc := func(s string) string { return strings.ReplaceAll(s, "+", "&#43;") } // as html/template writes it
+	r.Designs[1].PrecisionSD = 0.2
+	m := sectionBody(t, renderHTML(t, r), "method")
+	for _, want := range []string{"<b>Trial-to-trial variability of precision.</b> In " + esc(r.Designs[1].Name) + " (0.2)", "about 50 times a deterministic one", "Ratcliff &amp; Tuerlinckx 2002"} {
+		if !strings.Contains(m, want) {
+			t.Errorf("method notes lack %q", want)
+		}
+	}
+	r.Designs[0].PrecisionSD = 0.15
+	if m := sectionBody(t, renderHTML(t, r), "method"); !strings.Contains(m, "In "+esc(r.Designs[0].Name)+" (0.15) and "+esc(r.Designs[1].Name)+" (0.2)") {
+		t.Errorf("method notes do not list both designs with their precision_sd")
+	}
+}
+
 func TestReportNilPanics(t *testing.T) {
 	defer func() {
 		if r := recover(); r == nil || !strings.HasPrefix(fmt.Sprint(r), "pages: Report") {

@@ -91,22 +91,26 @@ type Timing struct {
 
 // DesignReport summarises one design.
 type DesignReport struct {
-	Name                  string                        `json:"name"`
-	Measures              []string                      `json:"measures"`
-	Participants          int                           `json:"participants"`
-	TrialsPerParticipant  int                           `json:"trials_per_participant"`
-	MinutesPerParticipant float64                       `json:"minutes_per_participant"`
-	ITIms                 int                           `json:"iti_ms"`
-	Criteria              map[Criterion]CriterionReport `json:"criteria"`
-	ParamRecovery         []ParamRecoveryReport         `json:"parameter_recovery"`
-	Tradeoffs             []TradeoffReport              `json:"tradeoffs"`
-	Mimicry               []MimicryReport               `json:"mimicry"`
-	FitFailures           FitFailures                   `json:"fit_failures"`
-	Surrogate             []SurrogateError              `json:"surrogate_error"`
-	Predictions           []models.HypothesisPrediction `json:"predictions"`
-	Verdict               []string                      `json:"verdict"`
-	Group                 *GroupReport                  `json:"group,omitempty"`
-	Recovery              []RecoveryPoints              `json:"recovery_points"`
+	Name                  string   `json:"name"`
+	Measures              []string `json:"measures"`
+	Participants          int      `json:"participants"`
+	TrialsPerParticipant  int      `json:"trials_per_participant"`
+	MinutesPerParticipant float64  `json:"minutes_per_participant"`
+	ITIms                 int      `json:"iti_ms"`
+	// PrecisionSD is the design's agent.precision_sd (model.md §3b): with
+	// it above 0 every prediction is an expectation over trials whose
+	// precision course is shifted by N(0, PrecisionSD²). Omitted when 0.
+	PrecisionSD   float64                       `json:"precision_sd,omitempty"`
+	Criteria      map[Criterion]CriterionReport `json:"criteria"`
+	ParamRecovery []ParamRecoveryReport         `json:"parameter_recovery"`
+	Tradeoffs     []TradeoffReport              `json:"tradeoffs"`
+	Mimicry       []MimicryReport               `json:"mimicry"`
+	FitFailures   FitFailures                   `json:"fit_failures"`
+	Surrogate     []SurrogateError              `json:"surrogate_error"`
+	Predictions   []models.HypothesisPrediction `json:"predictions"`
+	Verdict       []string                      `json:"verdict"`
+	Group         *GroupReport                  `json:"group,omitempty"`
+	Recovery      []RecoveryPoints              `json:"recovery_points"`
 }
 
 // CriterionReport is the confusion analysis under one criterion.
@@ -271,6 +275,7 @@ func (c *Compiled) designReport(di int, parts [][]ParticipantResult) DesignRepor
 		TrialsPerParticipant:  d.TrialsPerCTI * len(d.CTIms),
 		MinutesPerParticipant: minutesPerParticipant(d),
 		ITIms:                 d.ITIms,
+		PrecisionSD:           d.Agent.PrecisionSD,
 		Criteria:              map[Criterion]CriterionReport{},
 		Surrogate:             c.Surrogate[di],
 		Predictions:           c.Predictions[di],
