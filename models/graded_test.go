@@ -340,3 +340,15 @@ func TestGradedDeterministicBits(t *testing.T) {
 		t.Errorf("fresh and used workspaces differ: %s", bad)
 	}
 }
+
+// TestCensoredLabel: the deterministic agent's labels are as before; shares
+// strictly between 0 and 1 are printed.
+func TestCensoredLabel(t *testing.T) {
+	cs := CensoredReadouts{Valid: []float64{0, 1, 0, 0.123, 0, 0.002}, Invalid: []float64{0, 1, 1, 0.4, 0.9999, 0}}
+	want := []string{"-", "both", "invalid", "valid 0.12, invalid 0.40", "invalid >0.99", "valid <0.01"}
+	for c, w := range want {
+		if got := cs.Label(c, "-"); got != w {
+			t.Errorf("CTI %d: label %q, want %q", c, got, w)
+		}
+	}
+}
