@@ -6,6 +6,7 @@ package models
 // expectation over δ, written in u = Φ(δ/σ) ∈ (0, 1).
 
 import (
+	"math"
 	"slices"
 
 	"gonum.org/v1/gonum/integrate/quad"
@@ -18,6 +19,9 @@ const (
 	scanInterior = 16   // interior scan points (j − 0.5)/16, j = 1..16
 	changeTol    = 1e-8 // a change of outcome is located to this width in u
 	glPoints     = 6    // Gauss–Legendre points per piece
+	// neuralQuantum is the resolution of graded neural bins (gain units),
+	// far above rounding noise and far below any signal a fit could see.
+	neuralQuantum = 1e-12
 )
 
 // scanU are the scan points of model.md §3b step 2, ascending.
@@ -302,6 +306,15 @@ func (l *Listener) predictGraded(p Precision, dst *Prediction, ws *Workspace) {
 				l.addNode(ws, dst, i, u, (b-a)*glWeights[k])
 			}
 			a = b
+		}
+	}
+	// E[e_b] is a sum over nodes, each carrying rounding noise of about
+	// 1e-16 that differs from bin to bin; on a flat signal (a constant
+	// precision) a profiled eeg_gain would scale that noise up and fit the
+	// data's own noise with it. Bins are kept to neuralQuantum.
+	for c := range dst.Neural {
+		for b, v := range dst.Neural[c] {
+			dst.Neural[c][b] = math.Round(v/neuralQuantum) * neuralQuantum
 		}
 	}
 	for c := range l.nOn {
