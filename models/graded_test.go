@@ -1,9 +1,11 @@
 package models
 
 import (
+	"encoding/json"
 	"fmt"
 	"math"
 	"os"
+	"strings"
 	"testing"
 
 	"gonum.org/v1/gonum/floats/scalar"
@@ -350,5 +352,40 @@ func TestCensoredLabel(t *testing.T) {
 		if got := cs.Label(c, "-"); got != w {
 			t.Errorf("CTI %d: label %q, want %q", c, got, w)
 		}
+	}
+}
+
+// TestPrecisionSDEcho: an echoed study file omits precision_sd at its
+// default 0 (so deterministic reports are unchanged) and keeps it above 0;
+// the field passes the schema and validation in a study file.
+func TestPrecisionSDEcho(t *testing.T) {
+	for _, c := range []struct {
+		sd   float64
+		want bool
+	}{{0, false}, {0.2, true}} {
+		b, err := json.Marshal(Agent{PrecisionSD: c.sd})
+		if err != nil {
+			t.Fatal(err)
+		}
+		if got := strings.Contains(string(b), `"precision_sd"`); got != c.want {
+			t.Errorf("precision_sd %g: echoed %s", c.sd, b)
+		}
+	}
+	data, err := os.ReadFile("../testdata/studies/radio-watch-graded.json")
+	if err != nil {
+		t.Fatal(err)
+	}
+	s, err := LoadStudy(data)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, d := range s.Designs {
+		if d.Agent.PrecisionSD != 0.2 {
+			t.Errorf("%s: precision_sd %g, want 0.2", d.Name, d.Agent.PrecisionSD)
+		}
+	}
+	bad := strings.Replace(string(data), `"precision_sd": 0.2`, `"precision_sd": -0.2`, 1)
+	if _, err := LoadStudy([]byte(bad)); err == nil || !strings.Contains(err.Error(), "designs[0].agent.precision_sd") {
+		t.Errorf("precision_sd -0.2: error %v, want one naming designs[0].agent.precision_sd", err)
 	}
 }
