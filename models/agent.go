@@ -337,6 +337,39 @@ func softStep(v, s, target []float64, invKappa float64) {
 	}
 }
 
+// softStepItems is softStep on the item factor. Items shown..V−1 are on no
+// stream (setItems shows items 0..L−1), so their targets and beliefs are
+// equal bit for bit and their exponential is computed once; the result is
+// softStep's, bit for bit.
+func softStepItems(v, s, target []float64, shown int, invKappa float64) {
+	keep := 1 - invKappa
+	m := math.Inf(-1)
+	for i := range v {
+		x := keep*v[i] + invKappa*target[i]
+		v[i] = x
+		if x > m {
+			m = x
+		}
+	}
+	sum := 0.0
+	for i := 0; i < shown; i++ {
+		e := math.Exp(v[i] - m)
+		s[i] = e
+		sum += e
+	}
+	if shown < len(v) {
+		e := math.Exp(v[shown] - m)
+		for i := shown; i < len(v); i++ {
+			s[i] = e
+			sum += e
+		}
+	}
+	inv := 1 / sum
+	for i := range s {
+		s[i] *= inv
+	}
+}
+
 // softmaxInto sets s = softmax(v) by the same operations as softStep's
 // second half, so that s matches the one softStep would leave bit for bit.
 func softmaxInto(v, s []float64) {
@@ -648,11 +681,11 @@ func (l *Listener) iterate(ws *Workspace, st *state, prior []float64, cue, items
 		for x := range tx {
 			tx[x] += st.ex[x]
 		}
-		softStep(st.vx, st.sx, tx, l.invKappa)
+		softStepItems(st.vx, st.sx, tx, l.L, l.invKappa)
 	} else if !allZero(st.ex) {
 		tx := ws.tgt[:l.V]
 		copy(tx, st.ex)
-		softStep(st.vx, st.sx, tx, l.invKappa)
+		softStepItems(st.vx, st.sx, tx, l.L, l.invKappa)
 	}
 	// With E_x = 0 and no items the target of x is uniform and v_x already
 	// is ln(1/V): the step would leave it unchanged, so it is skipped.
@@ -728,7 +761,7 @@ func (l *Listener) respond(ws *Workspace, st *state, on int) trialResult {
 			case !xOnly:
 				l.iterate(ws, st, prior, cue, items)
 			case !still:
-				softStep(st.vx, st.sx, st.ex, l.invKappa)
+				softStepItems(st.vx, st.sx, st.ex, l.L, l.invKappa)
 			}
 			m := maxOf(st.sx)
 			if m >= l.crit && prevMax < l.crit {
