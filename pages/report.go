@@ -96,14 +96,14 @@ type htmlView struct {
 	HasGroup   bool
 	// ITINote names each design's inter-trial interval for the notes on
 	// testing minutes.
-	ITINote string
+	ITINote  string
+	Sections []sectionLink
+	Timing   string
+	Method   methodView
 	// GradedNote names the designs with trial-to-trial variability of
-	// precision and what it costs; empty when every design is
+	// precision, with their precision_sd; empty when every design is
 	// deterministic.
 	GradedNote string
-	Sections   []sectionLink
-	Timing     string
-	Method     methodView
 }
 
 // methodView holds the method constants the notes quote, formatted from

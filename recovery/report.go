@@ -91,26 +91,23 @@ type Timing struct {
 
 // DesignReport summarises one design.
 type DesignReport struct {
-	Name                  string   `json:"name"`
-	Measures              []string `json:"measures"`
-	Participants          int      `json:"participants"`
-	TrialsPerParticipant  int      `json:"trials_per_participant"`
-	MinutesPerParticipant float64  `json:"minutes_per_participant"`
-	ITIms                 int      `json:"iti_ms"`
-	// PrecisionSD is the design's agent.precision_sd (model.md §3b): with
-	// it above 0 every prediction is an expectation over trials whose
-	// precision course is shifted by N(0, PrecisionSD²). Omitted when 0.
-	PrecisionSD   float64                       `json:"precision_sd,omitempty"`
-	Criteria      map[Criterion]CriterionReport `json:"criteria"`
-	ParamRecovery []ParamRecoveryReport         `json:"parameter_recovery"`
-	Tradeoffs     []TradeoffReport              `json:"tradeoffs"`
-	Mimicry       []MimicryReport               `json:"mimicry"`
-	FitFailures   FitFailures                   `json:"fit_failures"`
-	Surrogate     []SurrogateError              `json:"surrogate_error"`
-	Predictions   []models.HypothesisPrediction `json:"predictions"`
-	Verdict       []string                      `json:"verdict"`
-	Group         *GroupReport                  `json:"group,omitempty"`
-	Recovery      []RecoveryPoints              `json:"recovery_points"`
+	Name                  string                        `json:"name"`
+	Measures              []string                      `json:"measures"`
+	Participants          int                           `json:"participants"`
+	TrialsPerParticipant  int                           `json:"trials_per_participant"`
+	MinutesPerParticipant float64                       `json:"minutes_per_participant"`
+	ITIms                 int                           `json:"iti_ms"`
+	Criteria              map[Criterion]CriterionReport `json:"criteria"`
+	ParamRecovery         []ParamRecoveryReport         `json:"parameter_recovery"`
+	Tradeoffs             []TradeoffReport              `json:"tradeoffs"`
+	Mimicry               []MimicryReport               `json:"mimicry"`
+	FitFailures           FitFailures                   `json:"fit_failures"`
+	Surrogate             []SurrogateError              `json:"surrogate_error"`
+	Predictions           []models.HypothesisPrediction `json:"predictions"`
+	Verdict               []string                      `json:"verdict"`
+	Group                 *GroupReport                  `json:"group,omitempty"`
+	Recovery              []RecoveryPoints              `json:"recovery_points"`
+	PrecisionSD           float64                       `json:"precision_sd,omitempty"` // agent.precision_sd (model.md §3b); omitted when 0
 }
 
 // CriterionReport is the confusion analysis under one criterion.
