@@ -41,6 +41,16 @@ type Listener struct {
 	deltaMs   float64
 	binMs     int
 	binIters  int
+
+	// sigma is agent.precision_sd (model.md §3b): 0 for the deterministic
+	// agent; gainLo and gainHi clip each trial's shifted precision course.
+	sigma, gainLo, gainHi float64
+	// dfSnaps[c] is the agent's state at target onset of CTI c apart from
+	// the gain factor. Before target onset no factor reads the gain
+	// beliefs (the items carry the only coupling to g), so d, f, x and the
+	// accumulated evidence follow one course for every hypothesis: it is
+	// run once here, and Predict runs only the gain factor up to onset.
+	dfSnaps []state
 }
 
 // NewListener compiles the agent for design d (defaults filled, valid).
@@ -116,8 +126,49 @@ func NewListener(d *Design) (*Listener, error) {
 	l.mkOther = 2*flog(1-mu) + (L-2)*flog(mu)
 	sp := (a.GainMax - a.GainMin) / float64(l.G-1)
 	l.inv2s2 = 1 / (2 * sp * sp)
+	if !(a.PrecisionSD >= 0) || math.IsInf(a.PrecisionSD, 0) {
+		return nil, fmt.Errorf("models: design %q: agent.precision_sd must be >= 0, got %g", d.Name, a.PrecisionSD)
+	}
+	l.sigma, l.gainLo, l.gainHi = a.PrecisionSD, a.GainMin, a.GainMax
+	l.prepareDF()
 	return l, nil
 }
+
+// prepareDF runs the preparatory epochs once for the factors that do not
+// depend on the hypothesis (d, f, x and their evidence) and keeps their
+// state at each target onset in dfSnaps. The gain factor is run too, under
+// a flat prior, only because iterate updates every factor; Predict
+// replaces it.
+func (l *Listener) prepareDF() {
+	ws := l.NewWorkspace()
+	flat := make([]float64, l.G)
+	st := &ws.cur
+	l.initState(st, flat)
+	l.dfSnaps = make([]state, len(l.nOn))
+	for c := range l.dfSnaps {
+		l.dfSnaps[c] = newState(l)
+	}
+	snapAt := func(tau int) {
+		for c, on := range l.nOn {
+			if on == tau {
+				l.dfSnaps[c].copyFrom(st)
+			}
+		}
+	}
+	for tau := 0; tau < l.maxOn; tau++ {
+		snapAt(tau)
+		cue := l.cueEpochs == 0 || tau < l.cueEpochs
+		for k := 0; k < l.K; k++ {
+			l.iterate(ws, st, flat, cue, false)
+		}
+		l.accumulate(ws, st, cue, false)
+	}
+	snapAt(l.maxOn)
+}
+
+// PrecisionSD is the trial-to-trial standard deviation of precision this
+// listener was compiled with (agent.precision_sd; 0 = deterministic).
+func (l *Listener) PrecisionSD() float64 { return l.sigma }
 
 // Prediction holds the exact predictions of one hypothesis at one
 // parameter point for one design (model.md §3 readouts).
@@ -136,7 +187,10 @@ type ClassPrediction struct {
 	RTms        []float64 // ms from target onset to the criterion crossing
 	Accuracy    []float64 // P(report the target item)
 	Misdirected []float64 // P(report the cued stream's item); 0 on valid trials
-	Censored    []bool    // criterion not reached inside the response window
+	// Censored is the share of trials whose criterion is not reached inside
+	// the response window: 0 or 1 for the deterministic agent, the
+	// expectation over trials with precision_sd > 0 (model.md §3b).
+	Censored []float64
 }
 
 // state is every belief the agent carries between iterations.
@@ -171,28 +225,64 @@ func (s *state) copyFrom(o *state) {
 // Workspace is the scratch memory of one Predict call; reuse it across
 // calls in one goroutine to avoid allocation.
 type Workspace struct {
-	l          *Listener
-	cur, br    state
-	snaps      []state
-	lnPrior    []float64 // epochs × G
-	prepE      []float64
-	tgt        []float64
-	prevSx     []float64
-	itemOn     []int // item shown on stream l
-	streamOf   []int // stream showing item x, or −1
-	choice     []float64
-	preparedTo int
+	l        *Listener
+	cur, br  state
+	gsnapV   [][]float64 // gain beliefs v_g, s_g at each target onset
+	gsnapS   [][]float64
+	gamma    []float64 // γ(t_τ) of the current run, per epoch
+	lnPrior  []float64 // epochs × G, filled on first use in a run
+	priorRun []uint32  // run number that filled lnPrior's epoch τ
+	run      uint32
+	prepE    []float64
+	e0       float64 // the neural baseline of the current run
+	tgt      []float64
+	prevSx   []float64
+	itemOn   []int // item shown on stream l
+	streamOf []int // stream showing item x, or −1
+	choice   []float64
+	res      []trialResult // per CTI × class of the current run
+	graded   *gradedScratch
+}
+
+// trialResult is one deterministic trial's readouts and its outcome
+// (model.md §3b step 1).
+type trialResult struct {
+	rt, acc, mis float64
+	censored     bool
+	// category of the most probable item at response (ties to the lowest
+	// item index): reportTarget, reportCued or reportOther.
+	category int8
+}
+
+const (
+	reportTarget int8 = iota
+	reportCued
+	reportOther
+)
+
+// outcome codes category and censoring into one comparable value.
+func (r trialResult) outcome() int8 {
+	o := 2 * r.category
+	if r.censored {
+		o++
+	}
+	return o
 }
 
 // NewWorkspace allocates scratch memory for Predict.
 func (l *Listener) NewWorkspace() *Workspace {
 	w := &Workspace{l: l, cur: newState(l), br: newState(l)}
-	w.snaps = make([]state, len(l.nOn))
-	for i := range w.snaps {
-		w.snaps[i] = newState(l)
+	w.gsnapV = make([][]float64, len(l.nOn))
+	w.gsnapS = make([][]float64, len(l.nOn))
+	for i := range w.gsnapV {
+		w.gsnapV[i] = make([]float64, l.G)
+		w.gsnapS[i] = make([]float64, l.G)
 	}
 	epochs := l.maxOn + l.window
+	w.gamma = make([]float64, epochs)
 	w.lnPrior = make([]float64, epochs*l.G)
+	w.priorRun = make([]uint32, epochs)
+	w.res = make([]trialResult, 2*len(l.nOn))
 	w.prepE = make([]float64, l.maxOn*l.K)
 	w.tgt = make([]float64, max(l.L, l.V, l.G))
 	w.prevSx = make([]float64, l.V)
@@ -206,7 +296,7 @@ func (l *Listener) NewWorkspace() *Workspace {
 func (l *Listener) NewPrediction() *Prediction {
 	n := len(l.nOn)
 	cp := func() ClassPrediction {
-		return ClassPrediction{RTms: make([]float64, n), Accuracy: make([]float64, n), Misdirected: make([]float64, n), Censored: make([]bool, n)}
+		return ClassPrediction{RTms: make([]float64, n), Accuracy: make([]float64, n), Misdirected: make([]float64, n), Censored: make([]float64, n)}
 	}
 	p := &Prediction{CTIms: append([]int(nil), l.ctiMs...), Valid: cp(), Invalid: cp(), BinMs: l.binMs, Neural: make([][]float64, n)}
 	for c, on := range l.nOn {
@@ -231,6 +321,60 @@ func softStep(v, s, target []float64, invKappa float64) {
 	for i := range v {
 		x := keep*v[i] + invKappa*target[i]
 		v[i] = x
+		if x > m {
+			m = x
+		}
+	}
+	sum := 0.0
+	for i, x := range v {
+		e := math.Exp(x - m)
+		s[i] = e
+		sum += e
+	}
+	inv := 1 / sum
+	for i := range s {
+		s[i] *= inv
+	}
+}
+
+// softStepItems is softStep on the item factor. Items shown..V−1 are on no
+// stream (setItems shows items 0..L−1), so their targets and beliefs are
+// equal bit for bit and their exponential is computed once; the result is
+// softStep's, bit for bit.
+func softStepItems(v, s, target []float64, shown int, invKappa float64) {
+	keep := 1 - invKappa
+	m := math.Inf(-1)
+	for i := range v {
+		x := keep*v[i] + invKappa*target[i]
+		v[i] = x
+		if x > m {
+			m = x
+		}
+	}
+	sum := 0.0
+	for i := 0; i < shown; i++ {
+		e := math.Exp(v[i] - m)
+		s[i] = e
+		sum += e
+	}
+	if shown < len(v) {
+		e := math.Exp(v[shown] - m)
+		for i := shown; i < len(v); i++ {
+			s[i] = e
+			sum += e
+		}
+	}
+	inv := 1 / sum
+	for i := range s {
+		s[i] *= inv
+	}
+}
+
+// softmaxInto sets s = softmax(v) by the same operations as softStep's
+// second half, so that s matches the one softStep would leave bit for bit.
+func softmaxInto(v, s []float64) {
+	m := math.Inf(-1)
+	for _, x := range v {
 		if x > m {
 			m = x
 		}
@@ -277,7 +421,8 @@ func (l *Listener) gainPrior(dst []float64, gamma float64) {
 // Predict computes the exact predictions of precision course p into dst
 // (from NewPrediction), using ws (from NewWorkspace; nil allocates one).
 // The preparatory part is run once to the longest CTI and branched at each
-// target onset into a valid and an invalid trial.
+// target onset into a valid and an invalid trial. With precision_sd > 0 the
+// predictions are expectations over trials (model.md §3b, predictGraded).
 func (l *Listener) Predict(p Precision, dst *Prediction, ws *Workspace) {
 	if ws == nil {
 		ws = l.NewWorkspace()
@@ -285,59 +430,123 @@ func (l *Listener) Predict(p Precision, dst *Prediction, ws *Workspace) {
 	if ws.l != l {
 		panic("models: workspace belongs to another listener")
 	}
-	G := l.G
-	epochs := l.maxOn + l.window
-	for tau := 0; tau < epochs; tau++ {
-		l.gainPrior(ws.lnPrior[tau*G:(tau+1)*G], p.At(float64(tau)*l.deltaMs/1000))
+	if l.sigma > 0 {
+		l.predictGraded(p, dst, ws)
+		return
 	}
-	st := &ws.cur
-	l.initState(st, ws.lnPrior[:G])
-	e0 := dot(l.gains, st.sg)
-
-	// Preparatory epochs, common to every CTI and trial class.
-	snapAt := func(tau int) {
-		for c, on := range l.nOn {
-			if on == tau {
-				ws.snaps[c].copyFrom(st)
-			}
-		}
+	for tau := range ws.gamma {
+		ws.gamma[tau] = p.At(float64(tau) * l.deltaMs / 1000)
 	}
-	for tau := 0; tau < l.maxOn; tau++ {
-		snapAt(tau)
-		cue := l.cueEpochs == 0 || tau < l.cueEpochs
-		prior := ws.lnPrior[tau*G : (tau+1)*G]
-		for k := 0; k < l.K; k++ {
-			l.iterate(ws, st, prior, cue, false)
-			ws.prepE[tau*l.K+k] = dot(l.gains, st.sg)
-		}
-		l.accumulate(ws, st, cue, false)
-	}
-	snapAt(l.maxOn)
-
-	for c, on := range l.nOn {
-		bins := dst.Neural[c]
-		for b := range bins {
-			s := 0.0
-			for i := b * l.binIters; i < (b+1)*l.binIters; i++ {
-				s += ws.prepE[i]
-			}
-			bins[b] = s/float64(l.binIters) - e0
-		}
+	l.runTrials(ws, l.maxOn, nil, true)
+	for c := range l.nOn {
+		l.neuralInto(ws, c, dst.Neural[c])
 		for class := 0; class < 2; class++ {
-			ws.br.copyFrom(&ws.snaps[c])
-			l.setItems(ws, class == 1)
-			rt, acc, mis, cens := l.respond(ws, &ws.br, on)
+			r := ws.res[2*c+class]
 			cp := &dst.Valid
 			if class == 1 {
 				cp = &dst.Invalid
 			}
-			cp.RTms[c], cp.Accuracy[c], cp.Censored[c] = rt, acc, cens
-			if class == 1 {
-				cp.Misdirected[c] = mis
-			} else {
-				cp.Misdirected[c] = 0
+			cp.RTms[c], cp.Accuracy[c], cp.Misdirected[c] = r.rt, r.acc, r.mis
+			cp.Censored[c] = 0
+			if r.censored {
+				cp.Censored[c] = 1
 			}
 		}
+	}
+}
+
+// prior returns ln P_τ(g) of the current run, computing it from ws.gamma
+// on first use.
+func (l *Listener) prior(ws *Workspace, tau int) []float64 {
+	G := l.G
+	dst := ws.lnPrior[tau*G : (tau+1)*G]
+	if ws.priorRun[tau] != ws.run {
+		l.gainPrior(dst, ws.gamma[tau])
+		ws.priorRun[tau] = ws.run
+	}
+	return dst
+}
+
+// runTrials runs one deterministic trial course under the precision in
+// ws.gamma: the gain factor through the preparatory epochs up to epoch
+// upto (the other factors come from dfSnaps), then, at each target onset
+// up to upto, a valid and an invalid trial for every CTI × class index i
+// with need == nil or need[i], into ws.res[i]. With neural set the
+// expected precision of every preparatory iteration is kept in ws.prepE
+// (neuralInto reads it); without, the gain beliefs s_g are computed only
+// at target onsets: v_g's update does not read them.
+func (l *Listener) runTrials(ws *Workspace, upto int, need []bool, neural bool) {
+	ws.run++
+	if ws.run == 0 { // wrapped: forget every cached prior
+		clear(ws.priorRun)
+		ws.run = 1
+	}
+	vg, sg := ws.cur.vg, ws.cur.sg
+	// The gain beliefs start at P_0 (initState's renormalised prior).
+	prior0 := l.prior(ws, 0)
+	z := logSumExp(prior0)
+	for g := range vg {
+		vg[g] = prior0[g] - z
+		sg[g] = math.Exp(vg[g])
+	}
+	ws.e0 = dot(l.gains, sg)
+	snapAt := func(tau int) {
+		for c, on := range l.nOn {
+			if on == tau {
+				copy(ws.gsnapV[c], vg)
+				if !neural && tau > 0 {
+					softmaxInto(vg, sg)
+				}
+				copy(ws.gsnapS[c], sg)
+			}
+		}
+	}
+	// Preparatory epochs: with no items the gain factor's target is its
+	// prior alone (model.md §3), so only its step runs.
+	keep := 1 - l.invKappa
+	for tau := 0; tau < upto; tau++ {
+		snapAt(tau)
+		prior := l.prior(ws, tau)
+		if !neural {
+			for range l.K {
+				for g, p := range prior {
+					vg[g] = keep*vg[g] + l.invKappa*p
+				}
+			}
+			continue
+		}
+		for k := 0; k < l.K; k++ {
+			softStep(vg, sg, prior, l.invKappa)
+			ws.prepE[tau*l.K+k] = dot(l.gains, sg)
+		}
+	}
+	snapAt(upto)
+	for c, on := range l.nOn {
+		if on > upto {
+			continue
+		}
+		for class := 0; class < 2; class++ {
+			i := 2*c + class
+			if need != nil && !need[i] {
+				continue
+			}
+			ws.br.copyFrom(&l.dfSnaps[c])
+			copy(ws.br.vg, ws.gsnapV[c])
+			copy(ws.br.sg, ws.gsnapS[c])
+			l.setItems(ws, class == 1)
+			ws.res[i] = l.respond(ws, &ws.br, on)
+		}
+	}
+}
+
+// neuralInto writes the neural bins of CTI c of the current run into bins.
+func (l *Listener) neuralInto(ws *Workspace, c int, bins []float64) {
+	for b := range bins {
+		s := 0.0
+		for i := b * l.binIters; i < (b+1)*l.binIters; i++ {
+			s += ws.prepE[i]
+		}
+		bins[b] = s/float64(l.binIters) - ws.e0
 	}
 }
 
@@ -472,11 +681,11 @@ func (l *Listener) iterate(ws *Workspace, st *state, prior []float64, cue, items
 		for x := range tx {
 			tx[x] += st.ex[x]
 		}
-		softStep(st.vx, st.sx, tx, l.invKappa)
+		softStepItems(st.vx, st.sx, tx, l.L, l.invKappa)
 	} else if !allZero(st.ex) {
 		tx := ws.tgt[:l.V]
 		copy(tx, st.ex)
-		softStep(st.vx, st.sx, tx, l.invKappa)
+		softStepItems(st.vx, st.sx, tx, l.L, l.invKappa)
 	}
 	// With E_x = 0 and no items the target of x is uniform and v_x already
 	// is ln(1/V): the step would leave it unchanged, so it is skipped.
@@ -528,38 +737,75 @@ func (l *Listener) accumulate(ws *Workspace, st *state, cue, items bool) {
 
 // respond runs the response window from target onset (epoch on) until the
 // posterior max_x s_x crosses the criterion, returning the RT in ms, the
-// probabilities of reporting the target and the cued stream's item, and
-// whether the RT was censored at the window's end.
-func (l *Listener) respond(ws *Workspace, st *state, on int) (rt, acc, mis float64, censored bool) {
-	G := l.G
+// probabilities of reporting the target and the cued stream's item,
+// whether the RT was censored at the window's end, and the category of the
+// most probable item at response.
+func (l *Listener) respond(ws *Workspace, st *state, on int) trialResult {
 	prevMax := maxOf(st.sx)
 	copy(ws.prevSx, st.sx)
 	for tau := on; tau < on+l.window; tau++ {
 		items := tau-on < l.present
 		cue := l.cueEpochs > 0 && tau < l.cueEpochs
-		prior := ws.lnPrior[tau*G : (tau+1)*G]
+		// Once neither items nor the cue are shown, the item beliefs move
+		// towards their accumulated evidence alone (iterate's x step reads
+		// nothing else), and no readout reads d, f or g: only x is run, as
+		// iterate would run it, and there is nothing to accumulate.
+		xOnly := !items && !cue
+		var prior []float64
+		if !xOnly {
+			prior = l.prior(ws, tau)
+		}
+		still := xOnly && allZero(st.ex)
 		for k := 0; k < l.K; k++ {
-			l.iterate(ws, st, prior, cue, items)
+			switch {
+			case !xOnly:
+				l.iterate(ws, st, prior, cue, items)
+			case !still:
+				softStepItems(st.vx, st.sx, st.ex, l.L, l.invKappa)
+			}
 			m := maxOf(st.sx)
 			if m >= l.crit && prevMax < l.crit {
 				// i* = i − 1 + (criterion − m_{i−1})/(m_i − m_{i−1})
 				frac := (l.crit - prevMax) / (m - prevMax)
 				i := float64((tau-on)*l.K + k)
-				rt = (i + frac) * l.deltaMs / float64(l.K)
+				rt := (i + frac) * l.deltaMs / float64(l.K)
 				for x := range ws.choice {
 					ws.choice[x] = ws.prevSx[x] + frac*(st.sx[x]-ws.prevSx[x])
 				}
-				acc, mis = l.choose(ws.choice, ws.itemOn[0])
-				return rt, acc, mis, false
+				cat := l.category(ws)
+				acc, mis := l.choose(ws.choice, ws.itemOn[0])
+				return trialResult{rt: rt, acc: acc, mis: mis, category: cat}
 			}
 			prevMax = m
 			copy(ws.prevSx, st.sx)
 		}
-		l.accumulate(ws, st, cue, items)
+		if !xOnly {
+			l.accumulate(ws, st, cue, items)
+		}
 	}
 	copy(ws.choice, st.sx)
-	acc, mis = l.choose(ws.choice, ws.itemOn[0])
-	return float64(l.window) * l.deltaMs, acc, mis, true
+	cat := l.category(ws)
+	acc, mis := l.choose(ws.choice, ws.itemOn[0])
+	return trialResult{rt: float64(l.window) * l.deltaMs, acc: acc, mis: mis, censored: true, category: cat}
+}
+
+// category classifies the most probable item of ws.choice (ties to the
+// lowest item index): the target (item 0), the cued stream's item on an
+// invalid trial, or another item.
+func (l *Listener) category(ws *Workspace) int8 {
+	best := 0
+	for x, v := range ws.choice {
+		if v > ws.choice[best] {
+			best = x
+		}
+	}
+	switch {
+	case best == 0:
+		return reportTarget
+	case best == ws.itemOn[0]:
+		return reportCued
+	}
+	return reportOther
 }
 
 // choose returns P(report target) and P(report the cued stream's item)

@@ -88,7 +88,7 @@ func TestDemoQualitativeFacts(t *testing.T) {
 						t.Errorf("%s/%s CTI %d: RT %.1f ms outside [30, 900]", d.Name, p.Name, p.CTIms[c], rt)
 					}
 				}
-				if p.Censored.Valid[c] || p.Censored.Invalid[c] {
+				if p.Censored.Valid[c] != 0 || p.Censored.Invalid[c] != 0 {
 					t.Errorf("%s/%s CTI %d: censored at reference values", d.Name, p.Name, p.CTIms[c])
 				}
 				if c > 0 && monotone[p.Family] && p.Valid.RTms[c] > p.Valid.RTms[c-1]+1e-9 {

@@ -1,6 +1,10 @@
 package models
 
-import "testing"
+import (
+	"os"
+	"testing"
+	"time"
+)
 
 // BenchmarkPredict measures one hypothesis's full prediction set (every
 // CTI, both trial classes, the neural signal) on the default design.
@@ -28,4 +32,64 @@ func BenchmarkPredict(b *testing.B) {
 			}
 		})
 	}
+}
+
+// BenchmarkPredictGraded measures a prediction set (every CTI, both trial
+// classes, the neural signal) of each of the demo's six hypotheses at their
+// reference values on the demo's lamp-behaviour design, with
+// precision_sd = 0 and 0.2 (model.md §3b), and reports the cost of the
+// graded set as a multiple of the deterministic one ("ratio").
+func BenchmarkPredictGraded(b *testing.B) {
+	s, err := LoadStudy(demoStudyBytes(b))
+	if err != nil {
+		b.Fatal(err)
+	}
+	d := s.Designs[0]
+	var precs []Precision
+	for _, h := range s.Hypotheses {
+		p, err := NewPrecision(h, &d, h.ReferenceValues())
+		if err != nil {
+			b.Fatal(err)
+		}
+		precs = append(precs, p)
+	}
+	type set struct {
+		l  *Listener
+		ws *Workspace
+		pr *Prediction
+		ns time.Duration
+	}
+	mk := func(sd float64) *set {
+		dd := d
+		dd.Agent.PrecisionSD = sd
+		l, err := NewListener(&dd)
+		if err != nil {
+			b.Fatal(err)
+		}
+		return &set{l: l, ws: l.NewWorkspace(), pr: l.NewPrediction()}
+	}
+	det, gr := mk(0), mk(0.2)
+	n := 0
+	for b.Loop() {
+		for _, st := range []*set{det, gr} {
+			t0 := time.Now()
+			for _, p := range precs {
+				st.l.Predict(p, st.pr, st.ws)
+			}
+			st.ns += time.Since(t0)
+		}
+		n += len(precs)
+	}
+	b.ReportMetric(float64(det.ns.Nanoseconds())/float64(n), "ns/set-sd0")
+	b.ReportMetric(float64(gr.ns.Nanoseconds())/float64(n), "ns/set-sd0.2")
+	b.ReportMetric(float64(gr.ns)/float64(det.ns), "ratio")
+}
+
+// demoStudyBytes reads the demo study file of testdata.
+func demoStudyBytes(b *testing.B) []byte {
+	data, err := os.ReadFile("../testdata/studies/radio-watch.json")
+	if err != nil {
+		b.Fatal(err)
+	}
+	return data
 }

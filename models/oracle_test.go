@@ -574,7 +574,7 @@ func oracleMismatches(t *testing.T, d *Design, precs []Precision, opt oracleOpti
 					check("RT ms", cls.RTms[c], rt)
 					check("accuracy", cls.Accuracy[c], acc)
 					check("misdirected", cls.Misdirected[c], mis)
-					if cls.Censored[c] != cens {
+					if want := map[bool]float64{false: 0, true: 1}[cens]; cls.Censored[c] != want {
 						bad = append(bad, fmt.Sprintf("%s: censored = %v from Predict, oracle %v", where, cls.Censored[c], cens))
 					}
 					if len(pr.Neural[c]) != len(neural) {

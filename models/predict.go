@@ -3,6 +3,7 @@ package models
 import (
 	"fmt"
 	"sort"
+	"strings"
 )
 
 // HypothesisPrediction is one hypothesis's predictions in the shape that
@@ -31,10 +32,12 @@ type NeuralReadouts struct {
 	ByCTI [][]float64 `json:"by_cti"`
 }
 
-// CensoredReadouts flags, per CTI, predictions censored at the window's end.
+// CensoredReadouts is, per CTI, the share of trials censored at the
+// window's end: 0 or 1 for the deterministic agent, a share in [0, 1] with
+// agent.precision_sd > 0.
 type CensoredReadouts struct {
-	Valid   []bool `json:"valid"`
-	Invalid []bool `json:"invalid"`
+	Valid   []float64 `json:"valid"`
+	Invalid []float64 `json:"invalid"`
 }
 
 // ReferenceValues returns the free parameter values (ordered as
@@ -131,4 +134,46 @@ func contains(xs []string, x string) bool {
 		}
 	}
 	return false
+}
+
+// Label says which trial classes are censored at CTI index c: "both",
+// "valid", "invalid" or none when every share is 0 or 1 (the deterministic
+// agent); otherwise the shares above 0, as in "valid 0.12, invalid 0.40".
+func (cs CensoredReadouts) Label(c int, none string) string {
+	at := func(v []float64) float64 {
+		if c < len(v) {
+			return v[c]
+		}
+		return 0
+	}
+	v, inv := at(cs.Valid), at(cs.Invalid)
+	whole := func(x float64) bool { return x == 0 || x == 1 }
+	if whole(v) && whole(inv) {
+		switch {
+		case v == 1 && inv == 1:
+			return "both"
+		case v == 1:
+			return "valid"
+		case inv == 1:
+			return "invalid"
+		}
+		return none
+	}
+	share := func(x float64) string {
+		if x < 0.005 {
+			return "<0.01"
+		}
+		if x > 0.995 && x < 1 {
+			return ">0.99"
+		}
+		return fmt.Sprintf("%.2f", x)
+	}
+	var parts []string
+	if v > 0 {
+		parts = append(parts, "valid "+share(v))
+	}
+	if inv > 0 {
+		parts = append(parts, "invalid "+share(inv))
+	}
+	return strings.Join(parts, ", ")
 }

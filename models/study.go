@@ -147,6 +147,10 @@ type Agent struct {
 	TimeConstant       float64 `json:"time_constant"`
 	Criterion          float64 `json:"criterion"`
 	ChoiceTemperature  float64 `json:"choice_temperature"`
+	// PrecisionSD is σ of model.md §3b: each trial's precision course is
+	// shifted by δ ~ N(0, σ²) and clipped to [GainMin, GainMax]. Gain
+	// units; 0 (the default) is the deterministic agent.
+	PrecisionSD float64 `json:"precision_sd,omitempty"`
 }
 
 // Measurement holds the priors of the measurement parameters (model.md §4)

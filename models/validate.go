@@ -402,6 +402,9 @@ func agentProblems(c *checker, d *Design, streamsOK, itemsOK bool) {
 	if !(a.ChoiceTemperature > 0) || !finite(a.ChoiceTemperature) {
 		c.add("agent.choice_temperature", "choice_temperature must be > 0, got %s", g(a.ChoiceTemperature))
 	}
+	if !(a.PrecisionSD >= 0) || !finite(a.PrecisionSD) {
+		c.add("agent.precision_sd", "precision_sd must be >= 0 (gain units; 0 = no trial-to-trial variability), got %s", g(a.PrecisionSD))
+	}
 }
 
 // support is the set of values a measurement parameter may take.

@@ -226,6 +226,7 @@ func TestValidateProblems(t *testing.T) {
 		{"time constant", func(s *Study) { s.Designs[0].Agent.TimeConstant = 0.5 }, "designs[0].agent.time_constant", "time_constant must be >= 1, got 0.5"},
 		{"criterion one", func(s *Study) { s.Designs[0].Agent.Criterion = 1 }, "designs[0].agent.criterion", "criterion must be in (1/items, 1) = (0.125, 1), got 1"},
 		{"choice temperature", func(s *Study) { s.Designs[0].Agent.ChoiceTemperature = math.NaN() }, "designs[0].agent.choice_temperature", "choice_temperature must be > 0, got NaN"},
+		{"precision sd", func(s *Study) { s.Designs[0].Agent.PrecisionSD = -0.1 }, "designs[0].agent.precision_sd", "precision_sd must be >= 0 (gain units; 0 = no trial-to-trial variability), got -0.1"},
 		{"prior dist unknown", func(s *Study) { s.Designs[0].Measurement.RTBase = Prior{Dist: "gamma"} }, "designs[0].measurement.rt_base.dist", `rt_base dist must be one of fixed, normal, uniform, lognormal, got "gamma"`},
 		{"normal prior without sd", func(s *Study) { s.Designs[0].Measurement.RTBase = Prior{Dist: "normal", Mean: 250} }, "designs[0].measurement.rt_base", "rt_base: dist normal needs sd > 0, got 0"},
 		{"normal prior min above max", func(s *Study) {

@@ -40,6 +40,7 @@ type predictionsView struct {
 
 type predDesignView struct {
 	Name, Validity, CTIs, Measures, Criterion string
+	PrecisionSD                               string // "" when 0
 	Streams, Items, TrialsPerCTI              int
 	PresentationMs, ResponseWindowMs, EpochMs int
 	EEGBinMs                                  int
@@ -96,6 +97,9 @@ func Predictions(studyName string, d *models.Design, preds []models.HypothesisPr
 	if d.Agent.Criterion > 0 {
 		v.Design.Criterion = fmtG(d.Agent.Criterion, 3)
 	}
+	if d.Agent.PrecisionSD > 0 {
+		v.Design.PrecisionSD = fmtG(d.Agent.PrecisionSD, 3)
+	}
 	byOrder := func(i int, _ string) color.RGBA { return hypColour(i) }
 	for i, hp := range preds {
 		hv := predHypView{Name: hp.Name, Family: hp.Family, Colour: hexColour(hypColour(i))}
@@ -113,7 +117,7 @@ func Predictions(studyName string, d *models.Design, preds []models.HypothesisPr
 			row := predRow{Hypothesis: hp.Name, Colour: hv.Colour, First: k == 0, Span: len(ord), CTI: hp.CTIms[c],
 				ValidRT: fmtFixed(hp.Valid.RTms[c], 1), ValidAcc: fmtFixed(hp.Valid.Accuracy[c], 3),
 				InvalidRT: fmtFixed(hp.Invalid.RTms[c], 1), InvalidAcc: fmtFixed(hp.Invalid.Accuracy[c], 3),
-				Misdirected: fmtFixed(hp.Invalid.Misdirected[c], 3), Censored: censoredLabel(hp.Censored, c)}
+				Misdirected: fmtFixed(hp.Invalid.Misdirected[c], 3), Censored: hp.Censored.Label(c, "—")}
 			v.Censored = v.Censored || row.Censored != "—"
 			v.Rows = append(v.Rows, row)
 		}
@@ -193,7 +197,7 @@ func checkPredictionShapes(d *models.Design, preds []models.HypothesisPrediction
 		}
 		for _, f := range []struct {
 			name string
-			v    []bool
+			v    []float64
 		}{{"censored.valid", hp.Censored.Valid}, {"censored.invalid", hp.Censored.Invalid}} {
 			if f.v != nil && len(f.v) != n {
 				return fmt.Errorf("%s: %s has %d values for %d CTIs", where, f.name, len(f.v), n)
@@ -224,21 +228,6 @@ func neuralRange(preds []models.HypothesisPrediction) (lo, hi float64) {
 		span = math.Max(math.Abs(hi), 1)
 	}
 	return lo - 0.05*span, hi + 0.05*span
-}
-
-// censoredLabel says which trial classes are censored at CTI index c.
-func censoredLabel(cs models.CensoredReadouts, c int) string {
-	v := c < len(cs.Valid) && cs.Valid[c]
-	inv := c < len(cs.Invalid) && cs.Invalid[c]
-	switch {
-	case v && inv:
-		return "both"
-	case v:
-		return "valid"
-	case inv:
-		return "invalid"
-	}
-	return "—"
 }
 
 // fmtFixed prints v with the given decimals and a typographic minus, or a

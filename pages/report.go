@@ -102,6 +102,10 @@ type htmlView struct {
 	Sections []sectionLink
 	Timing   string
 	Method   methodView
+	// GradedNote names the designs with trial-to-trial variability of
+	// precision, with their precision_sd; empty when every design is
+	// deterministic.
+	GradedNote string
 }
 
 // methodView holds the method constants the notes quote, formatted from
@@ -289,7 +293,7 @@ func Report(r *recovery.Report) ([]byte, error) {
 	if r == nil {
 		panic("pages: Report: nil report")
 	}
-	v := htmlView{R: r, Ranking: newRankingView(r), Method: newMethodView(r.Method), ITINote: itiNote(r.Designs), Warnings: r.Warnings}
+	v := htmlView{R: r, Ranking: newRankingView(r), Method: newMethodView(r.Method), ITINote: itiNote(r.Designs), Warnings: r.Warnings, GradedNote: gradedNote(r.Designs)}
 	hypIndex := map[string]int{}
 	specs := map[string]models.Hypothesis{}
 	if r.StudyFile != nil {
@@ -507,6 +511,25 @@ func fmtITI(ms int) string {
 
 // itiNote names the designs' inter-trial intervals: "1 s in every
 // design", or each design's.
+// gradedNote lists the designs whose agent has precision_sd > 0, with
+// their σ ("lamp-behaviour (0.2) and lamp-behaviour-eeg (0.2)"), or
+// returns "" when there are none.
+func gradedNote(ds []recovery.DesignReport) string {
+	var parts []string
+	for _, d := range ds {
+		if d.PrecisionSD > 0 {
+			parts = append(parts, fmt.Sprintf("%s (%s)", d.Name, fmtG(d.PrecisionSD, 3)))
+		}
+	}
+	switch len(parts) {
+	case 0:
+		return ""
+	case 1:
+		return parts[0]
+	}
+	return strings.Join(parts[:len(parts)-1], ", ") + " and " + parts[len(parts)-1]
+}
+
 func itiNote(ds []recovery.DesignReport) string {
 	if len(ds) == 0 {
 		return "—"
@@ -858,7 +881,17 @@ func newPredictionSeries(preds []models.HypothesisPrediction, colour func(i int,
 		// cti_ms need not be ascending; a line joins its points by CTI.
 		ord := ascendingOrder(hp.CTIms)
 		pick := func(v []float64) []float64 { return permuteFloats(v, ord) }
-		pickB := func(v []bool) []bool { return permuteBools(v, ord) }
+		// A point is ringed where at least half its trials are censored.
+		pickB := func(v []float64) []bool {
+			if v == nil {
+				return nil
+			}
+			b := make([]bool, len(v))
+			for i, x := range v {
+				b[i] = x >= 0.5
+			}
+			return permuteBools(b, ord)
+		}
 		xs := pick(x)
 		ps.RT = append(ps.RT,
 			lineSeries{X: xs, Y: pick(hp.Valid.RTms), Hollow: pickB(hp.Censored.Valid), Colour: c, Markers: true},

@@ -99,7 +99,7 @@ func htmlDesign(name string, measures []string, group bool) recovery.DesignRepor
 			Valid:    models.ClassReadouts{RTms: []float64{110 - 10*float64(i), 60, 50}, Accuracy: []float64{0.9, 0.9, 0.9}},
 			Invalid:  models.ClassReadouts{RTms: []float64{130, 110 + float64(i), 1500}, Accuracy: []float64{0.9, 0.5, 0.05}},
 			Neural:   models.NeuralReadouts{BinMs: 100, ByCTI: [][]float64{{0, 0.1, 0.2}, {0, 0.1, 0.2, 0.3, 0.4, 0.5}, {0, 0.1 * float64(i), 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8}}},
-			Censored: models.CensoredReadouts{Valid: []bool{false, false, false}, Invalid: []bool{false, false, true}},
+			Censored: models.CensoredReadouts{Valid: []float64{0, 0, 0}, Invalid: []float64{0, 0, 1}},
 		}
 		d.Predictions = append(d.Predictions, hp)
 	}
@@ -528,6 +528,28 @@ func TestHTMLITIFromDesigns(t *testing.T) {
 				t.Errorf("study table lacks the ITI column value %q", fmtITI(c.a))
 			}
 		})
+	}
+}
+
+// TestHTMLGradedNote: the method notes state precision_sd and its cost
+// for the designs that have it, and say nothing of it when none does (the
+// deterministic agent's report is as before).
+func TestHTMLGradedNote(t *testing.T) {
+	r := htmlReport(true)
+	if m := sectionBody(t, renderHTML(t, r), "method"); strings.Contains(m, "Trial-to-trial variability") {
+		t.Errorf("deterministic designs: the method notes speak of trial-to-trial variability")
+	}
+	esc := func(s string) string { return strings.ReplaceAll(s, "+", "&#43;") } // as html/template writes it
+	r.Designs[1].PrecisionSD = 0.2
+	m := sectionBody(t, renderHTML(t, r), "method")
+	for _, want := range []string{"<b>Trial-to-trial variability of precision.</b> In " + esc(r.Designs[1].Name) + " (0.2)", "about 50 times a deterministic one", "Ratcliff &amp; Tuerlinckx 2002"} {
+		if !strings.Contains(m, want) {
+			t.Errorf("method notes lack %q", want)
+		}
+	}
+	r.Designs[0].PrecisionSD = 0.15
+	if m := sectionBody(t, renderHTML(t, r), "method"); !strings.Contains(m, "In "+esc(r.Designs[0].Name)+" (0.15) and "+esc(r.Designs[1].Name)+" (0.2)") {
+		t.Errorf("method notes do not list both designs with their precision_sd")
 	}
 }
 

@@ -43,7 +43,7 @@ func BuildPredictionGrid(ctx context.Context, l *models.Listener, d *models.Desi
 	names := h.FreeParams()
 	c := &PredictionGrid{Hypothesis: h, Names: names, design: d, listener: l}
 	pr := l.NewPrediction()
-	c.lay = newLayout(pr)
+	c.lay = newLayoutFor(l, pr)
 	for _, n := range names {
 		p := h.Params[n]
 		c.lo = append(c.lo, *p.Min)
@@ -375,7 +375,7 @@ func (c *PredictionGrid) MeasureError(seed uint64, n int) SurrogateError {
 				acc = math.Max(acc, math.Abs(a[j]-b[j]))
 			}
 		}
-		for bb := 0; bb < c.lay.bmax; bb++ {
+		for bb := 0; bb < c.lay.neural(); bb++ {
 			ne = math.Max(ne, math.Abs(a[c.lay.eeg(bb)]-b[c.lay.eeg(bb)]))
 		}
 		eff := typ.effect(b, a)

@@ -8,31 +8,64 @@ import (
 
 // layout places one prediction set in a flat vector: valid RT, valid
 // accuracy, invalid RT, invalid accuracy, misdirected (one entry per CTI
-// each), then the neural bins of the longest CTI (shorter CTIs use a
-// prefix: the preparatory part is common to all CTIs).
+// each), then the neural bins. For the deterministic agent only the
+// longest CTI's bins are kept (shorter CTIs use a prefix: the preparatory
+// part is common to all CTIs). With precision_sd > 0 each CTI's bins are
+// integrated on that CTI's own pieces (model.md §3b), so every CTI's bins
+// are kept, one after another (perCTI).
 type layout struct {
-	C    int   // number of CTIs
-	bins []int // neural bins per CTI
-	bmax int
+	C      int   // number of CTIs
+	bins   []int // neural bins per CTI
+	bmax   int
+	perCTI bool
+	off    []int // with perCTI, where CTI c's bins start after the 5·C entries
+	total  int   // Σ bins
 }
 
 func newLayout(pr *models.Prediction) layout {
 	l := layout{C: len(pr.CTIms)}
 	for _, b := range pr.Neural {
+		l.off = append(l.off, l.total)
 		l.bins = append(l.bins, len(b))
 		l.bmax = max(l.bmax, len(b))
+		l.total += len(b)
 	}
 	return l
 }
 
-func (l layout) size() int { return 5*l.C + l.bmax }
+// newLayoutFor is the layout of listener l's predictions.
+func newLayoutFor(l *models.Listener, pr *models.Prediction) layout {
+	lay := newLayout(pr)
+	lay.perCTI = l.PrecisionSD() > 0
+	return lay
+}
+
+// neural is the number of neural entries stored.
+func (l layout) neural() int {
+	if l.perCTI {
+		return l.total
+	}
+	return l.bmax
+}
+
+func (l layout) size() int { return 5*l.C + l.neural() }
 
 func (l layout) vRT(c int) int  { return c }
 func (l layout) vAcc(c int) int { return l.C + c }
 func (l layout) iRT(c int) int  { return 2*l.C + c }
 func (l layout) iAcc(c int) int { return 3*l.C + c }
 func (l layout) iMis(c int) int { return 4*l.C + c }
-func (l layout) eeg(b int) int  { return 5*l.C + b }
+
+// eeg is the index of the j-th stored neural entry.
+func (l layout) eeg(j int) int { return 5*l.C + j }
+
+// eegAt is the index of bin b of CTI c.
+func (l layout) eegAt(c, b int) int {
+	if l.perCTI {
+		return 5*l.C + l.off[c] + b
+	}
+	return 5*l.C + b
+}
 
 // flatten writes pr into dst following l.
 func (l layout) flatten(pr *models.Prediction, dst []float64) {
@@ -42,6 +75,12 @@ func (l layout) flatten(pr *models.Prediction, dst []float64) {
 		dst[l.iRT(c)] = pr.Invalid.RTms[c]
 		dst[l.iAcc(c)] = pr.Invalid.Accuracy[c]
 		dst[l.iMis(c)] = pr.Invalid.Misdirected[c]
+	}
+	if l.perCTI {
+		for c := range l.bins {
+			copy(dst[l.eegAt(c, 0):], pr.Neural[c])
+		}
+		return
 	}
 	longest := 0
 	for c, b := range l.bins {
@@ -264,11 +303,11 @@ func logLik(s *sufficientStats, lay layout, pred []float64, lapse, ar float64, e
 			series++
 			for b := range y {
 				var x1, x2, yy float64
-				e := pred[lay.eeg(b)]
+				e := pred[lay.eegAt(c, b)]
 				if b == 0 {
 					x1, x2, yy = q, q*e, q*y[0]
 				} else {
-					x1, x2, yy = 1-ar, e-ar*pred[lay.eeg(b-1)], y[b]-ar*y[b-1]
+					x1, x2, yy = 1-ar, e-ar*pred[lay.eegAt(c, b-1)], y[b]-ar*y[b-1]
 				}
 				s11 += x1 * x1
 				s12 += x1 * x2
@@ -277,7 +316,6 @@ func logLik(s *sufficientStats, lay layout, pred []float64, lapse, ar float64, e
 				s2y += x2 * yy
 				syy += yy * yy
 			}
-			_ = c
 		}
 		b, g, red := nonnegLS2(s11, s12, s22, s1y, s2y)
 		n := float64(s.nEEG)

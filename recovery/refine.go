@@ -104,7 +104,7 @@ func (t typicalData) effect(p, q []float64) float64 {
 	if t.eeg && t.eegSD > 0 {
 		k := t.eegGain * t.eegGain / (2 * t.eegSD * t.eegSD)
 		kk := 0.0
-		for b := 0; b < l.bmax; b++ {
+		for b := 0; b < l.neural(); b++ {
 			d := p[l.eeg(b)] - q[l.eeg(b)]
 			kk += k * d * d
 		}

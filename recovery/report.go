@@ -109,6 +109,7 @@ type DesignReport struct {
 	Verdict               []string                      `json:"verdict"`
 	Group                 *GroupReport                  `json:"group,omitempty"`
 	Recovery              []RecoveryPoints              `json:"recovery_points"`
+	PrecisionSD           float64                       `json:"precision_sd,omitempty"` // agent.precision_sd (model.md §3b); omitted when 0
 }
 
 // CriterionReport is the confusion analysis under one criterion.
@@ -276,6 +277,7 @@ func (c *Compiled) designReport(di int, parts [][]ParticipantResult) DesignRepor
 		TrialsPerParticipant:  d.TrialsPerCTI * len(d.CTIms),
 		MinutesPerParticipant: minutesPerParticipant(d),
 		ITIms:                 d.ITIms,
+		PrecisionSD:           d.Agent.PrecisionSD,
 		Criteria:              map[Criterion]CriterionReport{},
 		Surrogate:             c.Surrogate[di],
 		Predictions:           c.Predictions[di],

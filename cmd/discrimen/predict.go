@@ -258,15 +258,7 @@ func writePredictTable(w io.Writer, d *models.Design, preds []models.HypothesisP
 	fmt.Fprintln(tw, left("hypothesis", nw)+"\t"+left("family", fw)+"\tCTI (ms)\tvalid RT (ms)\tvalid acc\tinvalid RT (ms)\tinvalid acc\tmisdirected\tcensored\t")
 	for _, p := range preds {
 		for c, cti := range p.CTIms {
-			cens := "-"
-			switch {
-			case p.Censored.Valid[c] && p.Censored.Invalid[c]:
-				cens = "both"
-			case p.Censored.Valid[c]:
-				cens = "valid"
-			case p.Censored.Invalid[c]:
-				cens = "invalid"
-			}
+			cens := p.Censored.Label(c, "-")
 			name, fam := p.Name, p.Family
 			if c > 0 {
 				name, fam = "", ""

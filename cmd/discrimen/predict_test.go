@@ -95,8 +95,8 @@ type predictJSON struct {
 			ByCTI [][]float64 `json:"by_cti"`
 		} `json:"neural"`
 		Censored struct {
-			Valid   []bool `json:"valid"`
-			Invalid []bool `json:"invalid"`
+			Valid   []float64 `json:"valid"`
+			Invalid []float64 `json:"invalid"`
 		} `json:"censored"`
 	} `json:"hypotheses"`
 }
