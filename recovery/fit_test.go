@@ -311,3 +311,29 @@ func TestNelderMeadLimits(t *testing.T) {
 		t.Errorf("NaN function: %+v, want no finite value", res)
 	}
 }
+
+// TestNonnegLS2FlatRegressor: a slope regressor flat but for rounding
+// (±1e-16, as a constant hypothesis's neural signal) gets no slope, so it
+// cannot be scaled up to fit the data's noise; one of 1e-3 gain units
+// does get its slope.
+func TestNonnegLS2FlatRegressor(t *testing.T) {
+	sums := func(x, y []float64) (s11, s12, s22, s1y, s2y float64) {
+		for i := range x {
+			s11++
+			s12 += x[i]
+			s22 += x[i] * x[i]
+			s1y += y[i]
+			s2y += x[i] * y[i]
+		}
+		return
+	}
+	y := []float64{0.3, -0.2, 0.5, 0.1, -0.4, 0.2}
+	noise := []float64{1e-16, -5e-17, 1.1e-16, 0, -1e-16, 5.6e-17}
+	if b, s, _ := nonnegLS2(sums(noise, y)); s != 0 || math.Abs(b-0.5/6) > 1e-12 {
+		t.Errorf("rounding-level regressor: b = %v, s = %v; want the mean and s = 0", b, s)
+	}
+	signal := []float64{0, 1e-3, 2e-3, 1e-3, 0, 3e-3}
+	if _, s, _ := nonnegLS2(sums(signal, []float64{0, 2, 4, 2, 0, 6})); math.Abs(s-2000) > 1e-6 {
+		t.Errorf("1e-3 regressor: s = %v, want 2000", s)
+	}
+}

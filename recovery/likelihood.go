@@ -190,13 +190,27 @@ func (s *sufficientStats) nMeasurement() int {
 // returning b, s and the reduction in the residual sum of squares
 // 2(b·s1y + s·s2y) − (b²s11 + 2bs·s12 + s²s22). The constraint s ≥ 0 keeps a
 // candidate from fitting the data's pattern upside down; a degenerate slope
-// regressor (a flat prediction) gives s = 0.
+// regressor (a flat prediction) gives s = 0. So does one whose spread about
+// the intercept's direction is below flatRegressor of the intercept
+// regressor's scale,
+//
+//	s22 − s12²/s11 ≤ flatRegressor² · s11,
+//
+// a prediction flat but for rounding (a constant hypothesis's neural
+// signal is 0 ± 1e-16 after baseline correction): a relative test alone
+// lets the slope scale that noise up by 1e14 and fit the data's noise.
+// flatRegressor is the spread, in the units of the prediction (gain units
+// for the neural signal), below which nonnegLS2 treats the slope regressor
+// as flat: far above rounding (1e-16) and far below any signal a design
+// could measure.
+const flatRegressor = 1e-9
+
 func nonnegLS2(s11, s12, s22, s1y, s2y float64) (b, s, reduction float64) {
 	det := s11*s22 - s12*s12
 	if s11 <= 0 {
 		return 0, 0, 0
 	}
-	if det > 1e-12*s11*s22 && s22 > 0 {
+	if det > 1e-12*s11*s22 && s22 > 0 && det > flatRegressor*flatRegressor*s11*s11 {
 		s = (s11*s2y - s12*s1y) / det
 		if s > 0 {
 			b = (s1y - s*s12) / s11
