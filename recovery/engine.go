@@ -224,14 +224,7 @@ func (c *Compiled) RunShard(ctx context.Context, spec ShardSpec, progress func(f
 		}
 		self := &pres.Fits[spec.Generator]
 		fs := fitters[spec.Generator]
-		if !self.Failed {
-			sp := newSpace(fs.grid, sum)
-			th := thetaOf(sp, self)
-			if sp.totalDims > 0 {
-				self.SE, self.SEReliable, self.SENote = fs.standardErrors(sum, sp, th)
-			}
-			self.Intervals = fs.profileIntervals(sum, sp, th, -self.LogL)
-		}
+		fs.finishSelf(sum, self)
 		self.TruthLogL = fs.truthLogL(sum, truth.Free, pr)
 		res.Participants = append(res.Participants, pres)
 		if progress != nil {
