@@ -537,7 +537,7 @@ func groupFit(out *CollectedFit, threshold float64) *GroupFit {
 		}
 		s := fmt.Sprintf("%s: %s wins %s of %d participants", c.Label(), best, strings.TrimSuffix(strings.TrimRight(fmt.Sprintf("%.2f", float64(bestN)), "0"), "."), len(out.Participants))
 		if out.Recovery != nil {
-			s += fmt.Sprintf("; in the recovery study a %s win of %s was the true hypothesis %s of the time", c.Label(), best, pctText(float64(out.Recovery.TrueGivenWinner[c][best])))
+			s += fmt.Sprintf("; in the recovery study, when %s won a synthetic participant under %s, it had generated the data %s of the time", best, c.Label(), pctText(float64(out.Recovery.TrueGivenWinner[c][best])))
 		}
 		g.Verdicts = append(g.Verdicts, s)
 	}
@@ -570,7 +570,7 @@ func groupFit(out *CollectedFit, threshold float64) *GroupFit {
 		g.Verdict = fmt.Sprintf("no hypothesis reaches protected exceedance probability %.2f: the highest is %s's, %.3f (omnibus risk %.3f, %d participants)", threshold, g.Leader, r.PXP[lead], r.BOR, len(ev))
 	}
 	if out.Recovery != nil {
-		g.Verdict += fmt.Sprintf("; in the recovery study a single participant's BIC win of %s was the true hypothesis %s of the time", g.Leader, pctText(float64(out.Recovery.TrueGivenWinner[BICCriterion][g.Leader])))
+		g.Verdict += fmt.Sprintf("; in the recovery study, when %s won a synthetic participant under BIC, it had generated the data %s of the time", g.Leader, pctText(float64(out.Recovery.TrueGivenWinner[BICCriterion][g.Leader])))
 	}
 	g.Verdicts = append(g.Verdicts, "BMS: "+g.Verdict)
 	return g
