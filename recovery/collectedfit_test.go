@@ -179,3 +179,183 @@ func TestGroupIsBMSOfTheEvidences(t *testing.T) {
 		t.Errorf("omnibus risk %v, BMS %v", g.OmnibusRisk, want.BOR)
 	}
 }
+
+// BenchmarkFitCollected40x6 fits 40 participants of the demo study's EEG
+// design (about 7 exported from each of its 6 hypotheses) with all 6
+// hypotheses on 2 goroutines; the prediction grids are built once, before
+// the timer.
+func BenchmarkFitCollected40x6(b *testing.B) {
+	s := loadStudy(b, "../testdata/studies/radio-watch.json")
+	const design = "lamp-behaviour-eeg"
+	c, err := CompileDesign(b.Context(), s, design, 2)
+	if err != nil {
+		b.Fatal(err)
+	}
+	data := &Collected{Design: design}
+	for p := range 40 {
+		h := s.Hypotheses[p%len(s.Hypotheses)]
+		files, err := Export(s, design, h.Name, p/len(s.Hypotheses)+1)
+		if err != nil {
+			b.Fatal(err)
+		}
+		one, err := ParseCollected(&c.Designs[0], DataFile{"trials.csv", files[0].Data}, &DataFile{"eeg.csv", files[2].Data}, nil)
+		if err != nil {
+			b.Fatal(err)
+		}
+		last := one.Participants[len(one.Participants)-1]
+		last.Label = h.Name + "-" + last.Label
+		data.Participants = append(data.Participants, last)
+	}
+	b.ResetTimer()
+	for b.Loop() {
+		out, err := c.FitCollected(b.Context(), data, FitOptions{Workers: 2})
+		if err != nil {
+			b.Fatal(err)
+		}
+		if len(out.Participants) != 40 || len(out.Participants[0].Fits) != 6 {
+			b.Fatal("wrong shape")
+		}
+	}
+}
+
+// TestRecoveryBridge: a report of the same study gives P(true | winner)
+// from its inversion diagonals; a report of another study, or one without
+// a hash, is refused.
+func TestRecoveryBridge(t *testing.T) {
+	s := mustStudy(t, collectedStudy)
+	rep, err := Run(t.Context(), s, Options{Workers: 2})
+	if err != nil {
+		t.Fatal(err)
+	}
+	js, err := rep.JSON()
+	if err != nil {
+		t.Fatal(err)
+	}
+	b, err := ReadRecoveryReport(js, s, "two-waits")
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, c := range Criteria {
+		inv := rep.Designs[0].Criteria[c].Inversion
+		for j, h := range rep.Hypotheses {
+			if got := b.TrueGivenWinner[c][h]; !close9(float64(got), float64(inv[j][j])) {
+				t.Errorf("%s %s: %v, inversion %v", c, h, got, inv[j][j])
+			}
+		}
+	}
+	other := mustStudy(t, strings.Replace(collectedStudy, `"seed": 11`, `"seed": 12`, 1))
+	hash, _ := StudyHash(other)
+	want := `the recovery report is of another study ("berth-watch-collected (invented scenario)", study_hash ` + rep.StudyHash + `; this study's is ` + hash + `); give the report of this study file`
+	if _, err := ReadRecoveryReport(js, other, "two-waits"); err == nil || err.Error() != want {
+		t.Errorf("another study: got %v\nwant %s", err, want)
+	}
+	old := strings.Replace(string(js), `"study_hash": "`+rep.StudyHash+`",`, "", 1)
+	if _, err := ReadRecoveryReport([]byte(old), s, "two-waits"); err == nil || err.Error() != "the recovery report (discrimen 0.1.0) has no study_hash; run the study again with this release" {
+		t.Errorf("no hash: got %v", err)
+	}
+	if _, err := ReadRecoveryReport(js, s, "three-waits"); err == nil || err.Error() != `the recovery report has no design "three-waits"` {
+		t.Errorf("no design: got %v", err)
+	}
+	// The bridge's figures reach fit.json beside each verdict.
+	c, err := CompileDesign(t.Context(), s, "two-waits", 2)
+	if err != nil {
+		t.Fatal(err)
+	}
+	files, _ := Export(s, "two-waits", "steady-lamp", 3)
+	data, err := ParseCollected(&c.Designs[0], DataFile{"trials.csv", files[0].Data}, &DataFile{"eeg.csv", files[2].Data}, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	cf, err := c.FitCollected(t.Context(), data, FitOptions{Workers: 1, Recovery: b})
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, pf := range cf.Participants {
+		w := pf.Winner[BICCriterion]
+		if pf.TrueGivenWinner == nil || len(w) == 1 && *pf.TrueGivenWinner != b.TrueGivenWinner[BICCriterion][w[0]] {
+			t.Errorf("participant %s: P(true | winner) %v for winner %v", pf.Participant, pf.TrueGivenWinner, w)
+		}
+	}
+	if len(cf.Group.Verdicts) != 4 || !strings.Contains(cf.Group.Verdicts[3], "in the recovery study, when "+cf.Group.Leader+" won a synthetic participant under BIC, it had generated the data") {
+		t.Errorf("verdicts %q", cf.Group.Verdicts)
+	}
+}
+
+// TestFitCollectedRepeats: one input gives one fit.json (timing aside) on
+// one and on two goroutines.
+func TestFitCollectedRepeats(t *testing.T) {
+	s := mustStudy(t, collectedStudy)
+	c, err := CompileDesign(t.Context(), s, "two-waits", 2)
+	if err != nil {
+		t.Fatal(err)
+	}
+	files, _ := Export(s, "two-waits", "rising-watch", 4)
+	data, err := ParseCollected(&c.Designs[0], DataFile{"trials.csv", files[0].Data}, &DataFile{"eeg.csv", files[2].Data}, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var got []string
+	for _, w := range []int{1, 2, 2} {
+		cf, err := c.FitCollected(t.Context(), data, FitOptions{Workers: w})
+		if err != nil {
+			t.Fatal(err)
+		}
+		cf.Timing = CollectedFitTiming{}
+		js, _ := cf.JSON()
+		got = append(got, string(js))
+		tables, err := cf.TableFiles()
+		if err != nil || len(tables) != 8 {
+			t.Fatalf("%d tables, %v", len(tables), err)
+		}
+	}
+	if got[0] != got[1] || got[1] != got[2] {
+		t.Error("fit.json differs between runs")
+	}
+}
+
+// TestFitWithoutEEGForSome: a participant without EEG is fitted on the
+// behavioural measures alone: 4 fewer terms in k and no bins in n.
+func TestFitWithoutEEGForSome(t *testing.T) {
+	s := mustStudy(t, collectedStudy)
+	c, err := CompileDesign(t.Context(), s, "two-waits", 2)
+	if err != nil {
+		t.Fatal(err)
+	}
+	files, _ := Export(s, "two-waits", "rising-watch", 2)
+	var eeg []string
+	for _, l := range strings.Split(strings.TrimSpace(string(files[2].Data)), "\n") {
+		if !strings.HasPrefix(l, "1,") {
+			eeg = append(eeg, l)
+		}
+	}
+	data, err := ParseCollected(&c.Designs[0], DataFile{"trials.csv", files[0].Data}, &DataFile{"eeg.csv", []byte(strings.Join(eeg, "\n") + "\n")}, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	cf, err := c.FitCollected(t.Context(), data, FitOptions{Workers: 1})
+	if err != nil {
+		t.Fatal(err)
+	}
+	a, b := cf.Participants[0], cf.Participants[1]
+	bins, _ := DesignBins(&c.Designs[0])
+	nObs := func(p CollectedParticipant, eeg bool) int {
+		n := len(p.Trials)
+		for _, tr := range p.Trials {
+			if !math.IsNaN(tr.RTms) {
+				n++
+			}
+		}
+		if eeg {
+			for _, x := range bins {
+				n += x
+			}
+		}
+		return n
+	}
+	if !a.EEG || b.EEG || a.Fits[0].K-b.Fits[0].K != 4 || a.Fits[0].N != nObs(data.Participants[0], true) || b.Fits[0].N != nObs(data.Participants[1], false) {
+		t.Fatalf("with EEG k=%d n=%d, without k=%d n=%d", a.Fits[0].K, a.Fits[0].N, b.Fits[0].K, b.Fits[0].N)
+	}
+	if len(cf.Notes) != 3 || !strings.HasPrefix(cf.Notes[2], "1 of 2 participants have no EEG") {
+		t.Errorf("notes %q", cf.Notes)
+	}
+}
