@@ -93,10 +93,14 @@ type CandidateFit struct {
 	Error       string                   `json:"error,omitempty"`
 }
 
-// ParamEstimate is an estimate with its 95% profile-likelihood interval.
+// ParamEstimate is an estimate with its 95% profile-likelihood interval
+// and, as a secondary figure, its grid-Hessian standard error (NA where
+// the Hessian failed its checks, SEReliable false).
 type ParamEstimate struct {
-	Estimate NullFloat `json:"estimate"`
-	Interval Interval  `json:"interval"`
+	Estimate   NullFloat `json:"estimate"`
+	Interval   Interval  `json:"interval"`
+	SE         NullFloat `json:"se"`
+	SEReliable bool      `json:"se_reliable"`
 }
 
 // GroupFit is random-effects Bayesian model selection over the
@@ -369,11 +373,14 @@ func participantFit(d *models.Design, cp *CollectedParticipant, fits []Fit, fs [
 		cf := CandidateFit{Candidate: f.Candidate, LogL: NullFloat(f.LogL), K: f.K, N: f.N, AIC: NullFloat(f.AIC), AICc: NullFloat(f.AICc), BIC: NullFloat(f.BIC),
 			Params: map[string]ParamEstimate{}, Measurement: map[string]NullFloat{}, Converged: f.Converged, Failed: f.Failed, Error: f.Error}
 		for i, name := range fs[j].grid.Names {
-			pe := ParamEstimate{Estimate: NullFloat(math.NaN()), Interval: NoInterval()}
+			pe := ParamEstimate{Estimate: NullFloat(math.NaN()), Interval: NoInterval(), SE: NullFloat(math.NaN())}
 			if !f.Failed {
 				pe.Estimate = NullFloat(f.Params[i])
 				if i < len(f.Intervals) {
 					pe.Interval = f.Intervals[i]
+				}
+				if i < len(f.SE) {
+					pe.SE, pe.SEReliable = NullFloat(f.SE[i]), f.SEReliable
 				}
 			}
 			cf.Params[name] = pe

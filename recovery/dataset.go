@@ -157,6 +157,16 @@ func synthetic(seed uint64, d *models.Design, gen models.Hypothesis, p int, l *m
 	return Simulate(datasetRand(seed, d.Name, gen.Name, p, "trials"), d, gen, p, truth, pr), nil
 }
 
+// StudyDesign returns the study's expanded design of that name, or an
+// error that lists the designs.
+func StudyDesign(s *models.Study, name string) (*models.Design, error) {
+	designs, err := s.ExpandedDesigns()
+	if err != nil {
+		return nil, err
+	}
+	return findDesign(designs, name)
+}
+
 // findDesign finds an expanded design by name.
 func findDesign(designs []models.Design, name string) (*models.Design, error) {
 	names := make([]string, len(designs))

@@ -53,25 +53,9 @@ func cmdFit(args []string, stdout, stderr io.Writer) int {
 	if err != nil {
 		return fail(err)
 	}
-	designs, err := study.ExpandedDesigns()
+	d, err := recovery.StudyDesign(study, *design)
 	if err != nil {
 		return fail(err)
-	}
-	di := -1
-	for i := range designs {
-		if designs[i].Name == *design {
-			di = i
-		}
-	}
-	if di < 0 {
-		names := ""
-		for i := range designs {
-			if i > 0 {
-				names += ", "
-			}
-			names += designs[i].Name
-		}
-		return fail(fmt.Errorf("the study has no design %q (its designs: %s)", *design, names))
 	}
 	read := func(name string) (*recovery.DataFile, error) {
 		b, err := os.ReadFile(name)
@@ -90,7 +74,7 @@ func cmdFit(args []string, stdout, stderr io.Writer) int {
 			return fail(err)
 		}
 	}
-	data, err := recovery.ParseCollected(&designs[di], *tf, ef, cols)
+	data, err := recovery.ParseCollected(d, *tf, ef, cols)
 	if err != nil {
 		fmt.Fprintf(stderr, "discrimen fit: the data do not parse; nothing was written:\n%v\n", err)
 		return 1
