@@ -199,3 +199,20 @@ func TestParseColumns(t *testing.T) {
 		}
 	}
 }
+
+// TestParseCollectedWithoutRT: a design that does not measure rt needs no
+// rt_ms column, and one given is ignored.
+func TestParseCollectedWithoutRT(t *testing.T) {
+	s := mustStudy(t, strings.Replace(collectedStudy, `"measures": ["rt", "accuracy", "eeg"]`, `"measures": ["accuracy"]`, 1))
+	ds, _ := s.ExpandedDesigns()
+	c, err := ParseCollected(&ds[0], DataFile{"trials.csv", []byte("cue,report,participant,cti_ms\nvalid,target,w,300\ninvalid,other,w,600\n")}, nil, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(c.Participants) != 1 || len(c.Participants[0].Trials) != 2 || !math.IsNaN(c.Participants[0].Trials[0].RTms) {
+		t.Fatalf("%+v", c.Participants)
+	}
+	if _, err := ParseCollected(&ds[0], DataFile{"trials.csv", []byte(goodTrials)}, nil, nil); err != nil {
+		t.Fatalf("an rt_ms column the design does not measure: %v", err)
+	}
+}
