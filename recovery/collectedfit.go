@@ -49,7 +49,6 @@ type CollectedFit struct {
 	Method       Method              `json:"method"`
 	Notes        []string            `json:"notes"`
 	Timing       CollectedFitTiming  `json:"timing"`
-	fits         [][]Fit             // per participant, per candidate
 	cands        []models.Hypothesis // the candidates, in study order
 }
 
@@ -259,49 +258,62 @@ func FitCollected(ctx context.Context, s *models.Study, data *Collected, opt Fit
 // candidate is finished as the engine finishes a self-fit (the deep
 // polish, the grid-Hessian SEs and the profile intervals): a
 // participant's fit of candidate H is then the one `run` makes when H
-// generated the participant.
+// generated the participant. It is FitBlock over every participant and
+// AssembleFit; a queue can run the blocks apart and assemble them later.
 func (c *Compiled) FitCollected(ctx context.Context, data *Collected, opt FitOptions) (*CollectedFit, error) {
+	start := time.Now()
+	parts, err := c.FitBlock(ctx, data, 0, len(data.Participants), opt.Workers)
+	if err != nil {
+		return nil, err
+	}
+	out, err := c.AssembleFit(data, parts, opt.Recovery)
+	if err != nil {
+		return nil, err
+	}
+	out.Timing.FitSeconds = time.Since(start).Seconds()
 	workers := opt.Workers
 	if workers <= 0 {
 		workers = runtime.GOMAXPROCS(0)
 	}
-	di := -1
+	out.Timing.Workers = max(1, min(workers, len(data.Participants)))
+	return out, nil
+}
+
+func (c *Compiled) designIndex(name string) (int, error) {
 	for i := range c.Designs {
-		if c.Designs[i].Name == data.Design {
-			di = i
+		if c.Designs[i].Name == name {
+			return i, nil
 		}
 	}
-	if di < 0 {
-		return nil, fmt.Errorf("recovery: FitCollected: the data are of design %q, not compiled", data.Design)
-	}
-	if len(data.Participants) == 0 {
-		return nil, errors.New("recovery: FitCollected: no participants")
-	}
-	d := &c.Designs[di]
-	hash, err := StudyHash(c.Study)
+	return -1, fmt.Errorf("recovery: the data are of design %q, not compiled", name)
+}
+
+// FitBlock fits participants [from, to) of data with workers goroutines
+// (0 = all cores). A participant's result depends only on its own data,
+// so blocks fitted apart, in any order, assemble to the same fit.
+func (c *Compiled) FitBlock(ctx context.Context, data *Collected, from, to, workers int) ([]ParticipantFit, error) {
+	di, err := c.designIndex(data.Design)
 	if err != nil {
 		return nil, err
 	}
-	start := time.Now()
-	out := &CollectedFit{
-		Study: c.Study.Name, StudyHash: hash, Version: Version, Design: d.Name, Measures: d.Measures,
-		TrialsFile: data.TrialsFile, EEGFile: data.EEGFile, Method: CurrentMethod(), Recovery: opt.Recovery,
-		cands: c.Study.Hypotheses,
+	if from < 0 || to > len(data.Participants) || from >= to {
+		return nil, fmt.Errorf("recovery: FitBlock: block [%d, %d) of %d participants", from, to, len(data.Participants))
 	}
-	for _, h := range c.Study.Hypotheses {
-		out.Hypotheses = append(out.Hypotheses, h.Name)
+	if workers <= 0 {
+		workers = runtime.GOMAXPROCS(0)
 	}
-	P := len(data.Participants)
-	out.fits = make([][]Fit, P)
-	out.Participants = make([]ParticipantFit, P)
-	w := max(1, min(workers, P))
+	d := &c.Designs[di]
+	n := to - from
+	out := make([]ParticipantFit, n)
+	w := max(1, min(workers, n))
 	fitters := make([][]*fitter, w)
 	for i := range fitters {
 		for _, g := range c.grids[di] {
 			fitters[i] = append(fitters[i], newFitter(g))
 		}
 	}
-	err = parallel.For(ctx, P, w, func(wi, p int) error {
+	err = parallel.For(ctx, n, w, func(wi, i int) error {
+		p := from + i
 		cp := &data.Participants[p]
 		sum := summariseCollected(d, cp)
 		fs := fitters[wi]
@@ -313,20 +325,61 @@ func (c *Compiled) FitCollected(ctx context.Context, data *Collected, opt FitOpt
 			f.polish(sum, &fits[j], true)
 			f.finishSelf(sum, &fits[j])
 		}
-		out.fits[p] = fits
-		out.Participants[p] = participantFit(d, cp, fits, fs, sum, opt.Recovery)
+		out[i] = participantFit(d, cp, fits, fs, sum)
 		return nil
 	})
-	if err != nil {
-		return nil, err
-	}
 	if ctx.Err() != nil {
 		return nil, fmt.Errorf("%w: %v", ErrCanceled, ctx.Err())
 	}
+	if err != nil {
+		return nil, err
+	}
+	return out, nil
+}
+
+// AssembleFit puts the fitted participants of data, in data's order, into
+// one fit: the group level, the notes and, with a recovery bridge, P(true
+// | winner) beside each verdict.
+func (c *Compiled) AssembleFit(data *Collected, parts []ParticipantFit, bridge *RecoveryBridge) (*CollectedFit, error) {
+	di, err := c.designIndex(data.Design)
+	if err != nil {
+		return nil, err
+	}
+	if len(parts) == 0 {
+		return nil, errors.New("recovery: AssembleFit: no participants")
+	}
+	if len(parts) != len(data.Participants) {
+		return nil, fmt.Errorf("recovery: AssembleFit: %d fitted participants, the data have %d", len(parts), len(data.Participants))
+	}
+	d := &c.Designs[di]
+	hash, err := StudyHash(c.Study)
+	if err != nil {
+		return nil, err
+	}
+	out := &CollectedFit{
+		Study: c.Study.Name, StudyHash: hash, Version: Version, Design: d.Name, Measures: d.Measures,
+		TrialsFile: data.TrialsFile, EEGFile: data.EEGFile, Method: CurrentMethod(), Recovery: bridge,
+		Participants: parts, cands: c.Study.Hypotheses,
+	}
+	for _, h := range c.Study.Hypotheses {
+		out.Hypotheses = append(out.Hypotheses, h.Name)
+	}
+	for i := range out.Participants {
+		pf := &out.Participants[i]
+		if pf.Participant != data.Participants[i].Label || len(pf.Fits) != len(out.Hypotheses) {
+			return nil, fmt.Errorf("recovery: AssembleFit: participant %d is %q with %d fits, want %q with %d", i, pf.Participant, len(pf.Fits), data.Participants[i].Label, len(out.Hypotheses))
+		}
+		pf.TrueGivenWinner = nil
+		if w := pf.Winner[BICCriterion]; bridge != nil && len(w) > 0 {
+			v := NullFloat(math.NaN())
+			if len(w) == 1 {
+				v = bridge.TrueGivenWinner[BICCriterion][w[0]]
+			}
+			pf.TrueGivenWinner = &v
+		}
+	}
 	out.Group = groupFit(out, c.Study.Replication.PXPThreshold)
-	out.Notes = collectedNotes(d, data, out)
-	out.Timing.FitSeconds = time.Since(start).Seconds()
-	out.Timing.Workers = w
+	out.Notes = collectedNotes(d, out)
 	return out, nil
 }
 
@@ -366,7 +419,23 @@ func winners(fits []Fit) map[Criterion][]string {
 	return out
 }
 
-func participantFit(d *models.Design, cp *CollectedParticipant, fits []Fit, fs []*fitter, sum *sufficientStats, bridge *RecoveryBridge) ParticipantFit {
+// criterionOf is c's value of a candidate fit, NaN for a failed one.
+func criterionOf(c Criterion, f *CandidateFit) float64 {
+	if f.Failed {
+		return math.NaN()
+	}
+	switch c {
+	case BICCriterion:
+		return float64(f.BIC)
+	case AICCriterion:
+		return float64(f.AIC)
+	case AICcCriterion:
+		return float64(f.AICc)
+	}
+	panic(fmt.Sprintf("recovery: unknown criterion %q", string(c)))
+}
+
+func participantFit(d *models.Design, cp *CollectedParticipant, fits []Fit, fs []*fitter, sum *sufficientStats) ParticipantFit {
 	pf := ParticipantFit{Participant: cp.Label, Trials: len(cp.Trials), EEG: cp.EEG != nil, Winner: winners(fits)}
 	for j := range fits {
 		f := &fits[j]
@@ -399,13 +468,6 @@ func participantFit(d *models.Design, cp *CollectedParticipant, fits []Fit, fs [
 			if fits[j].Candidate == w[0] {
 				pf.Check = predictiveCheck(d, cp, &fits[j], fs[j], sum)
 			}
-		}
-		if bridge != nil {
-			v := NullFloat(math.NaN())
-			if len(w) == 1 {
-				v = bridge.TrueGivenWinner[BICCriterion][w[0]]
-			}
-			pf.TrueGivenWinner = &v
 		}
 	}
 	return pf
@@ -512,12 +574,12 @@ func ar1SumCorr(rho float64, n int) float64 {
 func groupFit(out *CollectedFit, threshold float64) *GroupFit {
 	g := &GroupFit{Excluded: []string{}, Threshold: threshold, Wins: map[Criterion]map[string]NullFloat{}}
 	var ev [][]float64
-	for p, fits := range out.fits {
-		row := make([]float64, len(fits))
+	for p, pf := range out.Participants {
+		row := make([]float64, len(pf.Fits))
 		ok := true
-		for j := range fits {
-			row[j] = -fits[j].BIC / 2
-			ok = ok && !fits[j].Failed && !math.IsNaN(row[j]) && !math.IsInf(row[j], 0)
+		for j, f := range pf.Fits {
+			row[j] = -float64(f.BIC) / 2
+			ok = ok && !f.Failed && !math.IsNaN(row[j]) && !math.IsInf(row[j], 0)
 		}
 		if !ok {
 			g.Excluded = append(g.Excluded, out.Participants[p].Participant)
@@ -590,20 +652,20 @@ func pctText(v float64) string {
 	return fmt.Sprintf("%.0f%%", 100*v)
 }
 
-func collectedNotes(d *models.Design, data *Collected, out *CollectedFit) []string {
+func collectedNotes(d *models.Design, out *CollectedFit) []string {
 	notes := []string{
 		"Every candidate is fitted as the recovery engine fits a generator's own candidate: grid search, the deep exact polish, profile-likelihood intervals (docs/model.md §5).",
 		"The group level is random-effects BMS on ln evidence ≈ −BIC/2 with deterministic exceedance probabilities (BMSQuadrature); a participant with a failed fit is left out of it.",
 	}
 	if d.HasMeasure("eeg") {
 		without := 0
-		for _, p := range data.Participants {
-			if p.EEG == nil {
+		for _, p := range out.Participants {
+			if !p.EEG {
 				without++
 			}
 		}
 		if without > 0 {
-			notes = append(notes, fmt.Sprintf("%d of %d participants have no EEG: they are fitted on the behavioural measures alone, so their ln L, k and n are not comparable with the others'.", without, len(data.Participants)))
+			notes = append(notes, fmt.Sprintf("%d of %d participants have no EEG: they are fitted on the behavioural measures alone, so their ln L, k and n are not comparable with the others'.", without, len(out.Participants)))
 		}
 	}
 	if out.Recovery != nil && out.Recovery.Version != Version {

@@ -1,6 +1,7 @@
 package recovery
 
 import (
+	"encoding/json"
 	"math"
 	"strings"
 	"testing"
@@ -60,23 +61,24 @@ func TestRoundTripMatchesRun(t *testing.T) {
 		cf := fitExported(t, c, s, h.Name, P, nil, nil)
 		for p := range P {
 			run := rep.Fits[0][gi*P+p].Fits
-			got := cf.fits[p]
+			got := cf.Participants[p].Fits
 			self := got[gi]
 			want := run[gi]
-			if !close9(self.LogL, want.LogL) {
-				t.Errorf("%s participant %d: self ln L %.12g, run %.12g", h.Name, p, self.LogL, want.LogL)
+			if !close9(float64(self.LogL), want.LogL) || self.K != want.K || self.N != want.N || !close9(float64(self.BIC), want.BIC) {
+				t.Errorf("%s participant %d: self ln L %.12g k %d n %d, run %.12g k %d n %d", h.Name, p, float64(self.LogL), self.K, self.N, want.LogL, want.K, want.N)
 			}
-			for i := range want.Params {
-				if !close9(self.Params[i], want.Params[i]) {
-					t.Errorf("%s participant %d: %s = %.12g, run %.12g", h.Name, p, want.Names[i], self.Params[i], want.Params[i])
+			for i, name := range want.Names {
+				est := self.Params[name]
+				if !close9(float64(est.Estimate), want.Params[i]) {
+					t.Errorf("%s participant %d: %s = %.12g, run %.12g", h.Name, p, name, float64(est.Estimate), want.Params[i])
 				}
-				wi, gi := want.Intervals[i], self.Intervals[i]
+				wi, gi := want.Intervals[i], est.Interval
 				if !close9(float64(gi.Low), float64(wi.Low)) || !close9(float64(gi.High), float64(wi.High)) || gi.OpenLow != wi.OpenLow || gi.OpenHigh != wi.OpenHigh || len(gi.Pieces) != len(wi.Pieces) {
 					t.Errorf("%s participant %d: interval %+v, run %+v", h.Name, p, gi, wi)
 				}
 			}
 			for j := range run {
-				worstOther = math.Max(worstOther, math.Abs(got[j].LogL-run[j].LogL))
+				worstOther = math.Max(worstOther, math.Abs(float64(got[j].LogL)-run[j].LogL))
 			}
 			runWin := winners(run)
 			for _, cr := range Criteria {
@@ -357,5 +359,58 @@ func TestFitWithoutEEGForSome(t *testing.T) {
 	}
 	if len(cf.Notes) != 3 || !strings.HasPrefix(cf.Notes[2], "1 of 2 participants have no EEG") {
 		t.Errorf("notes %q", cf.Notes)
+	}
+}
+
+// TestFitBlocksAssemble: blocks of participants fitted apart, stored as
+// JSON and assembled give the fit.json of one FitCollected.
+func TestFitBlocksAssemble(t *testing.T) {
+	s := mustStudy(t, collectedStudy)
+	c, err := CompileDesign(t.Context(), s, "two-waits", 2)
+	if err != nil {
+		t.Fatal(err)
+	}
+	files, _ := Export(s, "two-waits", "rising-watch", 5)
+	data, err := ParseCollected(&c.Designs[0], DataFile{"trials.csv", files[0].Data}, &DataFile{"eeg.csv", files[2].Data}, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	whole, err := c.FitCollected(t.Context(), data, FitOptions{Workers: 2})
+	if err != nil {
+		t.Fatal(err)
+	}
+	whole.Timing = CollectedFitTiming{}
+	want, _ := whole.JSON()
+	// Fitted in any order and through JSON, as a queue would store them.
+	blocks := map[int][]ParticipantFit{}
+	for _, b := range [][2]int{{3, 5}, {0, 1}, {1, 3}} {
+		block, err := c.FitBlock(t.Context(), data, b[0], b[1], 1)
+		if err != nil {
+			t.Fatal(err)
+		}
+		js, err := json.Marshal(block)
+		if err != nil {
+			t.Fatal(err)
+		}
+		var back []ParticipantFit
+		if err := json.Unmarshal(js, &back); err != nil {
+			t.Fatal(err)
+		}
+		blocks[b[0]] = back
+	}
+	parts := append(append(blocks[0], blocks[1]...), blocks[3]...)
+	got, err := c.AssembleFit(data, parts, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	gotJS, _ := got.JSON()
+	if string(gotJS) != string(want) {
+		t.Error("assembled blocks differ from one fit")
+	}
+	if _, err := c.AssembleFit(data, parts[:4], nil); err == nil || err.Error() != "recovery: AssembleFit: 4 fitted participants, the data have 5" {
+		t.Errorf("a missing block: %v", err)
+	}
+	if _, err := c.FitBlock(t.Context(), data, 4, 9, 1); err == nil || err.Error() != "recovery: FitBlock: block [4, 9) of 5 participants" {
+		t.Errorf("a block outside: %v", err)
 	}
 }

@@ -77,13 +77,13 @@ func (f *CollectedFit) Tables() []Table {
 		{Name: "wins_aicc", Description: "participants won under AICc (ties split)"},
 		{Name: "p_true_given_winner_bic", Description: "from the recovery report: the share of the study's BIC wins of this hypothesis whose data it generated (inversion matrix); NA without a report"},
 	}}
-	for p, pf := range f.Participants {
+	for _, pf := range f.Participants {
 		label := text(pf.Participant)
 		shares := map[Criterion][]float64{}
 		for _, c := range Criteria {
-			vals := make([]float64, len(f.fits[p]))
-			for j := range f.fits[p] {
-				vals[j] = c.Of(&f.fits[p][j])
+			vals := make([]float64, len(pf.Fits))
+			for j := range pf.Fits {
+				vals[j] = criterionOf(c, &pf.Fits[j])
 			}
 			s, failed := WinShares(vals, TieTolerance)
 			if failed {
@@ -93,19 +93,20 @@ func (f *CollectedFit) Tables() []Table {
 			}
 			shares[c] = s
 		}
-		for j := range f.fits[p] {
-			ft := &f.fits[p][j]
-			ct.Rows = append(ct.Rows, []string{label, text(ft.Candidate), num(ft.LogL), integer(ft.K), integer(ft.N), num(ft.AIC), num(ft.AICc), num(ft.BIC),
+		for j := range pf.Fits {
+			ft := &pf.Fits[j]
+			ct.Rows = append(ct.Rows, []string{label, text(ft.Candidate), num(float64(ft.LogL)), integer(ft.K), integer(ft.N), num(float64(ft.AIC)), num(float64(ft.AICc)), num(float64(ft.BIC)),
 				num(shares[BICCriterion][j]), num(shares[AICCriterion][j]), num(shares[AICcCriterion][j]), boolean(ft.Converged), boolean(ft.Failed)})
-			if ft.Failed {
+			if ft.Failed || j >= len(f.cands) {
 				continue
 			}
-			for i, name := range ft.Names {
-				iv := NoInterval()
-				if i < len(ft.Intervals) {
-					iv = ft.Intervals[i]
+			for _, name := range f.cands[j].FreeParams() {
+				pe, ok := ft.Params[name]
+				if !ok {
+					continue
 				}
-				pt.Rows = append(pt.Rows, []string{label, text(ft.Candidate), text(name), num(ft.Params[i]), num(float64(iv.Low)), num(float64(iv.High)), boolean(iv.OpenLow), boolean(iv.OpenHigh), integer(len(iv.Pieces))})
+				iv := pe.Interval
+				pt.Rows = append(pt.Rows, []string{label, text(ft.Candidate), text(name), num(float64(pe.Estimate)), num(float64(iv.Low)), num(float64(iv.High)), boolean(iv.OpenLow), boolean(iv.OpenHigh), integer(len(iv.Pieces))})
 			}
 		}
 		if pf.Check != nil {

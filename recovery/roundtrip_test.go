@@ -46,11 +46,12 @@ func TestRoundTripDemo(t *testing.T) {
 			for p := range P {
 				run := rep.Fits[di][gi*P+p].Fits
 				total++
-				if !close9(cf.fits[p][gi].LogL, run[gi].LogL) {
+				self := cf.Participants[p].Fits[gi]
+				if !close9(float64(self.LogL), run[gi].LogL) {
 					selfBad++
 				}
-				for i := range run[gi].Params {
-					if !close9(cf.fits[p][gi].Params[i], run[gi].Params[i]) {
+				for i, name := range run[gi].Names {
+					if !close9(float64(self.Params[name].Estimate), run[gi].Params[i]) {
 						selfBad++
 					}
 				}
