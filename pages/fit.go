@@ -26,6 +26,7 @@ type fitView struct {
 	Charts       []fitChart
 	Misfits      []string
 	Rows         []fitEstimateRow
+	Jumps        []string
 }
 
 type fitGroupRow struct {
@@ -101,6 +102,18 @@ func Fit(f *recovery.CollectedFit) ([]byte, error) {
 	}
 	if len(v.Misfits) == 0 {
 		v.Misfits = []string{"No participant has more than one cell in ten off by more than 2 standard errors."}
+	}
+	for _, g := range f.GridHealth {
+		switch {
+		case len(g.JumpsAt) > 0:
+			at := make([]string, len(g.JumpsAt))
+			for i, x := range g.JumpsAt {
+				at[i] = fmtG(x, 3)
+			}
+			v.Jumps = append(v.Jumps, fmt.Sprintf("%s: its exact predictions jump at %s", g.Hypothesis, strings.Join(at, ", ")))
+		case g.Jumps:
+			v.Jumps = append(v.Jumps, g.Hypothesis+": its exact predictions jump inside its parameter range")
+		}
 	}
 	charts, err := checkCharts(f)
 	if err != nil {

@@ -35,21 +35,25 @@ func StudyHash(s *models.Study) (string, error) {
 // report of the same study, how often the study found each winner to be
 // the true hypothesis.
 type CollectedFit struct {
-	Study        string              `json:"study"`
-	StudyHash    string              `json:"study_hash"`
-	Version      string              `json:"version"`
-	Design       string              `json:"design"`
-	Measures     []string            `json:"measures"`
-	TrialsFile   string              `json:"trials_file"`
-	EEGFile      string              `json:"eeg_file,omitempty"`
-	Hypotheses   []string            `json:"hypotheses"`
-	Participants []ParticipantFit    `json:"participants"`
-	Group        *GroupFit           `json:"group"`
-	Recovery     *RecoveryBridge     `json:"recovery,omitempty"`
-	Method       Method              `json:"method"`
-	Notes        []string            `json:"notes"`
-	Timing       CollectedFitTiming  `json:"timing"`
-	cands        []models.Hypothesis // the candidates, in study order
+	Study        string           `json:"study"`
+	StudyHash    string           `json:"study_hash"`
+	Version      string           `json:"version"`
+	Design       string           `json:"design"`
+	Measures     []string         `json:"measures"`
+	TrialsFile   string           `json:"trials_file"`
+	EEGFile      string           `json:"eeg_file,omitempty"`
+	Hypotheses   []string         `json:"hypotheses"`
+	Participants []ParticipantFit `json:"participants"`
+	Group        *GroupFit        `json:"group"`
+	Recovery     *RecoveryBridge  `json:"recovery,omitempty"`
+	// GridHealth is each candidate's prediction grid measured against
+	// exact predictions on this design (the report's Fit health): where
+	// the predictions jump, fits near the jump are less certain.
+	GridHealth []SurrogateError    `json:"grid_health"`
+	Method     Method              `json:"method"`
+	Notes      []string            `json:"notes"`
+	Timing     CollectedFitTiming  `json:"timing"`
+	cands      []models.Hypothesis // the candidates, in study order
 }
 
 // CollectedFitTiming is the only part of fit.json that changes between
@@ -359,7 +363,7 @@ func (c *Compiled) AssembleFit(data *Collected, parts []ParticipantFit, bridge *
 	out := &CollectedFit{
 		Study: c.Study.Name, StudyHash: hash, Version: Version, Design: d.Name, Measures: d.Measures,
 		TrialsFile: data.TrialsFile, EEGFile: data.EEGFile, Method: CurrentMethod(), Recovery: bridge,
-		Participants: parts, cands: c.Study.Hypotheses,
+		Participants: parts, cands: c.Study.Hypotheses, GridHealth: c.Surrogate[di],
 	}
 	for _, h := range c.Study.Hypotheses {
 		out.Hypotheses = append(out.Hypotheses, h.Name)
