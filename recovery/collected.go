@@ -24,7 +24,8 @@ import (
 // rt_ms is NA (or empty) where no RT was recorded or the report was not the
 // target. The eeg table is optional; a participant's EEG holds every bin
 // of every CTI of the design, or none. Columns may come in any order, and
-// columns the format does not name are ignored. Rows are numbered from 1,
+// columns the format does not name are ignored. Spaces around a cell are
+// dropped (a participant label "w1 " is "w1"). Rows are numbered from 1,
 // the first row after the header.
 
 // TrialColumns and EEGColumns are the columns of the two tables, in the
@@ -328,8 +329,8 @@ func (p *dataParser) parseTrials(f DataFile, out *Collected, index map[string]in
 			p.add(name, row, p.cols.name(col), problem)
 			bad = true
 		}
-		label := rec[idx["participant"]]
-		if strings.TrimSpace(label) == "" {
+		label := strings.TrimSpace(rec[idx["participant"]])
+		if label == "" {
 			fail("participant", "the participant label is empty")
 		}
 		c, problem := p.ctiIndex(rec[idx["cti_ms"]])
@@ -407,7 +408,7 @@ func (p *dataParser) parseEEG(f DataFile, out *Collected, index map[string]int) 
 			p.add(name, row, p.cols.name(col), problem)
 			bad = true
 		}
-		label := rec[idx["participant"]]
+		label := strings.TrimSpace(rec[idx["participant"]])
 		pi, known := index[label]
 		if !known {
 			fail("participant", fmt.Sprintf("participant %q has no rows in %s", label, out.TrialsFile))

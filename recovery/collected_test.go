@@ -35,7 +35,7 @@ func collectedDesign(t testing.TB) *models.Design {
 }
 
 const goodTrials = "participant,cti_ms,cue,report,rt_ms\n" +
-	"ward-1,300,valid,target,512.5\n" +
+	"ward-1 ,300,valid,target,512.5\n" +
 	"ward-1,600,invalid,cued,NA\n" +
 	"ward-2,600,invalid,other,\n" +
 	"ward-2,300,valid,target,480\n"
