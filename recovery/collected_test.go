@@ -216,3 +216,22 @@ func TestParseCollectedWithoutRT(t *testing.T) {
 		t.Fatalf("an rt_ms column the design does not measure: %v", err)
 	}
 }
+
+// FuzzParseCollected: no input makes the parser panic, and an error never
+// comes with data.
+func FuzzParseCollected(f *testing.F) {
+	d := collectedDesign(f)
+	f.Add([]byte(goodTrials), []byte("participant,cti_ms,bin_start_ms,value\nward-1,300,0,1\n"))
+	f.Add([]byte("participant\tcti_ms\tcue\treport\trt_ms\n\"a\tb\",300,valid,target,1e400\n"), []byte(""))
+	f.Add([]byte("\ufeffparticipant,cti_ms,cue,report,rt_ms\r\nx,600,invalid,cued,NA\r\n"), []byte("participant,cti_ms,bin_start_ms,value\nx,600,-100,NaN\n"))
+	f.Fuzz(func(t *testing.T, trials, eeg []byte) {
+		var e *DataFile
+		if len(eeg) > 0 {
+			e = &DataFile{"eeg.csv", eeg}
+		}
+		c, err := ParseCollected(d, DataFile{"trials.csv", trials}, e, nil)
+		if (err == nil) == (c == nil) {
+			t.Fatalf("data %v with error %v", c != nil, err)
+		}
+	})
+}
