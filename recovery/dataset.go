@@ -1,9 +1,11 @@
 package recovery
 
 import (
+	"fmt"
 	"math"
 	"math/rand/v2"
 	"strconv"
+	"strings"
 
 	"discrimen/models"
 )
@@ -138,4 +140,53 @@ func truthRand(seed uint64, generator string, p int) *rand.Rand {
 // datasetRand is the stream for participant p's data under one design.
 func datasetRand(seed uint64, design, generator string, p int, purpose string) *rand.Rand {
 	return streamRand(seed, "dataset", design, generator, strconv.Itoa(p), purpose)
+}
+
+// synthetic makes the dataset of participant p of generator gen under
+// design d: the truth from the participant's stream, the exact
+// predictions at it (listener l, scratch pr and ws) and the data from the
+// dataset's stream. RunShard and Export both call it, so an exported
+// participant is the one a run fits.
+func synthetic(seed uint64, d *models.Design, gen models.Hypothesis, p int, l *models.Listener, pr *models.Prediction, ws *models.Workspace) (*Dataset, error) {
+	truth := drawTruth(truthRand(seed, gen.Name, p), gen, d)
+	prec, err := models.NewPrecision(gen, d, truth.Free)
+	if err != nil {
+		return nil, err
+	}
+	l.Predict(prec, pr, ws)
+	return Simulate(datasetRand(seed, d.Name, gen.Name, p, "trials"), d, gen, p, truth, pr), nil
+}
+
+// StudyDesign returns the study's expanded design of that name, or an
+// error that lists the designs.
+func StudyDesign(s *models.Study, name string) (*models.Design, error) {
+	designs, err := s.ExpandedDesigns()
+	if err != nil {
+		return nil, err
+	}
+	return findDesign(designs, name)
+}
+
+// findDesign finds an expanded design by name.
+func findDesign(designs []models.Design, name string) (*models.Design, error) {
+	names := make([]string, len(designs))
+	for i := range designs {
+		if designs[i].Name == name {
+			return &designs[i], nil
+		}
+		names[i] = designs[i].Name
+	}
+	return nil, fmt.Errorf("the study has no design %q (its designs: %s)", name, strings.Join(names, ", "))
+}
+
+// findHypothesis finds a hypothesis of the study by name.
+func findHypothesis(s *models.Study, name string) (int, error) {
+	names := make([]string, len(s.Hypotheses))
+	for i, h := range s.Hypotheses {
+		if h.Name == name {
+			return i, nil
+		}
+		names[i] = h.Name
+	}
+	return -1, fmt.Errorf("the study has no hypothesis %q (its hypotheses: %s)", name, strings.Join(names, ", "))
 }

@@ -40,6 +40,17 @@ type Compiled struct {
 // Compile expands the study's designs and builds the prediction grids of
 // every candidate with the given number of goroutines (0 = all cores).
 func Compile(ctx context.Context, s *models.Study, workers int) (*Compiled, error) {
+	return compile(ctx, s, "", workers)
+}
+
+// CompileDesign is Compile for one design of the study (its expanded
+// name), as the fit of collected data needs: the grids are the ones
+// Compile builds for that design.
+func CompileDesign(ctx context.Context, s *models.Study, design string, workers int) (*Compiled, error) {
+	return compile(ctx, s, design, workers)
+}
+
+func compile(ctx context.Context, s *models.Study, only string, workers int) (*Compiled, error) {
 	if workers <= 0 {
 		workers = runtime.GOMAXPROCS(0)
 	}
@@ -47,6 +58,13 @@ func Compile(ctx context.Context, s *models.Study, workers int) (*Compiled, erro
 	designs, err := s.ExpandedDesigns()
 	if err != nil {
 		return nil, err
+	}
+	if only != "" {
+		d, err := findDesign(designs, only)
+		if err != nil {
+			return nil, err
+		}
+		designs = []models.Design{*d}
 	}
 	c := &Compiled{Study: s, Designs: designs}
 	for di := range c.Designs {
@@ -173,13 +191,11 @@ func (c *Compiled) RunShard(ctx context.Context, spec ShardSpec, progress func(f
 		if ctx.Err() != nil {
 			return nil, fmt.Errorf("%w: %v", ErrCanceled, ctx.Err())
 		}
-		truth := drawTruth(truthRand(c.Study.Seed, gen.Name, p), gen, d)
-		prec, err := models.NewPrecision(gen, d, truth.Free)
+		ds, err := synthetic(c.Study.Seed, d, gen, p, l, pr, ws)
 		if err != nil {
 			return nil, err
 		}
-		l.Predict(prec, pr, ws)
-		ds := Simulate(datasetRand(c.Study.Seed, d.Name, gen.Name, p, "trials"), d, gen, p, truth, pr)
+		truth := ds.Truth
 		sum := summarise(d, ds)
 		pres := ParticipantResult{Participant: p, Truth: truth}
 		for _, f := range fitters {
@@ -208,14 +224,7 @@ func (c *Compiled) RunShard(ctx context.Context, spec ShardSpec, progress func(f
 		}
 		self := &pres.Fits[spec.Generator]
 		fs := fitters[spec.Generator]
-		if !self.Failed {
-			sp := newSpace(fs.grid, sum)
-			th := thetaOf(sp, self)
-			if sp.totalDims > 0 {
-				self.SE, self.SEReliable, self.SENote = fs.standardErrors(sum, sp, th)
-			}
-			self.Intervals = fs.profileIntervals(sum, sp, th, -self.LogL)
-		}
+		fs.finishSelf(sum, self)
 		self.TruthLogL = fs.truthLogL(sum, truth.Free, pr)
 		res.Participants = append(res.Participants, pres)
 		if progress != nil {

@@ -54,9 +54,12 @@ func numMatrix(x [][]float64) [][]NullFloat {
 
 // Report is the outcome of a study: everything report.json holds.
 type Report struct {
-	Study      string         `json:"study"`
-	Seed       uint64         `json:"seed"`
-	Version    string         `json:"version"`
+	Study   string `json:"study"`
+	Seed    uint64 `json:"seed"`
+	Version string `json:"version"`
+	// StudyHash is StudyHash of the study file: a fit of collected data
+	// checks it before it uses the report.
+	StudyHash  string         `json:"study_hash"`
 	Hypotheses []string       `json:"hypotheses"`
 	Families   []string       `json:"families"`
 	Designs    []DesignReport `json:"designs"`
@@ -234,6 +237,9 @@ func (c *Compiled) Assemble(results []*ShardResult) (*Report, error) {
 		return nil, err
 	}
 	rep := &Report{Study: s.Name, Seed: s.Seed, Version: Version, Method: CurrentMethod(), StudyFile: s, Warnings: s.Warnings()}
+	if rep.StudyHash, err = StudyHash(s); err != nil {
+		return nil, err
+	}
 	if rep.Warnings == nil {
 		rep.Warnings = []models.Problem{} // "warnings": [] rather than null
 	}

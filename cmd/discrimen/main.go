@@ -6,6 +6,8 @@
 //	discrimen validate STUDY.json          every problem in the file, with its field path
 //	discrimen predict STUDY.json           the hypotheses' predictions, as a table or JSON
 //	discrimen run STUDY.json --out DIR     run a study in this process and write the report
+//	discrimen export STUDY.json ...        synthetic participants in the collected-data format
+//	discrimen fit STUDY.json ...           fit collected data with the study's hypotheses
 //	discrimen serve                        API and workers in one process
 //	discrimen api | worker                 the two halves, against a real Redis
 //	discrimen key add NAME --keys FILE     make an API key
@@ -24,6 +26,10 @@ commands:
   predict  [STUDY.json]          predicted RT, accuracy and neural signal per hypothesis (--html FILE for plots)
   run      [STUDY.json] --out DIR  run a study here and write report.json, report.html, fits/params/measurement .csv + .json
                                  (no STUDY.json: the embedded demo study)
+  export   STUDY.json --design NAME --generator NAME --participants N --out DIR
+                                 the synthetic participants run fits, as trials.csv (+ eeg.csv) and truth.csv
+  fit      STUDY.json --design NAME --trials FILE [--eeg FILE] [--columns A=B,...] [--recovery report.json] --out DIR
+                                 fit collected data with every hypothesis: fit.json, fit.html, fit_*.csv + .json
   serve                          HTTP API and workers in one process
   api                            HTTP API against a shared Redis
   worker                         queue worker against a shared Redis
