@@ -35,8 +35,9 @@ var (
 	EEGColumns   = []string{"participant", "cti_ms", "bin_start_ms", "value"}
 )
 
-// maxDataErrors bounds the problems one parse reports.
-const maxDataErrors = 20
+// MaxDataErrors bounds the problems one parse reports; a parse that
+// reaches it stops.
+const MaxDataErrors = 20
 
 // Columns maps a column of the format to the file's own header name, as
 // given by `--columns participant=subj,rt_ms=RT`; an absent column keeps
@@ -188,12 +189,12 @@ type dataParser struct {
 }
 
 func (p *dataParser) add(file string, row int, col, problem string) {
-	if len(p.errs) < maxDataErrors {
+	if len(p.errs) < MaxDataErrors {
 		p.errs = append(p.errs, &DataError{File: file, Row: row, Column: col, Problem: problem})
 	}
 }
 
-func (p *dataParser) full() bool { return len(p.errs) >= maxDataErrors }
+func (p *dataParser) full() bool { return len(p.errs) >= MaxDataErrors }
 
 // table reads a whole file and maps the wanted columns to their indices;
 // ok is false when the file cannot be used at all.

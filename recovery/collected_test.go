@@ -179,7 +179,7 @@ func TestParseCollectedManyProblems(t *testing.T) {
 	}
 	_, err := ParseCollected(d, DataFile{"trials.tsv", []byte(strings.ReplaceAll(b.String(), ",", "\t"))}, nil, nil)
 	es, ok := err.(DataErrors)
-	if !ok || len(es) != maxDataErrors || es[19].Row != 20 || es[0].Column != "report" {
+	if !ok || len(es) != MaxDataErrors || es[19].Row != 20 || es[0].Column != "report" {
 		t.Fatalf("got %v", err)
 	}
 }

@@ -77,6 +77,10 @@ func cmdFit(args []string, stdout, stderr io.Writer) int {
 	data, err := recovery.ParseCollected(d, *tf, ef, cols)
 	if err != nil {
 		fmt.Fprintf(stderr, "discrimen fit: the data do not parse; nothing was written:\n%v\n", err)
+		var es recovery.DataErrors
+		if errors.As(err, &es) && len(es) >= recovery.MaxDataErrors {
+			fmt.Fprintf(stderr, "discrimen fit: the first %d problems are listed; the parse stopped there\n", len(es))
+		}
 		return 1
 	}
 	opt := recovery.FitOptions{Workers: *workers}
