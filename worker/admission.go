@@ -198,7 +198,16 @@ func (c *Client) SubmitOnce(ctx context.Context, owner, key string, input []byte
 		return st, false, err
 	}
 	sum := sha256.Sum256(input)
-	fp := hex.EncodeToString(sum[:])
+	return c.submitOnce(ctx, owner, key, hex.EncodeToString(sum[:]), admit,
+		func(ctx context.Context) (Status, error) { return c.Submit(ctx, owner, input, s) },
+		c.Status, estimate)
+}
+
+// submitOnce is SubmitOnce's idempotency for any submission: fp is the
+// hex SHA-256 of what was submitted, submit stores it, status reads it
+// back for a replay.
+func (c *Client) submitOnce(ctx context.Context, owner, key, fp string, admit func(context.Context) error,
+	submit func(context.Context) (Status, error), status func(ctx context.Context, owner, id string) (Status, error), estimate int64) (Status, bool, error) {
 	ik := idempotencyKey(owner, key)
 	pending := "pending " + fp
 	// Two rounds at most: the second after a bound study expired.
@@ -212,7 +221,7 @@ func (c *Client) SubmitOnce(ctx context.Context, owner, key string, input []byte
 				c.st.release(ctx, ik, pending)
 				return Status{}, false, err
 			}
-			st, err := c.Submit(ctx, owner, input, s)
+			st, err := submit(ctx)
 			if err != nil {
 				c.st.release(ctx, ik, pending)
 				return Status{}, false, err
@@ -239,7 +248,7 @@ func (c *Client) SubmitOnce(ctx context.Context, owner, key string, input []byte
 		if kind == "pending" {
 			return Status{}, false, ErrKeyInFlight
 		}
-		st, err := c.Status(ctx, owner, id)
+		st, err := status(ctx, owner, id)
 		if errors.Is(err, ErrNotFound) {
 			c.st.release(ctx, ik, v) // the study expired before its key
 			continue

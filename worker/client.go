@@ -90,7 +90,7 @@ func (c *Client) Status(ctx context.Context, owner, id string) (Status, error) {
 	if err != nil {
 		return Status{}, err
 	}
-	if s.Owner != owner {
+	if s.Owner != owner || s.Kind != "" {
 		return Status{}, ErrNotFound
 	}
 	return s, nil
@@ -123,6 +123,9 @@ func (c *Client) List(ctx context.Context, owner, cursor string, limit int) ([]S
 			}
 			if err != nil {
 				return nil, "", err
+			}
+			if s.Kind != "" {
+				continue // a fit of collected data: GET /v1/fits/{id}
 			}
 			out = append(out, s)
 		}

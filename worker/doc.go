@@ -17,6 +17,11 @@
 // requeues the running shards of a worker that stopped beating, long
 // before asynq's own lease recovery would.
 //
+// A fit of collected data (fits.go) runs on the same machinery: fit:plan
+// splits the uploaded participants into blocks, fit:shard fits a block
+// with recovery's FitBlock, fit:assemble builds fit.json, fit.html and the
+// tables with AssembleFit and stores them in one guarded step.
+//
 // Client is the API's side: submit (with an idempotency key), status,
 // list, cancel, report, and a key's usage for the API's quotas
 // (admission.go). Server is

@@ -35,6 +35,12 @@ package worker
 //	discrimen:{ID}:report.html        string      report.html bytes
 //	discrimen:{ID}:fits.csv           string      fits.csv bytes (likewise fits.json, params.csv,
 //	                                              params.json, measurement.csv, measurement.json)
+//	discrimen:{ID}:upload             hash        a fit job's uploaded data (fits.go): design, columns,
+//	                                              trials_name, trials, and eeg_name, eeg when sent;
+//	                                              deleted with every other key of the fit by DeleteFit
+//	discrimen:{ID}:fit.json           string      a fit job's fit.json bytes (likewise fit.html,
+//	                                              fit_candidates.csv/.json, fit_params.csv/.json,
+//	                                              fit_checks.csv/.json, fit_group.csv/.json)
 //	discrimen:{owner:NAME}:studies    sorted set  the study ids of one API key, all score 0 (ids sort by time)
 //	discrimen:{index}:studies         sorted set  every study id, all score 0, for metrics
 //	discrimen:{owner:NAME}:idem:HASH  string      an Idempotency-Key of the owner (HASH: hex SHA-256 of the key):
@@ -65,6 +71,9 @@ package worker
 //	last_shard   optional  time the latest shard was stored
 //	assemblies   optional  times an assembly stored a report (1 for a finished study)
 //	report_estimate optional  EstimateReportBytes of the study, written just after submission
+//	kind         optional  absent for a study; "fit" for a fit job of collected data (fits.go),
+//	                       whose results hash holds JSON blocks of participants (not gob)
+//	                       and whose total counts participants × hypotheses
 //
 // The values of the done, partial and runs hashes are counts as above,
 // their fields shard indexes; the lost hash's values are times as above.
@@ -137,6 +146,12 @@ const (
 	runningKey = keyPrefix + "{workers}:running"
 )
 
+// A fit job (fits.go) is a record of kind "fit" with the study's keys
+// (input, results, done, partial, runs, workers, lost), its upload and its
+// fit files; it sits in the owner's and the global index like a study, so
+// it counts toward the owner's quotas. Its task IDs are fitplan:ID,
+// fitshard:ID:N and fitassemble:ID.
+//
 // Task IDs: asynq refuses a second task with the same ID while the first is
 // kept, which makes each plan, shard and assembly unique per study.
 func planTaskID(id string) string             { return "plan:" + id }

@@ -16,6 +16,9 @@ import (
 type studyRecord struct {
 	Owner string
 	Name  string
+	// Kind is "" for a study and KindFit for a fit of collected data
+	// (fits.go).
+	Kind  string
 	State State
 	// Total counts the study's fits.
 	Total int
@@ -104,6 +107,7 @@ func decodeRecord(m map[string]string) (studyRecord, error) {
 
 	r.Owner = text("owner", true)
 	r.Name = text("name", true)
+	r.Kind = m["kind"]
 	if v, ok := get("status", true); ok {
 		s, err := parseState(v)
 		check("status", v, err)

@@ -130,6 +130,9 @@ func (s *Server) Start() error {
 	mux.HandleFunc(TypePlan, s.tracked(s.handlePlan))
 	mux.HandleFunc(TypeShard, s.tracked(s.handleShard))
 	mux.HandleFunc(TypeAssemble, s.tracked(s.handleAssemble))
+	mux.HandleFunc(TypeFitPlan, s.tracked(s.handleFitPlan))
+	mux.HandleFunc(TypeFitShard, s.tracked(s.handleFitShard))
+	mux.HandleFunc(TypeFitAssemble, s.tracked(s.handleFitAssemble))
 	s.log.Info("worker starting", "concurrency", s.cfg.Concurrency, "queues", fmt.Sprintf("%s, %s.share0..%d", s.cfg.controlQueue(), s.cfg.Queue, ShareQueues-1))
 	ctx, cancel := context.WithCancel(context.Background())
 	// The first beat is written before any task is taken, so a running

@@ -100,6 +100,8 @@ type Status struct {
 	ID    string
 	Owner string
 	Name  string
+	// Kind is "" for a study, KindFit for a fit of collected data.
+	Kind string
 	// State is the stored state, or Recovering for a running study with a
 	// lost shard waiting to be rerun.
 	State State
@@ -353,7 +355,7 @@ func (st *store) status(ctx context.Context, id string, now time.Time) (Status, 
 		return Status{}, err
 	}
 	s := Status{
-		ID: id, Owner: rec.Owner, Name: rec.Name, State: rec.State, Error: rec.Error,
+		ID: id, Owner: rec.Owner, Name: rec.Name, Kind: rec.Kind, State: rec.State, Error: rec.Error,
 		Total: rec.Total, Shards: rec.Shards, Assemblies: rec.Assemblies,
 		Created: rec.Created, Started: rec.Started, Finished: rec.Finished,
 	}

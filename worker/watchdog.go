@@ -127,8 +127,8 @@ func rerunTaskID(id string, index, runs int) string {
 	return "rerun:" + id + ":" + strconv.Itoa(index) + ":" + strconv.Itoa(runs)
 }
 
-func (c Config) rerunTask(id string, index, runs int, payload []byte) *asynq.Task {
-	return asynq.NewTask(TypeShard, payload,
+func (c Config) rerunTask(typ, id string, index, runs int, payload []byte) *asynq.Task {
+	return asynq.NewTask(typ, payload,
 		asynq.TaskID(rerunTaskID(id, index, runs)), asynq.Queue(c.controlQueue()), asynq.MaxRetry(c.MaxRetry),
 		asynq.Timeout(c.ShardTimeout))
 }
@@ -233,7 +233,11 @@ func (s *Server) replan(ctx context.Context, now time.Time) (int, error) {
 		if err := s.st.reindex(ctx, rec.Owner, id); err != nil {
 			return n, err
 		}
-		_, err = s.queue.EnqueueContext(ctx, s.cfg.planTask(id))
+		plan := s.cfg.planTask(id)
+		if rec.Kind == KindFit {
+			plan = s.cfg.fitPlanTask(id)
+		}
+		_, err = s.queue.EnqueueContext(ctx, plan)
 		switch {
 		case errors.Is(err, asynq.ErrTaskIDConflict):
 			// Its plan is queued or running: the entry goes once it is stored.
@@ -310,7 +314,7 @@ func (s *Server) requeueLost(ctx context.Context, r runningTask, now time.Time) 
 	}
 	var task *asynq.Task
 	switch r.Type {
-	case TypeShard:
+	case TypeShard, TypeFitShard:
 		if stored, err := s.st.shardStored(ctx, r.Study, r.Index); err != nil || stored {
 			return false, err
 		}
@@ -318,8 +322,8 @@ func (s *Server) requeueLost(ctx context.Context, r runningTask, now time.Time) 
 		if err != nil {
 			return false, err
 		}
-		task = s.cfg.rerunTask(r.Study, r.Index, runs, r.Payload)
-	case TypePlan, TypeAssemble:
+		task = s.cfg.rerunTask(r.Type, r.Study, r.Index, runs, r.Payload)
+	case TypePlan, TypeAssemble, TypeFitPlan, TypeFitAssemble:
 		task = s.cfg.rerunControlTask(r.Type, r.Study, now, r.Payload)
 	default:
 		s.log.Warn("watchdog: a running entry of an unknown task type; asynq's lease recovery will rerun it", "type", r.Type, "study", r.Study)
