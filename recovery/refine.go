@@ -3,6 +3,7 @@ package recovery
 import (
 	"context"
 	"math"
+	"slices"
 	"sort"
 
 	"discrimen/internal/parallel"
@@ -382,7 +383,7 @@ func (c *PredictionGrid) refineND(ctx context.Context, workers int) error {
 			lens[i] = len(c.axes[i])
 		}
 		for _, sp := range splits {
-			if slicesContains(newAt[sp.dim], sp.at) {
+			if slices.Contains(newAt[sp.dim], sp.at) {
 				continue
 			}
 			cost := 1
@@ -406,15 +407,6 @@ func (c *PredictionGrid) refineND(ctx context.Context, workers int) error {
 			return err
 		}
 	}
-}
-
-func slicesContains(s []float64, v float64) bool {
-	for _, x := range s {
-		if x == v {
-			return true
-		}
-	}
-	return false
 }
 
 func anyNonEmpty(s [][]float64) bool {

@@ -180,6 +180,12 @@ func (c *Client) Cancel(ctx context.Context, owner, id string) (Status, error) {
 // that is not there (done, never enqueued) or running is expected; any
 // other failure is returned, with ctx's error if it ended the loop early.
 func dropTasks(ctx context.Context, in *asynq.Inspector, cfg Config, id, owner string, shards int) error {
+	return dropQueued(ctx, in, cfg, owner, planTaskID(id), func(i int) string { return shardTaskID(id, i) }, shards)
+}
+
+// dropQueued deletes a plan task and shards shard tasks of one owner, as
+// dropTasks describes; studies and fit jobs differ only in their task IDs.
+func dropQueued(ctx context.Context, in *asynq.Inspector, cfg Config, owner, planID string, shardID func(int) string, shards int) error {
 	var errs []error
 	drop := func(queue, task string) {
 		err := in.DeleteTask(queue, task)
@@ -193,10 +199,10 @@ func dropTasks(ctx context.Context, in *asynq.Inspector, cfg Config, id, owner s
 		}
 		errs = append(errs, fmt.Errorf("deleting task %s: %w", task, err))
 	}
-	drop(cfg.controlQueue(), planTaskID(id))
+	drop(cfg.controlQueue(), planID)
 	i := 0
 	for ; i < shards && ctx.Err() == nil; i++ {
-		drop(cfg.shareQueue(owner), shardTaskID(id, i))
+		drop(cfg.shareQueue(owner), shardID(i))
 	}
 	if i < shards {
 		errs = append(errs, fmt.Errorf("stopped after %d of %d shard tasks: %w", i, shards, ctx.Err()))

@@ -161,13 +161,7 @@ func (st *store) createFit(ctx context.Context, id, owner string, up FitUpload, 
 	if err != nil {
 		return err
 	}
-	if err := st.rdb.ZAdd(ctx, ownerKey(owner), redis.Z{Member: id}).Err(); err != nil {
-		return err
-	}
-	if err := st.rdb.ZAdd(ctx, indexKey, redis.Z{Member: id}).Err(); err != nil {
-		return err
-	}
-	return st.keepIndexes(ctx, owner)
+	return st.index(ctx, owner, id)
 }
 
 // upload reads a fit's stored upload.
@@ -422,22 +416,7 @@ func (c *Client) DeleteFit(ctx context.Context, owner, id string) error {
 
 // dropFitTasks deletes a fit's waiting tasks, as dropTasks does a study's.
 func dropFitTasks(ctx context.Context, in *asynq.Inspector, cfg Config, id, owner string, shards int) error {
-	var errs []error
-	drop := func(queue, task string) {
-		err := in.DeleteTask(queue, task)
-		if err == nil || errors.Is(err, asynq.ErrTaskNotFound) || errors.Is(err, asynq.ErrQueueNotFound) {
-			return
-		}
-		if info, ierr := in.GetTaskInfo(queue, task); ierr == nil && info.State == asynq.TaskStateActive {
-			return
-		}
-		errs = append(errs, fmt.Errorf("deleting task %s: %w", task, err))
-	}
-	drop(cfg.controlQueue(), fitPlanTaskID(id))
-	for i := 0; i < shards && ctx.Err() == nil; i++ {
-		drop(cfg.shareQueue(owner), fitShardTaskID(id, i))
-	}
-	return errors.Join(errs...)
+	return dropQueued(ctx, in, cfg, owner, fitPlanTaskID(id), func(i int) string { return fitShardTaskID(id, i) }, shards)
 }
 
 // loadFit reads and parses a fit's stored upload, as the api did.
@@ -501,17 +480,10 @@ func (s *Server) handleFitPlan(ctx context.Context, t *asynq.Task) error {
 	if _, err := s.st.setStatus(ctx, id, []State{Queued}, Running, "", "started", time.Now().UnixNano()); err != nil {
 		return err
 	}
-	for _, spec := range specs {
-		stored, err := s.st.shardStored(ctx, id, spec.Index)
-		if err != nil {
-			return err
-		}
-		if stored {
-			continue
-		}
-		if _, err := s.queue.EnqueueContext(ctx, s.cfg.fitShardTask(id, rec.Owner, spec)); err != nil && !errors.Is(err, asynq.ErrTaskIDConflict) {
-			return err
-		}
+	if err := s.enqueueUnstored(ctx, id, len(specs), func(i int) (int, *asynq.Task) {
+		return specs[i].Index, s.cfg.fitShardTask(id, rec.Owner, specs[i])
+	}); err != nil {
+		return err
 	}
 	rec, err = s.st.record(ctx, id)
 	if errors.Is(err, ErrNotFound) {

@@ -284,17 +284,10 @@ func (s *Server) handlePlan(ctx context.Context, t *asynq.Task) error {
 	if _, err := s.st.setStatus(ctx, id, []State{Queued}, Running, "", "started", time.Now().UnixNano()); err != nil {
 		return err
 	}
-	for _, spec := range specs {
-		stored, err := s.st.shardStored(ctx, id, spec.Index)
-		if err != nil {
-			return err
-		}
-		if stored {
-			continue
-		}
-		if _, err := s.queue.EnqueueContext(ctx, s.cfg.shardTask(id, rec.Owner, spec)); err != nil && !errors.Is(err, asynq.ErrTaskIDConflict) {
-			return err
-		}
+	if err := s.enqueueUnstored(ctx, id, len(specs), func(i int) (int, *asynq.Task) {
+		return specs[i].Index, s.cfg.shardTask(id, rec.Owner, specs[i])
+	}); err != nil {
+		return err
 	}
 	// A cancel that landed while the shards were being enqueued could not
 	// see them; drop them now.
@@ -313,6 +306,26 @@ func (s *Server) handlePlan(ctx context.Context, t *asynq.Task) error {
 	}
 	s.log.Info("study planned", "study", id, "shards", len(specs), "shard_size", size, "fits", study.TotalFits())
 	return s.maybeAssemble(ctx, id, len(specs))
+}
+
+// enqueueUnstored enqueues the shard tasks of a plan whose results are not
+// stored yet; task gives the index and task of the i-th of n. A task that
+// is queued already (a retried plan) is not an error.
+func (s *Server) enqueueUnstored(ctx context.Context, id string, n int, task func(i int) (int, *asynq.Task)) error {
+	for i := 0; i < n; i++ {
+		index, t := task(i)
+		stored, err := s.st.shardStored(ctx, id, index)
+		if err != nil {
+			return err
+		}
+		if stored {
+			continue
+		}
+		if _, err := s.queue.EnqueueContext(ctx, t); err != nil && !errors.Is(err, asynq.ErrTaskIDConflict) {
+			return err
+		}
+	}
+	return nil
 }
 
 // handleShard runs one shard and stores its result under its index.

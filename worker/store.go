@@ -202,6 +202,11 @@ func (st *store) create(ctx context.Context, id, owner, name string, input []byt
 	}
 	// The indexes live in other slots; they are written after the study so
 	// a reader that finds an id always finds its record (or its expiry).
+	return st.index(ctx, owner, id)
+}
+
+// index adds id to its owner's index and the global one.
+func (st *store) index(ctx context.Context, owner, id string) error {
 	if err := st.rdb.ZAdd(ctx, ownerKey(owner), redis.Z{Member: id}).Err(); err != nil {
 		return err
 	}
